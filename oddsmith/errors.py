@@ -1,0 +1,58 @@
+"""Error and warning classes shared by every oddsmith stage.
+
+Each error carries a human-readable message that names the column, key or row at fault,
+what was expected and what was found. Errors that collect several problems keep them in
+``problems`` so the command line can print all of them at once.
+"""
+
+from __future__ import annotations
+
+
+class OddsmithError(Exception):
+    """Base class of every error oddsmith raises on purpose."""
+
+    def __init__(self, message: str, problems: list[str] | None = None):
+        self.problems = list(problems or [])
+        if self.problems:
+            message = message + "\n" + "\n".join(f"  - {p}" for p in self.problems)
+        super().__init__(message)
+
+
+class ConfigError(OddsmithError):
+    """The configuration does not satisfy its schema or its cross-key rules."""
+
+
+class ContractError(OddsmithError):
+    """The data does not satisfy its data contract."""
+
+
+class SplitError(OddsmithError):
+    """A split or fold assignment cannot be made as configured."""
+
+
+class RecipeError(OddsmithError):
+    """A feature recipe cannot be learned or applied (unseen level, missing column, bad value)."""
+
+
+class FitError(OddsmithError):
+    """A candidate model could not be fitted."""
+
+
+class CostError(OddsmithError):
+    """Costs or operating constraints are invalid or cannot be met."""
+
+
+class ManifestError(OddsmithError):
+    """A manifest is missing, malformed, or does not match the files it describes."""
+
+
+class ArtifactError(OddsmithError):
+    """A required artifact is missing or malformed."""
+
+
+class SeparationWarning(UserWarning):
+    """Complete or quasi-complete separation was detected in a maximum-likelihood fit."""
+
+
+class EventsPerVariableWarning(UserWarning):
+    """Fewer than 10 events per estimated parameter (Peduzzi et al. 1996)."""
