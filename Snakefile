@@ -1,0 +1,17 @@
+# oddsmith workflow: validate → split → features → fit (one job per candidate) → compare
+# → threshold → evaluate → figures → manifest → card. See DEVELOPERS.md for the map.
+from snakemake.utils import min_version
+
+min_version("9.0")
+
+
+configfile: "config/config.yaml"
+
+
+include: "rules/common.smk"
+include: "rules/validate.smk"
+
+
+rule all:
+    input:
+        f"results/{RUN}/validated/data.parquet",

@@ -1,0 +1,217 @@
+"""Load and check an oddsmith configuration: JSON Schema first, then the cross-key rules.
+
+Every problem is collected and reported at once with the key path, what was expected and
+what was found. Defaults from the schema are filled in so later stages never guess.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+from pathlib import Path
+
+import jsonschema
+import yaml
+
+from oddsmith.errors import ConfigError
+
+SCHEMA_PATH = Path(__file__).resolve().parent.parent / "schemas" / "config.schema.yaml"
+PENALISED_KINDS = ("l1", "l2", "elastic_net")
+
+
+def _with_defaults(validator_class):
+    validate_properties = validator_class.VALIDATORS["properties"]
+
+    def set_defaults(validator, properties, instance, schema):
+        if isinstance(instance, dict):
+            for name, sub in properties.items():
+                if "default" in sub and name not in instance:
+                    instance[name] = copy.deepcopy(sub["default"])
+        yield from validate_properties(validator, properties, instance, schema)
+
+    return jsonschema.validators.extend(validator_class, {"properties": set_defaults})
+
+
+_Validator = _with_defaults(jsonschema.Draft202012Validator)
+
+
+def load_schema() -> dict:
+    """Return the configuration JSON Schema as a dict."""
+    return yaml.safe_load(SCHEMA_PATH.read_text(encoding="utf-8"))
+
+
+def read_config_file(path: str | Path) -> dict:
+    """Read a YAML configuration file, with a clear error if it is missing or not YAML."""
+    path = Path(path)
+    if not path.is_file():
+        raise ConfigError(f"configuration file not found: {path}")
+    try:
+        loaded = yaml.safe_load(path.read_text(encoding="utf-8"))
+    except yaml.YAMLError as exc:
+        raise ConfigError(f"configuration file {path} is not valid YAML: {exc}") from None
+    if not isinstance(loaded, dict):
+        raise ConfigError(f"configuration file {path} must hold a mapping of keys, found {type(loaded).__name__}")
+    return loaded
+
+
+def check_config(raw: dict, *, project_dir: str | Path = ".") -> dict:
+    """Validate a configuration and return a copy with every default filled in.
+
+    Parameters
+    ----------
+    raw : dict
+        The configuration as read from YAML (not modified).
+    project_dir : path
+        Folder that relative paths are resolved against.
+
+    Raises
+    ------
+    ConfigError
+        Listing every schema violation, or every cross-key problem.
+    """
+    config = copy.deepcopy(raw)
+    errors = sorted(_Validator(load_schema()).iter_errors(config), key=lambda e: list(map(str, e.absolute_path)))
+    if errors:
+        raise ConfigError(
+            f"the configuration has {len(errors)} problem(s)", [_describe_schema_error(e) for e in errors]
+        )
+    problems = _cross_key_problems(config, Path(project_dir))
+    if problems:
+        raise ConfigError(f"the configuration has {len(problems)} problem(s)", problems)
+    _add_baseline(config)
+    return config
+
+
+def _describe_schema_error(error) -> str:
+    where = ".".join(str(p) for p in error.absolute_path) or "(top level)"
+    if error.validator == "additionalProperties":
+        allowed = sorted(error.schema.get("properties", {}))
+        return f"{where}: {error.message}; allowed keys here: {', '.join(allowed)}"
+    if error.validator == "required":
+        return f"{where}: {error.message}"
+    return f"{where}: expected {error.validator} {error.validator_value!r}, found {error.instance!r} ({error.message})"
+
+
+def _cross_key_problems(config: dict, project_dir: Path) -> list[str]:
+    data = config["data"]
+    problems = []
+    names = [f["name"] for f in config["features"]]
+    roles = {data["id_column"]: "id_column", data["target"]: "target"}
+    if data["date_column"]:
+        roles[data["date_column"]] = "date_column"
+    for name in sorted({n for n in names if names.count(n) > 1}):
+        problems.append(f"features: '{name}' is listed {names.count(name)} times; list each feature once")
+    for name in names:
+        if name in roles:
+            problems.append(f"features: '{name}' is the {roles[name]}; it cannot also be a model input")
+    fairness = config["fairness"]
+    for name in fairness["sensitive"]:
+        if name in names and not fairness["use_sensitive_as_features"]:
+            problems.append(
+                f"features: '{name}' is a sensitive attribute (fairness.sensitive); using it as a model input "
+                "needs the explicit opt-in fairness.use_sensitive_as_features: true"
+            )
+    problems += _feature_problems(config, names)
+    problems += _candidate_problems(config, names)
+    problems += _split_problems(config)
+    problems += _cost_problems(config["costs"])
+    problems += _path_problems(data, project_dir)
+    return problems
+
+
+def _feature_problems(config: dict, names: list[str]) -> list[str]:
+    problems = []
+    for f in config["features"]:
+        if f["type"] == "categorical" and f["transform"] != "none":
+            problems.append(f"features.{f['name']}: transform '{f['transform']}' applies to numeric features only")
+    for i, pair in enumerate(config["interactions"]):
+        for name in pair:
+            if name not in names:
+                problems.append(f"interactions.{i}: '{name}' is not a declared feature (declared: {', '.join(names)})")
+        if pair[0] == pair[1]:
+            problems.append(f"interactions.{i}: a feature cannot interact with itself ('{pair[0]}')")
+    return problems
+
+
+def _candidate_problems(config: dict, names: list[str]) -> list[str]:
+    problems = []
+    seen = [c["name"] for c in config["candidates"]]
+    for name in sorted({n for n in seen if seen.count(n) > 1}):
+        problems.append(f"candidates: the name '{name}' is used {seen.count(name)} times; names must be unique")
+    if "baseline" in seen:
+        problems.append("candidates: the name 'baseline' is reserved for the intercept-only model added automatically")
+    for c in config["candidates"]:
+        for name in c.get("features", []):
+            if name not in names:
+                problems.append(f"candidates.{c['name']}.features: '{name}' is not a declared feature")
+        if c["kind"] in PENALISED_KINDS and "grid" not in c:
+            problems.append(f"candidates.{c['name']}: kind '{c['kind']}' needs a 'grid' of penalty values C")
+        if c["kind"] not in PENALISED_KINDS and "grid" in c:
+            problems.append(f"candidates.{c['name']}: 'grid' applies to l1, l2 and elastic_net only, not '{c['kind']}'")
+    return problems
+
+
+def _split_problems(config: dict) -> list[str]:
+    split, problems = config["split"], []
+    if split["method"] == "out_of_time" and not config["data"]["date_column"]:
+        problems.append("split.method: out_of_time needs data.date_column")
+    if split["method"] == "grouped" and not split["group_column"]:
+        problems.append("split.method: grouped needs split.group_column")
+    if split["cutoff_date"] is not None and split["method"] != "out_of_time":
+        problems.append(f"split.cutoff_date: only used by method out_of_time, not '{split['method']}'")
+    return problems
+
+
+def _cost_problems(costs: dict) -> list[str]:
+    problems = []
+    has_pair = "false_positive" in costs or "false_negative" in costs
+    if has_pair and "ratio_fn_to_fp" in costs:
+        problems.append("costs: give either false_positive and false_negative, or ratio_fn_to_fp, not both")
+    elif not has_pair and "ratio_fn_to_fp" not in costs:
+        problems.append("costs: missing; give false_positive and false_negative (or ratio_fn_to_fp)")
+    elif has_pair and not ("false_positive" in costs and "false_negative" in costs):
+        problems.append("costs: give both false_positive and false_negative")
+    for key in ("false_positive", "false_negative", "ratio_fn_to_fp"):
+        value = costs.get(key)
+        if value is not None and (not math.isfinite(value) or value <= 0):
+            problems.append(f"costs.{key}: must be a finite number > 0, got {value}")
+    for key in ("true_positive", "true_negative"):
+        value = costs.get(key)
+        if not math.isfinite(value) or value < 0:
+            problems.append(f"costs.{key}: must be a finite number >= 0, got {value}")
+    for key in ("max_flag_rate", "min_sensitivity"):
+        value = costs.get(key)
+        if value is not None and not 0 < value <= 1:
+            problems.append(f"costs.{key}: must lie in (0, 1], got {value}")
+    if costs["adopt"] == "constrained" and costs["max_flag_rate"] is None and costs["min_sensitivity"] is None:
+        problems.append("costs.adopt: 'constrained' needs max_flag_rate or min_sensitivity")
+    return problems
+
+
+def _path_problems(data: dict, project_dir: Path) -> list[str]:
+    problems = []
+    root = project_dir.resolve()
+    for key in ("path", "contract"):
+        target = (project_dir / data[key]).resolve()
+        if root not in target.parents and not (key == "path" and data["allow_outside_project"]):
+            problems.append(
+                f"data.{key}: '{data[key]}' resolves to {target}, outside the project folder {root}; "
+                "copy the file into the project"
+                + (" or set data.allow_outside_project: true if you mean it" if key == "path" else "")
+            )
+    return problems
+
+
+def _add_baseline(config: dict) -> None:
+    config["candidates"] = [c for c in config["candidates"]] + [
+        {"name": "baseline", "kind": "baseline", "inner_folds": 3, "l1_ratio": 0.5, "max_iter": 200}
+    ]
+
+
+def candidate(config: dict, name: str) -> dict:
+    """Return the settings of candidate ``name`` (raises ConfigError naming the known ones)."""
+    for c in config["candidates"]:
+        if c["name"] == name:
+            return c
+    known = ", ".join(c["name"] for c in config["candidates"])
+    raise ConfigError(f"unknown candidate '{name}'; configured: {known}")

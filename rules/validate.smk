@@ -1,0 +1,23 @@
+rule validate:
+    input:
+        data=CONFIG["data"]["path"],
+        contract=CONFIG["data"]["contract"],
+    output:
+        data="results/{run}/validated/data.parquet",
+        report="results/{run}/validated/report.json",
+        summary="results/{run}/validated/summary.txt",
+        stamp="results/{run}/provenance/validate.json",
+    params:
+        config={k: CONFIG[k] for k in ("data", "features", "interactions", "fairness")}
+        | {"split": {"group_column": CONFIG["split"]["group_column"]}},
+        code=code("validate", "contract", "config", script="scripts/validate.py"),
+    log:
+        "logs/{run}/validate.log",
+    benchmark:
+        "benchmarks/{run}/validate.tsv"
+    threads: 1
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
+    script:
+        "../scripts/validate.py"

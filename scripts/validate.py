@@ -1,0 +1,15 @@
+"""Snakemake script of the validate rule: raw data + contract → typed snapshot and report."""
+
+from oddsmith.runner import stage
+from oddsmith.validate import run_validate
+
+stage(
+    snakemake,  # noqa: F821 (provided by Snakemake)
+    run_validate,
+    config=snakemake.params.config,  # noqa: F821
+    data_path=snakemake.input.data,  # noqa: F821
+    contract_path=snakemake.input.contract,  # noqa: F821
+    out_data=snakemake.output.data,  # noqa: F821
+    out_report=snakemake.output.report,  # noqa: F821
+    out_summary=snakemake.output.summary,  # noqa: F821
+)
