@@ -1,0 +1,448 @@
+"""Discrimination, calibration and model-comparison measures for yes/no predictions.
+
+Every function takes plain arrays: ``y`` holds outcomes coded 0/1 and ``p`` the predicted
+probability of outcome 1. Returned dictionaries hold only Python ``float``, ``int``, ``str``,
+``bool``, ``list``, ``dict`` and ``None``, so they can be written to JSON as they are.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import statsmodels.api as sm
+from scipy import stats
+from sklearn import metrics as skm
+from statsmodels.stats.proportion import proportion_confint
+from statsmodels.tools.sm_exceptions import PerfectSeparationWarning
+
+from oddsmith.errors import OddsmithError
+
+# Probabilities are clipped to this distance from 0 and 1 before taking logits, so that a
+# prediction of exactly 0 or 1 gives a large finite logit. The size is common practice.
+_EPS = 1e-15
+
+
+# ---------------------------------------------------------------------------------------------
+# input checks
+
+
+def _validated(y, p) -> tuple[np.ndarray, np.ndarray]:
+    """Return ``y`` as an int array of 0/1 and ``p`` as a float array in [0, 1].
+
+    Raises
+    ------
+    OddsmithError
+        Naming the first offending value and its row.
+    """
+    y_arr = np.asarray(y)
+    p_arr = np.asarray(p, dtype=float)
+    if y_arr.ndim != 1 or p_arr.ndim != 1:
+        raise OddsmithError(
+            f"y and p must be one-dimensional, got shapes {y_arr.shape} and {p_arr.shape}"
+        )
+    if y_arr.shape[0] != p_arr.shape[0]:
+        raise OddsmithError(
+            f"y and p must have the same length, got {y_arr.shape[0]} and {p_arr.shape[0]}"
+        )
+    if y_arr.shape[0] == 0:
+        raise OddsmithError("y and p are empty; at least one row is needed")
+    bad_y = ~np.isin(y_arr, (0, 1))
+    if bad_y.any():
+        row = int(np.flatnonzero(bad_y)[0])
+        raise OddsmithError(
+            f"y must contain only 0 and 1, found {y_arr[row].item()!r} at row {row}"
+        )
+    bad_p = ~(np.isfinite(p_arr) & (p_arr >= 0.0) & (p_arr <= 1.0))
+    if bad_p.any():
+        row = int(np.flatnonzero(bad_p)[0])
+        raise OddsmithError(
+            f"p must be a probability within [0, 1], found {p_arr[row].item()!r} at row {row}"
+        )
+    return y_arr.astype(np.int64), p_arr
+
+
+def _require_both_classes(y: np.ndarray, what: str) -> None:
+    events = int(y.sum())
+    if events == 0 or events == y.shape[0]:
+        only = "1" if events else "0"
+        raise OddsmithError(f"{what} is undefined: every outcome is {only} ({y.shape[0]} rows)")
+
+
+def _logit(p: np.ndarray) -> np.ndarray:
+    clipped = np.clip(p, _EPS, 1.0 - _EPS)
+    return np.log(clipped) - np.log1p(-clipped)
+
+
+# ---------------------------------------------------------------------------------------------
+# discrimination and accuracy
+
+
+def auc(y, p) -> float:
+    """Area under the ROC curve (ties between a positive and a negative count one half).
+
+    Examples
+    --------
+    >>> auc([0, 0, 1, 1], [0.1, 0.4, 0.35, 0.8])
+    0.75
+    """
+    y, p = _validated(y, p)
+    _require_both_classes(y, "AUC")
+    return float(skm.roc_auc_score(y, p))
+
+
+def gini(y, p) -> float:
+    """Gini coefficient (accuracy ratio), ``2 * AUC - 1``."""
+    return 2.0 * auc(y, p) - 1.0
+
+
+def ks(y, p) -> float:
+    """Kolmogorov–Smirnov statistic, the largest ``TPR - FPR`` over all cut-offs.
+
+    Cut-offs include "flag none", so the value is never below 0. When the score ranks
+    positives above negatives it equals the two-sample KS distance between the score
+    distributions of the two classes.
+    """
+    y, p = _validated(y, p)
+    _require_both_classes(y, "KS")
+    fpr, tpr, _ = skm.roc_curve(y, p, drop_intermediate=False)
+    return float(np.max(tpr - fpr))
+
+
+def log_loss(y, p) -> float:
+    """Mean negative log-likelihood of the outcomes under ``p`` (natural log)."""
+    y, p = _validated(y, p)
+    return float(skm.log_loss(y, np.clip(p, _EPS, 1.0 - _EPS), labels=[0, 1]))
+
+
+def brier(y, p) -> float:
+    """Brier score, the mean of ``(p - y) ** 2``."""
+    y, p = _validated(y, p)
+    return float(skm.brier_score_loss(y, p, labels=[0, 1]))
+
+
+# ---------------------------------------------------------------------------------------------
+# calibration
+
+
+def _glm_binomial(y: np.ndarray, exog: np.ndarray, offset: np.ndarray | None):
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", PerfectSeparationWarning)
+        try:
+            model = sm.GLM(y, exog, family=sm.families.Binomial(), offset=offset)
+            return model.fit()
+        except PerfectSeparationWarning as exc:
+            raise OddsmithError(f"calibration fit failed: perfect separation ({exc})") from exc
+        except np.linalg.LinAlgError as exc:
+            raise OddsmithError(f"calibration fit failed: {exc}") from exc
+
+
+def calibration_intercept_slope(y, p) -> dict:
+    """Logistic recalibration intercept and slope.
+
+    With ``lp = logit(p)`` (``p`` clipped to ``[1e-15, 1 - 1e-15]``):
+
+    * ``slope`` is the coefficient of ``lp`` in the logistic regression ``logit P(y=1) = a + b·lp``
+      (1 is ideal; below 1 means predictions are too extreme);
+    * ``intercept`` is calibration-in-the-large: the constant ``a`` of the logistic regression
+      ``logit P(y=1) = a + lp`` with ``lp`` as an offset, slope fixed at 1 (0 is ideal; above 0
+      means risk is under-predicted on average).
+
+    Returns
+    -------
+    dict
+        ``intercept``, ``slope``.
+
+    Raises
+    ------
+    OddsmithError
+        If ``y`` has a single class, ``p`` has a single distinct value, or the fit separates.
+    """
+    y, p = _validated(y, p)
+    _require_both_classes(y, "calibration")
+    lp = _logit(p)
+    if np.ptp(lp) == 0.0:
+        raise OddsmithError(
+            f"calibration slope is undefined: every prediction equals {float(p[0])!r}"
+        )
+    ones = np.ones((y.shape[0], 1))
+    slope_fit = _glm_binomial(y, np.column_stack([ones, lp]), None)
+    intercept_fit = _glm_binomial(y, ones, lp)
+    return {"intercept": float(intercept_fit.params[0]), "slope": float(slope_fit.params[1])}
+
+
+def _tie_aware_boundaries(p_sorted: np.ndarray, groups: int) -> np.ndarray:
+    """Boundaries ``[0, c_1, ..., n]`` of at most ``groups`` equal-count groups of sorted ``p``.
+
+    Cut ``k`` starts at ``floor(n * k / groups)``; if the values just before and at the cut
+    are equal, the cut moves up past the whole run of that value, so a tied value never
+    straddles two groups. Cuts that coincide or fall at 0 or ``n`` are dropped.
+    """
+    n = p_sorted.shape[0]
+    starts = np.array([n * k // groups for k in range(1, groups)], dtype=np.int64)
+    starts = starts[starts > 0]
+    # searchsorted(side="right") on the value just before the cut gives the end of its run
+    moved = np.searchsorted(p_sorted, p_sorted[starts - 1], side="right")
+    cuts = np.unique(moved[moved < n])
+    return np.concatenate([[0], cuts, [n]])
+
+
+def _check_group_count(value: int, name: str) -> None:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
+        raise OddsmithError(f"{name} must be a positive integer, got {value!r}")
+
+
+def hosmer_lemeshow(y, p, *, groups: int = 10) -> dict:
+    """Hosmer–Lemeshow goodness-of-fit test on groups of fitted risk.
+
+    Grouping: rows are sorted by ``p`` (stable sort); cut ``k`` (``k = 1 .. groups - 1``) is
+    placed before sorted position ``floor(n·k/groups)``; if that position holds the same ``p``
+    as the one before it, the cut moves up to the first position with a larger ``p``, so tied
+    predictions always share a group. Cuts that then coincide or reach ``n`` are dropped, so
+    there may be fewer than ``groups`` groups.
+
+    With ``g`` groups, ``O`` observed events, ``E`` the sum of ``p`` and ``n`` rows per group,
+    ``C = Σ (O − E)² / (E·(1 − E/n))`` is compared to a chi-squared with ``g − 2`` degrees of
+    freedom. ``p`` is clipped to ``[1e-15, 1 - 1e-15]`` so the denominator is never 0.
+
+    Returns
+    -------
+    dict
+        ``statistic``, ``df``, ``p_value`` (None when fewer than 3 groups remain), ``groups``:
+        a list of ``{n, observed, expected, mean_p, p_min, p_max}``.
+    """
+    y, p = _validated(y, p)
+    _check_group_count(groups, "groups")
+    order = np.argsort(p, kind="stable")
+    p_raw, y_sorted = p[order], y[order]
+    p_sorted = np.clip(p_raw, _EPS, 1.0 - _EPS)
+    bounds = _tie_aware_boundaries(p_raw, groups)
+    n_g = np.diff(bounds)
+    observed = np.add.reduceat(y_sorted, bounds[:-1])
+    expected = np.add.reduceat(p_sorted, bounds[:-1])
+    statistic = float(np.sum((observed - expected) ** 2 / (expected * (1.0 - expected / n_g))))
+    df = int(n_g.shape[0] - 2)
+    p_value = float(stats.chi2.sf(statistic, df)) if df >= 1 else None
+    table = [
+        {
+            "n": int(n_g[i]),
+            "observed": int(observed[i]),
+            "expected": float(expected[i]),
+            "mean_p": float(expected[i] / n_g[i]),
+            "p_min": float(p_raw[bounds[i]]),
+            "p_max": float(p_raw[bounds[i + 1] - 1]),
+        }
+        for i in range(n_g.shape[0])
+    ]
+    return {"statistic": statistic, "df": df, "p_value": p_value, "groups": table}
+
+
+def reliability_bins(y, p, *, bins: int = 10) -> list[dict]:
+    """Observed event rate against mean prediction in equal-count bins of ``p``.
+
+    Bins follow the same tie-aware rule as :func:`hosmer_lemeshow` (tied predictions share a
+    bin, so there may be fewer bins than asked). ``lower`` and ``upper`` are the smallest and
+    largest prediction in the bin. ``ci_low``/``ci_high`` are the Wilson score 95% interval of
+    the observed rate.
+
+    Returns
+    -------
+    list of dict
+        ``lower``, ``upper``, ``n``, ``events``, ``mean_predicted``, ``observed_rate``,
+        ``ci_low``, ``ci_high``, in increasing order of ``p``.
+    """
+    y, p = _validated(y, p)
+    _check_group_count(bins, "bins")
+    order = np.argsort(p, kind="stable")
+    p_sorted, y_sorted = p[order], y[order]
+    bounds = _tie_aware_boundaries(p_sorted, bins)
+    rows = []
+    for start, stop in zip(bounds[:-1], bounds[1:]):
+        n_bin = int(stop - start)
+        events = int(y_sorted[start:stop].sum())
+        ci_low, ci_high = proportion_confint(events, n_bin, alpha=0.05, method="wilson")
+        rows.append(
+            {
+                "lower": float(p_sorted[start]),
+                "upper": float(p_sorted[stop - 1]),
+                "n": n_bin,
+                "events": events,
+                "mean_predicted": float(p_sorted[start:stop].mean()),
+                "observed_rate": events / n_bin,
+                "ci_low": float(ci_low),
+                "ci_high": float(ci_high),
+            }
+        )
+    return rows
+
+
+# ---------------------------------------------------------------------------------------------
+# DeLong variance and comparison of correlated AUCs
+
+
+def _delong(y: np.ndarray, scores: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """AUCs and their DeLong covariance matrix for score rows ``scores`` (k × n).
+
+    Uses midranks: with ``m`` positives and ``l`` negatives, the structural component of a
+    positive is ``(rank among all − rank among positives) / l`` and of a negative
+    ``1 − (rank among all − rank among negatives) / m``. Sorting dominates: O(k·n log n).
+    """
+    positives, negatives = scores[:, y == 1], scores[:, y == 0]
+    m, l = positives.shape[1], negatives.shape[1]
+    if m < 2 or l < 2:
+        raise OddsmithError(
+            f"DeLong variance needs at least 2 positives and 2 negatives, got {m} and {l}"
+        )
+    rank_pos = stats.rankdata(positives, axis=1)
+    rank_neg = stats.rankdata(negatives, axis=1)
+    rank_all = stats.rankdata(np.hstack([positives, negatives]), axis=1)
+    aucs = (rank_all[:, :m].sum(axis=1) - m * (m + 1) / 2.0) / (m * l)
+    v10 = (rank_all[:, :m] - rank_pos) / l
+    v01 = 1.0 - (rank_all[:, m:] - rank_neg) / m
+    covariance = np.atleast_2d(np.cov(v10)) / m + np.atleast_2d(np.cov(v01)) / l
+    return aucs, covariance
+
+
+def delong_auc_variance(y, p) -> float:
+    """DeLong, DeLong & Clarke-Pearson (1988) variance of the empirical AUC."""
+    y, p = _validated(y, p)
+    _, covariance = _delong(y, p[np.newaxis, :])
+    return float(covariance[0, 0])
+
+
+def auc_confidence_interval(y, p, *, level: float = 0.95) -> dict:
+    """Normal-approximation interval for the AUC using the DeLong standard error.
+
+    The interval is ``AUC ± z·SE`` on the AUC scale (no transformation), clipped to [0, 1].
+
+    Returns
+    -------
+    dict
+        ``auc``, ``se``, ``level``, ``lower``, ``upper``.
+    """
+    if not (isinstance(level, float) and 0.0 < level < 1.0):
+        raise OddsmithError(f"level must be a float strictly between 0 and 1, got {level!r}")
+    y, p = _validated(y, p)
+    aucs, covariance = _delong(y, p[np.newaxis, :])
+    se = math.sqrt(covariance[0, 0])
+    z = float(stats.norm.ppf(0.5 + level / 2.0))
+    value = float(aucs[0])
+    return {
+        "auc": value,
+        "se": se,
+        "level": level,
+        "lower": max(0.0, value - z * se),
+        "upper": min(1.0, value + z * se),
+    }
+
+
+def delong_test(y, p_a, p_b) -> dict:
+    """DeLong test of equal AUC for two scores on the same rows.
+
+    Returns
+    -------
+    dict
+        ``auc_a``, ``auc_b``, ``difference`` (a − b), ``se``, ``z``, ``p_value`` (two-sided)
+        and ``note``. When the difference has zero variance (e.g. identical rankings) ``z``
+        and ``p_value`` are None and ``note`` says why; otherwise ``note`` is None.
+    """
+    y, p_a = _validated(y, p_a)
+    _, p_b = _validated(y, p_b)
+    aucs, covariance = _delong(y, np.vstack([p_a, p_b]))
+    contrast = np.array([1.0, -1.0])
+    variance = float(contrast @ covariance @ contrast)
+    difference = float(aucs[0] - aucs[1])
+    result = {"auc_a": float(aucs[0]), "auc_b": float(aucs[1]), "difference": difference}
+    if variance <= 0.0:
+        note = "the AUC difference has zero variance (the two scores rank rows identically)"
+        return result | {"se": 0.0, "z": None, "p_value": None, "note": note}
+    se = math.sqrt(variance)
+    z = difference / se
+    p_value = float(2.0 * stats.norm.sf(abs(z)))
+    return result | {"se": se, "z": z, "p_value": p_value, "note": None}
+
+
+# ---------------------------------------------------------------------------------------------
+# comparison over resampled folds
+
+
+def corrected_resampled_ttest(differences, *, n_train: int, n_test: int) -> dict:
+    """Corrected resampled t-test of a mean difference over ``k`` train/test splits.
+
+    Nadeau & Bengio (2003): the sample variance of the ``k`` differences is inflated by
+    ``(1/k + n_test/n_train)`` instead of ``1/k`` to allow for overlapping training sets;
+    ``t = mean / sqrt(factor · variance)`` on ``k − 1`` degrees of freedom.
+
+    Returns
+    -------
+    dict
+        ``mean``, ``t``, ``df``, ``p_value`` (two-sided), ``note``. When every difference is
+        equal the variance is 0: ``t`` and ``p_value`` are None and ``note`` says why.
+    """
+    d = np.asarray(differences, dtype=float)
+    if d.ndim != 1 or d.shape[0] < 2:
+        raise OddsmithError(f"differences must be a 1-D sequence of at least 2, got {d.shape}")
+    if not np.all(np.isfinite(d)):
+        raise OddsmithError(f"differences must be finite, found {d[~np.isfinite(d)][0].item()!r}")
+    for name, value in (("n_train", n_train), ("n_test", n_test)):
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
+            raise OddsmithError(f"{name} must be a positive integer, got {value!r}")
+    k = d.shape[0]
+    mean = float(d.mean())
+    variance = float(d.var(ddof=1))
+    if variance == 0.0:
+        note = f"all {k} differences equal {mean!r}; the t statistic is undefined"
+        return {"mean": mean, "t": None, "df": k - 1, "p_value": None, "note": note}
+    t = mean / math.sqrt((1.0 / k + n_test / n_train) * variance)
+    p_value = float(2.0 * stats.t.sf(abs(t), k - 1))
+    return {"mean": mean, "t": t, "df": k - 1, "p_value": p_value, "note": None}
+
+
+# ---------------------------------------------------------------------------------------------
+# summary
+
+
+def _guarded(compute, notes: list[str], label: str):
+    try:
+        return compute()
+    except OddsmithError as exc:
+        notes.append(f"{label}: {exc}")
+        return None
+
+
+def summarise(y, p) -> dict:
+    """All headline measures for one set of predictions, safe on single-class folds.
+
+    Measures that are undefined on these rows (AUC, Gini and KS with one class, calibration
+    when the fit cannot be made) are None, and ``notes`` lists why.
+
+    Returns
+    -------
+    dict
+        ``n``, ``events``, ``auc``, ``gini``, ``ks``, ``log_loss``, ``brier``,
+        ``calibration_intercept``, ``calibration_slope``, ``hl_statistic``, ``hl_p_value``,
+        ``notes``.
+    """
+    y, p = _validated(y, p)
+    notes: list[str] = []
+    auc_value = _guarded(lambda: auc(y, p), notes, "auc")
+    ks_value = _guarded(lambda: ks(y, p), notes, "ks") if auc_value is not None else None
+    calibration = _guarded(lambda: calibration_intercept_slope(y, p), notes, "calibration")
+    hl = hosmer_lemeshow(y, p)
+    if hl["p_value"] is None:
+        notes.append(f"hosmer_lemeshow: only {hl['df'] + 2} groups of distinct risk; no p-value")
+    return {
+        "n": int(y.shape[0]),
+        "events": int(y.sum()),
+        "auc": auc_value,
+        "gini": None if auc_value is None else 2.0 * auc_value - 1.0,
+        "ks": ks_value,
+        "log_loss": log_loss(y, p),
+        "brier": brier(y, p),
+        "calibration_intercept": None if calibration is None else calibration["intercept"],
+        "calibration_slope": None if calibration is None else calibration["slope"],
+        "hl_statistic": hl["statistic"],
+        "hl_p_value": hl["p_value"],
+        "notes": notes,
+    }

@@ -1,0 +1,349 @@
+"""Tests for oddsmith.metrics: outside references, slow reference implementations, toy cases."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+import statsmodels.api as sm
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from scipy import stats
+from sklearn import metrics as skm
+from statsmodels.stats.nonparametric import rank_compare_2indep
+
+from oddsmith import metrics
+from oddsmith.errors import OddsmithError
+
+
+def _sample(seed: int, n: int = 400, *, decimals: int | None = 2):
+    """Outcomes drawn from a logistic model; rounded predictions create many ties."""
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=n)
+    p = 1.0 / (1.0 + np.exp(-(0.3 + 1.2 * x)))
+    y = (rng.random(n) < p).astype(int)
+    return y, (np.round(p, decimals) if decimals is not None else p)
+
+
+# ------------------------------------------------------------------ slow reference implementations
+
+
+def _slow_auc(y, p):
+    """Count every positive–negative pair; a tie counts one half."""
+    pos = [s for s, t in zip(p, y) if t == 1]
+    neg = [s for s, t in zip(p, y) if t == 0]
+    wins = 0.0
+    for a in pos:
+        for b in neg:
+            wins += 1.0 if a > b else 0.5 if a == b else 0.0
+    return wins / (len(pos) * len(neg))
+
+
+def _slow_hosmer_lemeshow(y, p, groups):
+    """Hosmer–Lemeshow written from the definition with plain loops (see REFERENCES.md)."""
+    rows = sorted(zip(p, y), key=lambda r: r[0])
+    n = len(rows)
+    cuts = []
+    for k in range(1, groups):
+        c = n * k // groups
+        while 0 < c < n and rows[c - 1][0] == rows[c][0]:
+            c += 1
+        if 0 < c < n and c not in cuts:
+            cuts.append(c)
+    edges = [0] + sorted(cuts) + [n]
+    statistic, sizes = 0.0, []
+    for lo, hi in zip(edges[:-1], edges[1:]):
+        size = hi - lo
+        observed = sum(r[1] for r in rows[lo:hi])
+        expected = sum(min(max(r[0], 1e-15), 1 - 1e-15) for r in rows[lo:hi])
+        statistic += (observed - expected) ** 2 / (expected * (1 - expected / size))
+        sizes.append(size)
+    return statistic, len(sizes) - 2, sizes
+
+
+# ------------------------------------------------------------------ discrimination and accuracy
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_auc_log_loss_brier_match_sklearn(seed):
+    # scikit-learn as the reference library (REFERENCES.md)
+    y, p = _sample(seed)
+    assert metrics.auc(y, p) == pytest.approx(skm.roc_auc_score(y, p), abs=1e-12)
+    assert metrics.log_loss(y, p) == pytest.approx(skm.log_loss(y, p), rel=1e-12)
+    assert metrics.brier(y, p) == pytest.approx(skm.brier_score_loss(y, p), rel=1e-12)
+
+
+@pytest.mark.parametrize("seed", [3, 4])
+def test_auc_matches_slow_pair_count(seed):
+    y, p = _sample(seed, n=250, decimals=1)
+    assert metrics.auc(y, p) == pytest.approx(_slow_auc(y, p), abs=1e-12)
+
+
+def test_auc_toy_case_by_hand():
+    # pairs (pos, neg): (0.35>0.1) (0.35<0.4) (0.8>0.1) (0.8>0.4) -> 3 of 4; a tie adds one half
+    assert metrics.auc([0, 0, 1, 1], [0.1, 0.4, 0.35, 0.8]) == 0.75
+    assert metrics.auc([0, 0, 1, 1], [0.1, 0.4, 0.4, 0.8]) == 0.875
+
+
+@pytest.mark.parametrize("seed", [5, 6])
+def test_gini_matches_somers_d(seed):
+    # Engelmann, Hayden & Tasche (2003): accuracy ratio = Somers' D; scipy.stats.somersd
+    y, p = _sample(seed)
+    assert metrics.gini(y, p) == pytest.approx(stats.somersd(y, p).statistic, abs=1e-10)
+
+
+@pytest.mark.parametrize("seed", [7, 8])
+def test_ks_matches_two_sample_ks(seed):
+    # common practice in credit scoring: KS = two-sample KS distance of the class score
+    # distributions; scipy.stats.ks_2samp as the reference (the score ranks positives higher)
+    y, p = _sample(seed)
+    expected = stats.ks_2samp(p[y == 1], p[y == 0]).statistic
+    assert metrics.ks(y, p) == pytest.approx(expected, abs=1e-12)
+
+
+def test_ks_toy_case_by_hand():
+    # negatives 0.1, 0.2, 0.8; positives 0.7, 0.9. Cut p >= 0.7 flags both positives and one
+    # negative (TPR 1, FPR 1/3); every other cut does worse
+    y = [0, 0, 0, 1, 1]
+    p = [0.1, 0.2, 0.8, 0.7, 0.9]
+    assert metrics.ks(y, p) == pytest.approx(2.0 / 3.0, abs=1e-15)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    st.lists(st.tuples(st.integers(0, 1), st.integers(0, 20)), min_size=2, max_size=40).filter(
+        lambda rows: 0 < sum(r[0] for r in rows) < len(rows)
+    )
+)
+def test_auc_swapping_the_classes_mirrors_it(rows):
+    y = np.array([r[0] for r in rows])
+    p = np.array([r[1] for r in rows]) / 20.0
+    assert metrics.auc(y, p) == pytest.approx(1.0 - metrics.auc(1 - y, p), abs=1e-12)
+    assert metrics.auc(y, p) == pytest.approx(metrics.auc(1 - y, 1.0 - p), abs=1e-12)
+
+
+# ------------------------------------------------------------------ calibration
+
+
+def test_calibration_of_a_recalibrated_score_is_ideal():
+    # if p is exactly the logistic refit of y on logit(q), refitting p gives slope 1, intercept 0
+    y, q = _sample(9, n=600, decimals=None)
+    lq = np.log(q / (1 - q))
+    fit = sm.GLM(y, sm.add_constant(lq), family=sm.families.Binomial()).fit()
+    p = fit.predict(sm.add_constant(lq))
+    result = metrics.calibration_intercept_slope(y, p)
+    assert result["slope"] == pytest.approx(1.0, abs=1e-6)
+    assert result["intercept"] == pytest.approx(0.0, abs=1e-6)
+
+
+def test_calibration_detects_over_and_under_prediction():
+    y, p = _sample(10, n=2000, decimals=None)
+    lp = np.log(p / (1 - p))
+    too_extreme = 1.0 / (1.0 + np.exp(-2.0 * lp))
+    too_low = 1.0 / (1.0 + np.exp(-(lp - 1.0)))
+    assert metrics.calibration_intercept_slope(y, too_extreme)["slope"] < 0.7
+    # predictions shifted down by 1 on the logit scale: calibration-in-the-large near +1
+    assert metrics.calibration_intercept_slope(y, too_low)["intercept"] > 0.7
+
+
+def test_calibration_fits_solve_their_score_equations():
+    # the MLE of a logistic model with a constant satisfies Σ expit(fitted) = Σ y; with the
+    # slope free it also satisfies Σ lp·expit(fitted) = Σ lp·y
+    y, p = _sample(20, n=500, decimals=None)
+    lp = np.log(p / (1 - p))
+    result = metrics.calibration_intercept_slope(y, p)
+    in_the_large = 1.0 / (1.0 + np.exp(-(result["intercept"] + lp)))
+    assert in_the_large.sum() == pytest.approx(y.sum(), rel=1e-8)
+    fit = sm.GLM(y, sm.add_constant(lp), family=sm.families.Binomial()).fit()
+    assert result["slope"] == pytest.approx(fit.params[1], rel=1e-10)
+    fitted = fit.predict(sm.add_constant(lp))
+    assert np.dot(lp, fitted) == pytest.approx(np.dot(lp, y), rel=1e-8)
+
+
+def test_calibration_refuses_constant_predictions_and_single_class():
+    y = np.array([1, 0, 0, 0, 1, 0, 0, 0, 0, 1])
+    with pytest.raises(OddsmithError, match="every prediction equals 0.2"):
+        metrics.calibration_intercept_slope(y, np.full(10, 0.2))
+    with pytest.raises(OddsmithError, match="every outcome is 0"):
+        metrics.calibration_intercept_slope(np.zeros(10, dtype=int), np.linspace(0.1, 0.9, 10))
+
+
+# ------------------------------------------------------------------ Hosmer–Lemeshow and bins
+
+
+@pytest.mark.parametrize("seed, decimals", [(11, 1), (12, 2), (13, None)])
+def test_hosmer_lemeshow_matches_slow_reference(seed, decimals):
+    y, p = _sample(seed, n=500, decimals=decimals)
+    statistic, df, sizes = _slow_hosmer_lemeshow(list(y), list(p), 10)
+    result = metrics.hosmer_lemeshow(y, p)
+    assert result["statistic"] == pytest.approx(statistic, rel=1e-10)
+    assert result["df"] == df
+    assert [g["n"] for g in result["groups"]] == sizes
+    assert result["p_value"] == pytest.approx(stats.chi2.sf(statistic, df), rel=1e-10)
+
+
+def test_hosmer_lemeshow_keeps_ties_together_and_reduces_df():
+    # five distinct values, 20 rows each: cuts at multiples of 10 fall inside runs and move up
+    p = np.repeat([0.1, 0.3, 0.5, 0.7, 0.9], 20)
+    y = np.zeros(100, dtype=int)
+    y[[0, 1, 20, 21, 22, 23, 24, 40, 41, 42, 43, 44, 45, 46, 47, 48, 49, 50]] = 1
+    result = metrics.hosmer_lemeshow(y, p)
+    assert [g["n"] for g in result["groups"]] == [20, 20, 20, 20, 20]
+    assert result["df"] == 3
+    for group in result["groups"]:
+        assert group["p_min"] == group["p_max"]
+    # by hand: O = 2, 5, 11, 0, 0; E = 2, 6, 10, 14, 18; n = 20
+    by_hand = (
+        0.0
+        + (5 - 6) ** 2 / (6 * (1 - 6 / 20))
+        + (11 - 10) ** 2 / (10 * (1 - 10 / 20))
+        + 14**2 / (14 * (1 - 14 / 20))
+        + 18**2 / (18 * (1 - 18 / 20))
+    )
+    assert result["statistic"] == pytest.approx(by_hand, rel=1e-12)
+
+
+def test_hosmer_lemeshow_with_two_distinct_values_has_no_p_value():
+    y = np.array([0, 1, 0, 1, 1, 0])
+    p = np.array([0.2, 0.2, 0.2, 0.7, 0.7, 0.7])
+    result = metrics.hosmer_lemeshow(y, p)
+    assert result["df"] == 0
+    assert result["p_value"] is None
+
+
+def test_reliability_bins_wilson_interval_and_counts():
+    y, p = _sample(14, n=300, decimals=2)
+    rows = metrics.reliability_bins(y, p, bins=5)
+    assert sum(r["n"] for r in rows) == 300
+    assert sum(r["events"] for r in rows) == int(y.sum())
+    for left, right in zip(rows[:-1], rows[1:]):
+        assert left["upper"] < right["lower"]  # ties never split across bins
+    z = stats.norm.ppf(0.975)
+    for r in rows:
+        # Wilson score interval written out (Wilson 1927)
+        n, phat = r["n"], r["observed_rate"]
+        centre = (phat + z * z / (2 * n)) / (1 + z * z / n)
+        half = z / (1 + z * z / n) * math.sqrt(phat * (1 - phat) / n + z * z / (4 * n * n))
+        assert r["ci_low"] == pytest.approx(centre - half, abs=1e-12)
+        assert r["ci_high"] == pytest.approx(centre + half, abs=1e-12)
+        assert r["lower"] <= r["mean_predicted"] <= r["upper"]
+
+
+# ------------------------------------------------------------------ DeLong
+
+
+@pytest.mark.parametrize("seed, decimals", [(15, 2), (16, None)])
+def test_delong_variance_matches_statsmodels(seed, decimals):
+    # DeLong, DeLong & Clarke-Pearson (1988) via statsmodels rank_compare_2indep; its prob1
+    # is P(neg > pos) + ties/2 = 1 - AUC, whose variance equals that of the AUC
+    y, p = _sample(seed, n=400, decimals=decimals)
+    reference = rank_compare_2indep(p[y == 0], p[y == 1])
+    assert reference.prob1 == pytest.approx(1.0 - metrics.auc(y, p), abs=1e-12)
+    assert metrics.delong_auc_variance(y, p) == pytest.approx(reference.var_prob, rel=1e-10)
+
+
+def test_delong_variance_toy_case_by_hand():
+    # positives 0.8, 0.35; negatives 0.4, 0.1. Components: V10 = (1, 0.5), V01 = (0.5, 1)
+    # var = s²(V10)/2 + s²(V01)/2 = 0.125/2 + 0.125/2
+    assert metrics.delong_auc_variance([0, 0, 1, 1], [0.1, 0.4, 0.35, 0.8]) == pytest.approx(
+        0.125, abs=1e-15
+    )
+
+
+def test_delong_test_of_a_score_with_itself_plus_noise():
+    y, p = _sample(17, n=400, decimals=None)
+    rng = np.random.default_rng(170)
+    noisy = np.clip(p + rng.normal(scale=0.25, size=p.shape), 0, 1)
+    result = metrics.delong_test(y, p, noisy)
+    assert result["auc_a"] == pytest.approx(metrics.auc(y, p), abs=1e-12)
+    assert result["auc_b"] == pytest.approx(metrics.auc(y, noisy), abs=1e-12)
+    assert result["difference"] > 0
+    # var(a - b) = var(a) + var(b) - 2 cov(a, b) <= (se_a + se_b)²
+    se_a = math.sqrt(metrics.delong_auc_variance(y, p))
+    se_b = math.sqrt(metrics.delong_auc_variance(y, noisy))
+    assert 0 < result["se"] <= se_a + se_b
+    assert result["z"] == pytest.approx(result["difference"] / result["se"], rel=1e-12)
+    assert result["p_value"] == pytest.approx(2 * stats.norm.sf(abs(result["z"])), rel=1e-12)
+    identical = metrics.delong_test(y, p, p)
+    assert identical["z"] is None and identical["p_value"] is None
+    assert "zero variance" in identical["note"]
+
+
+def test_auc_confidence_interval_is_clipped_and_uses_delong_se():
+    y, p = _sample(18, n=300, decimals=None)
+    ci = metrics.auc_confidence_interval(y, p, level=0.9)
+    se = math.sqrt(metrics.delong_auc_variance(y, p))
+    assert ci["se"] == pytest.approx(se, rel=1e-12)
+    assert ci["lower"] == pytest.approx(ci["auc"] - stats.norm.ppf(0.95) * se, rel=1e-12)
+    near_perfect = metrics.auc_confidence_interval(
+        [0, 0, 0, 1, 1, 1], [0.1, 0.2, 0.6, 0.5, 0.8, 0.9]
+    )
+    assert near_perfect["upper"] == 1.0
+    with pytest.raises(OddsmithError, match="level must be .* got 95"):
+        metrics.auc_confidence_interval(y, p, level=95)
+
+
+# ------------------------------------------------------------------ corrected resampled t-test
+
+
+def test_corrected_resampled_ttest_against_plain_t_test():
+    # Nadeau & Bengio (2003): corrected t = plain t · sqrt((1/k) / (1/k + n_test/n_train))
+    d = np.array([0.012, 0.004, 0.009, -0.002, 0.015, 0.007, 0.003, 0.011, 0.006, 0.008])
+    plain = stats.ttest_1samp(d, 0.0)
+    result = metrics.corrected_resampled_ttest(d, n_train=900, n_test=100)
+    factor = math.sqrt(0.1 / (0.1 + 100 / 900))
+    assert result["t"] == pytest.approx(plain.statistic * factor, rel=1e-12)
+    assert result["df"] == 9
+    assert result["p_value"] == pytest.approx(2 * stats.t.sf(abs(result["t"]), 9), rel=1e-12)
+    assert result["p_value"] > plain.pvalue  # the correction can only widen
+
+
+def test_corrected_resampled_ttest_toy_case_by_hand():
+    # d = (1, 2, 3): mean 2, s² = 1, k = 3, factor 1/3 + 1/2 = 5/6 -> t = 2 / sqrt(5/6)
+    result = metrics.corrected_resampled_ttest([1.0, 2.0, 3.0], n_train=2, n_test=1)
+    assert result["t"] == pytest.approx(2.0 / math.sqrt(5.0 / 6.0), rel=1e-14)
+    flat = metrics.corrected_resampled_ttest([0.0, 0.0], n_train=2, n_test=1)
+    assert flat["t"] is None and "undefined" in flat["note"]
+    with pytest.raises(OddsmithError, match="n_test must be a positive integer, got 0"):
+        metrics.corrected_resampled_ttest([1.0, 2.0], n_train=2, n_test=0)
+
+
+# ------------------------------------------------------------------ summary and bad input
+
+
+def test_summarise_is_json_ready_and_consistent():
+    y, p = _sample(19)
+    summary = metrics.summarise(y, p)
+    json.dumps(summary, allow_nan=False)
+    assert summary["n"] == 400 and summary["events"] == int(y.sum())
+    assert summary["auc"] == pytest.approx(skm.roc_auc_score(y, p), abs=1e-12)
+    assert summary["gini"] == pytest.approx(2 * summary["auc"] - 1, abs=1e-15)
+    assert summary["hl_statistic"] == metrics.hosmer_lemeshow(y, p)["statistic"]
+    assert summary["notes"] == []
+    for key, value in summary.items():
+        assert type(value) in (int, float, list), key
+
+
+def test_summarise_single_class_fold_gives_none_with_notes():
+    summary = metrics.summarise(np.zeros(6, dtype=int), [0.1, 0.2, 0.2, 0.3, 0.4, 0.5])
+    json.dumps(summary, allow_nan=False)
+    for key in ("auc", "gini", "ks", "calibration_intercept", "calibration_slope"):
+        assert summary[key] is None
+    assert summary["brier"] == pytest.approx(np.mean(np.square([0.1, 0.2, 0.2, 0.3, 0.4, 0.5])))
+    assert any("every outcome is 0" in note for note in summary["notes"])
+
+
+@pytest.mark.parametrize(
+    "y, p, message",
+    [
+        ([0, 1, 2], [0.1, 0.2, 0.3], "y must contain only 0 and 1, found 2 at row 2"),
+        ([0, 1, 1], [0.1, 1.3, 0.3], "found 1.3 at row 1"),
+        ([0, 1, 1], [0.1, float("nan"), 0.3], "found nan at row 1"),
+        ([0, 1], [0.1, 0.2, 0.3], "same length, got 2 and 3"),
+    ],
+)
+def test_bad_input_names_the_value(y, p, message):
+    with pytest.raises(OddsmithError, match=message):
+        metrics.brier(y, p)
