@@ -1,0 +1,43 @@
+# oddsmith — the two commands a newcomer needs are `make demo` and `make test`.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+CORES ?= 2
+SNAKEMAKE := $(BIN)/snakemake --cores $(CORES) --printshellcmds
+
+.PHONY: demo test setup check-system lint lock clean
+
+## demo: set up, then build the whole demo analysis (ends in results/lease_demo/card/model_card.pdf)
+demo: setup
+	$(SNAKEMAKE)
+	@echo "Model card: results/lease_demo/card/model_card.pdf"
+
+## test: set up, then run the test suite
+test: setup
+	$(BIN)/pytest -q
+
+## setup: project-local virtual environment installed from the hashed lock file
+setup: check-system $(VENV)/.installed
+
+check-system:
+	@$(PYTHON) oddsmith/system.py
+
+$(VENV)/.installed: requirements.lock pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --require-hashes --no-deps -r requirements.lock
+	$(BIN)/python -m pip install --quiet --no-deps --no-build-isolation -e .
+	@touch $@
+
+## lint: Snakemake's linter and snakefmt
+lint: setup
+	$(BIN)/snakemake --lint
+	$(BIN)/snakefmt --check Snakefile rules/
+
+## lock: re-resolve requirements.in into requirements.lock (needs network)
+lock:
+	$(PYTHON) -m venv /tmp/oddsmith-lock && /tmp/oddsmith-lock/bin/pip install --quiet uv==0.13.8
+	/tmp/oddsmith-lock/bin/uv pip compile --generate-hashes --python-version 3.11 \
+	  --python-platform x86_64-manylinux_2_28 requirements.in -o requirements.lock
+
+clean:
+	rm -rf results logs benchmarks .snakemake

@@ -1,0 +1,57 @@
+"""The ``oddsmith`` command line: draft a project, verify and compare results, score."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from oddsmith.errors import OddsmithError
+
+DESCRIPTION = """\
+oddsmith builds and checks yes/no prediction models reproducibly.
+The analysis itself runs with Snakemake (`make demo`, or `snakemake --cores 2`);
+these commands help around it."""
+
+
+def _cmd_init(args) -> int:
+    from oddsmith.init import draft
+
+    contract, config = draft(args.data, contract_out=args.contract, config_out=args.config, run=args.run)
+    print(f"drafted {contract} and {config}; review both (marked DRAFT), then run:\n"
+          f"  snakemake --cores 2 --configfile {config}")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="oddsmith", description=DESCRIPTION,
+                                     formatter_class=argparse.RawDescriptionHelpFormatter)
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    p = sub.add_parser("init", help="draft a data contract and a config for a new CSV file")
+    p.add_argument("data", help="the CSV file to describe")
+    p.add_argument("--contract", default="schemas/contracts/draft.yaml", help="where to write the draft contract (default: %(default)s)")
+    p.add_argument("--config", default="config/draft.yaml", help="where to write the draft config (default: %(default)s)")
+    p.add_argument("--run", help="run name (default: the file's stem)")
+    p.set_defaults(func=_cmd_init)
+    for register in _REGISTRARS:
+        register(sub)
+    return parser
+
+
+_REGISTRARS: list = []
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return 2
+    try:
+        return args.func(args)
+    except OddsmithError as exc:
+        print(f"oddsmith {args.command}: {exc}", file=sys.stderr)
+        return 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

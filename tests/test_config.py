@@ -1,0 +1,92 @@
+"""Configuration checks: schema violations and cross-key rules are all reported at once."""
+
+import pytest
+
+from oddsmith.config import check_config, read_config_file
+from oddsmith.errors import ConfigError
+
+
+def _problems(cfg, tmp_path=None, **kw):
+    with pytest.raises(ConfigError) as err:
+        check_config(cfg, project_dir=kw.get("project_dir", "."))
+    return str(err.value)
+
+
+def test_demo_config_is_valid_and_defaults_are_filled(demo_config, root):
+    cfg = check_config(demo_config, project_dir=root)
+    assert cfg["cross_validation"]["folds"] == 5
+    assert cfg["fairness"]["min_group_size"] == 100
+    assert cfg["candidates"][-1]["kind"] == "baseline"
+    assert demo_config != cfg  # the input is not modified in place
+
+
+def test_unknown_key_is_rejected_with_allowed_keys(demo_config, root):
+    demo_config["split"]["shuffle"] = True
+    msg = _problems(demo_config, project_dir=root)
+    assert "'shuffle' was unexpected" in msg and "allowed keys here" in msg and "split" in msg
+
+
+def test_wrong_type_names_key_and_value(demo_config, root):
+    demo_config["cross_validation"]["folds"] = "five"
+    msg = _problems(demo_config, project_dir=root)
+    assert "cross_validation.folds" in msg and "'five'" in msg
+
+
+def test_missing_required_key(demo_config, root):
+    del demo_config["data"]["target"]
+    assert "'target' is a required property" in _problems(demo_config, project_dir=root)
+
+
+def test_several_problems_reported_together(demo_config, root):
+    demo_config["features"].append({"name": "credit_score", "type": "numeric"})
+    demo_config["features"].append({"name": "serious_delinquency", "type": "numeric"})
+    demo_config["features"].append({"name": "owner_age_band", "type": "categorical"})
+    msg = _problems(demo_config, project_dir=root)
+    assert "'credit_score' is listed 2 times" in msg
+    assert "'serious_delinquency' is the target" in msg
+    assert "'owner_age_band' is a sensitive attribute" in msg and "use_sensitive_as_features" in msg
+
+
+def test_sensitive_feature_allowed_with_explicit_opt_in(demo_config, root):
+    demo_config["features"].append({"name": "owner_age_band", "type": "categorical"})
+    demo_config["fairness"]["use_sensitive_as_features"] = True
+    check_config(demo_config, project_dir=root)
+
+
+def test_data_path_outside_project_refused_unless_allowed(demo_config, root):
+    demo_config["data"]["path"] = "../../elsewhere/data.csv"
+    msg = _problems(demo_config, project_dir=root)
+    assert "outside the project folder" in msg and "allow_outside_project" in msg
+    demo_config["data"]["allow_outside_project"] = True
+    check_config(demo_config, project_dir=root)
+
+
+@pytest.mark.parametrize("costs, fragment", [
+    ({"false_positive": 0, "false_negative": 5}, "costs.false_positive"),
+    ({"false_positive": 1, "false_negative": -3}, "costs.false_negative"),
+    ({"ratio_fn_to_fp": 0}, "costs.ratio_fn_to_fp"),
+    ({"ratio_fn_to_fp": float("inf")}, "costs.ratio_fn_to_fp"),
+    ({"false_positive": 1}, "give both"),
+])
+def test_bad_costs(demo_config, root, costs, fragment):
+    demo_config["costs"] = costs
+    assert fragment in _problems(demo_config, project_dir=root)
+
+
+def test_interaction_with_unknown_feature(demo_config, root):
+    demo_config["interactions"] = [["credit_score", "shoe_size"]]
+    assert "'shoe_size' is not a declared feature" in _problems(demo_config, project_dir=root)
+
+
+def test_split_fraction_outside_unit_interval(demo_config, root):
+    demo_config["split"] = {"method": "stratified", "test_fraction": 1.5}
+    assert "split.test_fraction" in _problems(demo_config, project_dir=root)
+
+
+def test_read_config_file_errors(tmp_path):
+    with pytest.raises(ConfigError, match="not found"):
+        read_config_file(tmp_path / "nope.yaml")
+    bad = tmp_path / "bad.yaml"
+    bad.write_text("run: [unclosed\n")
+    with pytest.raises(ConfigError, match="not valid YAML"):
+        read_config_file(bad)

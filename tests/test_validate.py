@@ -1,0 +1,184 @@
+"""The validate stage: good data gives a typed snapshot; bad data gives one complete list of
+problems, a non-zero exit, no snapshot, and an untouched input file."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from oddsmith.config import check_config
+from oddsmith.errors import ContractError
+from oddsmith.io import sha256_file
+from oddsmith.validate import run_validate
+
+from conftest import ROOT, run_snakemake
+
+CONTRACT = ROOT / "schemas" / "contracts" / "lease_applications.yaml"
+DEMO = ROOT / "data_demo" / "lease_applications.csv"
+
+
+@pytest.fixture()
+def cfg(demo_config):
+    return check_config(demo_config, project_dir=ROOT)
+
+
+def _run(cfg, data: Path, out: Path, contract=CONTRACT):
+    return run_validate(config=cfg, data_path=str(data), contract_path=str(contract),
+                        out_data=str(out / "data.parquet"), out_report=str(out / "report.json"),
+                        out_summary=str(out / "summary.txt"))
+
+
+def _expect_failure(cfg, tmp_path, data: Path, *fragments, contract=CONTRACT):
+    before = sha256_file(data) if data.exists() else None
+    out = tmp_path / "validated"
+    with pytest.raises(ContractError) as err:
+        _run(cfg, data, out, contract=contract)
+    message = str(err.value)
+    for fragment in fragments:
+        assert fragment in message, f"{fragment!r} not in:\n{message}"
+    assert not out.exists() or not any(out.iterdir()), "nothing may be written on failure"
+    if before:
+        assert sha256_file(data) == before, "the raw input must never be modified"
+    return message
+
+
+def _demo_frame(n=400) -> pd.DataFrame:
+    return pd.read_csv(DEMO, dtype=str, keep_default_na=False).head(n)
+
+
+def _write(tmp_path, frame: pd.DataFrame, name="data.csv", **kw) -> Path:
+    path = tmp_path / name
+    frame.to_csv(path, index=False, **kw)
+    return path
+
+
+def test_demo_data_validates(cfg, tmp_path):
+    before = sha256_file(DEMO)
+    report = _run(cfg, DEMO, tmp_path)
+    df = pd.read_parquet(tmp_path / "data.parquet")
+    assert len(df) == 12_000 and df["serious_delinquency"].isin([0, 1]).all()
+    assert report["events_per_parameter"] > 10 and report["duplicate_ids"] == 0
+    assert report["column_profile"]["guarantor_score"]["missing_share"] > 0
+    assert "Peduzzi" in report["epv_source"]
+    assert sha256_file(DEMO) == before
+
+
+def test_missing_file(cfg, tmp_path):
+    _expect_failure(cfg, tmp_path, tmp_path / "absent.csv", "data file not found", "absent.csv")
+
+
+def test_empty_file(cfg, tmp_path):
+    path = tmp_path / "empty.csv"
+    path.write_bytes(b"")
+    _expect_failure(cfg, tmp_path, path, "is empty")
+
+
+def test_header_only(cfg, tmp_path):
+    path = _write(tmp_path, _demo_frame(0))
+    _expect_failure(cfg, tmp_path, path, "header but no data rows")
+
+
+def test_wrong_delimiter(cfg, tmp_path):
+    path = _write(tmp_path, _demo_frame(20), sep=";")
+    _expect_failure(cfg, tmp_path, path, "delimited by ';'")
+
+
+def test_missing_required_column(cfg, tmp_path):
+    path = _write(tmp_path, _demo_frame().drop(columns=["credit_score"]))
+    _expect_failure(cfg, tmp_path, path, "column 'credit_score': required by the contract, not found")
+
+
+def test_extra_column_rejected_or_ignored(cfg, tmp_path):
+    frame = _demo_frame().assign(favourite_colour="blue")
+    path = _write(tmp_path, frame)
+    _expect_failure(cfg, tmp_path, path, "favourite_colour", "extra_columns")
+    cfg["data"]["extra_columns"] = "ignore"
+    report = _run(cfg, path, tmp_path / "ok")
+    assert report["ignored_columns"] == ["favourite_colour"]
+    assert "favourite_colour" not in pd.read_parquet(tmp_path / "ok" / "data.parquet").columns
+
+
+@pytest.mark.parametrize("values, fragment", [
+    ({3: "2"}, "check isin(['0', '1'])"),
+    ({3: "yes"}, "LA-000004='yes'"),
+    ({3: ""}, "column 'serious_delinquency', check not empty"),
+])
+def test_bad_target_values(cfg, tmp_path, values, fragment):
+    frame = _demo_frame()
+    for row, value in values.items():
+        frame.loc[row, "serious_delinquency"] = value
+    _expect_failure(cfg, tmp_path, _write(tmp_path, frame), fragment)
+
+
+def test_only_one_class(cfg, tmp_path):
+    frame = _demo_frame().assign(serious_delinquency="0")
+    _expect_failure(cfg, tmp_path, _write(tmp_path, frame), "only one class present")
+
+
+def test_all_problems_reported_at_once(cfg, tmp_path):
+    frame = _demo_frame()
+    frame.loc[1, "credit_score"] = "high"            # text in a numeric column
+    frame.loc[2, "debt_service_ratio"] = "inf"       # infinite value
+    frame.loc[3, "credit_score"] = "999"             # out of range
+    frame.loc[4, "region"] = "moon"                  # unknown category
+    frame.loc[5, "application_id"] = frame.loc[6, "application_id"]  # duplicate id
+    frame.loc[7, "application_date"] = "31/12/2024"  # unparseable date
+    msg = _expect_failure(
+        cfg, tmp_path, _write(tmp_path, frame),
+        "column 'credit_score', check type: expected a number: 1 row(s) fail, e.g. LA-000002='high'",
+        "column 'debt_service_ratio', check finite (not inf)",
+        "column 'credit_score', check less_than_or_equal_to(850): 1 row(s) fail, e.g. LA-000004=999.0",
+        "column 'region', check isin",
+        "LA-000005='moon'",
+        "column 'application_id', check unique: 2 row(s) fail",
+        "column 'application_date', check type: expected a date YYYY-MM-DD",
+    )
+    assert msg.count("\n  - ") >= 7
+
+
+def test_missing_id(cfg, tmp_path):
+    frame = _demo_frame()
+    frame.loc[8, "application_id"] = ""
+    _expect_failure(cfg, tmp_path, _write(tmp_path, frame), "column 'application_id', check not empty")
+
+
+def test_utf8_bom_is_accepted(cfg, tmp_path):
+    path = tmp_path / "bom.csv"
+    path.write_bytes(b"\xef\xbb\xbf" + _demo_frame().to_csv(index=False).encode())
+    report = _run(cfg, path, tmp_path / "ok")
+    assert report["rows"] == 400
+
+
+def test_latin1_refused_then_accepted_when_declared(cfg, tmp_path):
+    frame = _demo_frame()
+    frame["region"] = frame["region"].str.replace("metro", "métro")
+    path = _write(tmp_path, frame, encoding="latin-1")
+    _expect_failure(cfg, tmp_path, path, "is not valid utf-8: byte 0xe9", "data.encoding")
+    cfg["data"]["encoding"] = "latin-1"
+    _expect_failure(cfg, tmp_path, path, "LA-0000", "'métro'")  # decoded; now an unknown level
+
+
+def test_target_not_in_contract(cfg, tmp_path):
+    cfg["data"]["target"] = "defaulted"
+    _expect_failure(cfg, tmp_path, DEMO, "data.target: column 'defaulted' is not declared in the data contract")
+
+
+def test_workflow_stops_before_any_output_on_bad_data(project):
+    data = project / "data_demo" / "lease_applications.csv"
+    text = data.read_text().replace("LA-000010,", "LA-000009,", 1)
+    data.write_text(text)
+    result = run_snakemake(project, check=False)
+    assert result.returncode != 0
+    assert "check unique" in result.stderr + (project / "logs/lease_demo/validate.log").read_text()
+    assert not (project / "results/lease_demo/validated/data.parquet").exists()
+
+
+def test_workflow_refuses_bad_config(project):
+    cfg = project / "config" / "config.yaml"
+    cfg.write_text(cfg.read_text() + "\nsurprise: 1\n")
+    result = run_snakemake(project, "--dry-run", check=False)
+    assert result.returncode != 0
+    assert "'surprise' was unexpected" in result.stderr + result.stdout
