@@ -1,0 +1,554 @@
+"""Cost-based choice of the cut-off that turns a predicted probability into a decision.
+
+A case is *flagged* (predicted to have the adverse outcome, ``y = 1``) when ``p >= cutoff``.
+Costs are per case: ``cost_fp`` for flagging a case that turns out fine, ``cost_fn`` for
+missing an adverse case, ``cost_tp`` and ``cost_tn`` for the two correct decisions (default 0).
+A cut-off of ``None`` in a returned dictionary (``inf`` in a cost curve) means "flag none".
+"""
+
+from __future__ import annotations
+
+import math
+from numbers import Real
+
+import numpy as np
+import pandas as pd
+
+from oddsmith.errors import CostError, OddsmithError
+from oddsmith.metrics import _validated
+
+_COST_KEYS = ("cost_fp", "cost_fn", "cost_tp", "cost_tn")
+_CONFIG_KEYS = {
+    "false_positive": "cost_fp",
+    "false_negative": "cost_fn",
+    "true_positive": "cost_tp",
+    "true_negative": "cost_tn",
+}
+_ADOPT = ("empirical", "bayes", "constrained")
+_BOOTSTRAP_LEVEL = 0.95
+# Relative tolerance for treating two total costs as tied (floating-point noise only).
+_TIE_RTOL = 1e-12
+
+
+# ---------------------------------------------------------------------------------------------
+# costs
+
+
+def _check_cost(name: str, value, *, strictly_positive: bool) -> float:
+    if isinstance(value, bool) or not isinstance(value, Real):
+        raise CostError(f"{name} must be a number, got {value!r}")
+    value = float(value)
+    if not math.isfinite(value):
+        raise CostError(f"{name} must be finite, got {value!r}")
+    if strictly_positive and value <= 0.0:
+        raise CostError(f"{name} must be > 0, got {value!r}")
+    if value < 0.0:
+        raise CostError(f"{name} must be >= 0, got {value!r}")
+    return value
+
+
+def _validated_costs(cost_fp, cost_fn, cost_tp, cost_tn) -> dict:
+    costs = {
+        "cost_fp": _check_cost("cost_fp", cost_fp, strictly_positive=False),
+        "cost_fn": _check_cost("cost_fn", cost_fn, strictly_positive=False),
+        "cost_tp": _check_cost("cost_tp", cost_tp, strictly_positive=False),
+        "cost_tn": _check_cost("cost_tn", cost_tn, strictly_positive=False),
+    }
+    if costs["cost_fp"] <= costs["cost_tn"]:
+        raise CostError(
+            f"cost_fp must exceed cost_tn (a false alarm must cost more than a correct pass), "
+            f"got cost_fp={costs['cost_fp']!r}, cost_tn={costs['cost_tn']!r}"
+        )
+    if costs["cost_fn"] <= costs["cost_tp"]:
+        raise CostError(
+            f"cost_fn must exceed cost_tp (a miss must cost more than a correct flag), "
+            f"got cost_fn={costs['cost_fn']!r}, cost_tp={costs['cost_tp']!r}"
+        )
+    return costs
+
+
+def bayes_cutoff(*, cost_fp, cost_fn, cost_tp=0, cost_tn=0) -> float:
+    """Cut-off that minimises expected cost when ``p`` is a calibrated probability.
+
+    Flag when ``p >= (cost_fp − cost_tn) / (cost_fp − cost_tn + cost_fn − cost_tp)``
+    (Elkan 2001). With no cost on correct decisions this is ``cost_fp / (cost_fp + cost_fn)``.
+
+    Examples
+    --------
+    >>> bayes_cutoff(cost_fp=1, cost_fn=4)
+    0.2
+    """
+    costs = _validated_costs(cost_fp, cost_fn, cost_tp, cost_tn)
+    fp_regret = costs["cost_fp"] - costs["cost_tn"]
+    fn_regret = costs["cost_fn"] - costs["cost_tp"]
+    return fp_regret / (fp_regret + fn_regret)
+
+
+def costs_from_config(d) -> dict:
+    """Costs from a configuration mapping, in the keyword form used by this module.
+
+    Two forms are accepted:
+
+    * ``{"false_positive": 1, "false_negative": 5, "true_positive": 0, "true_negative": 0}``
+      (the last two optional, default 0);
+    * ``{"ratio_fn_to_fp": 5}``, meaning a false positive costs 1 and a false negative 5.
+
+    False-positive, false-negative and ratio values must be finite and > 0; correct-decision
+    costs finite and >= 0.
+
+    Returns
+    -------
+    dict
+        ``cost_fp``, ``cost_fn``, ``cost_tp``, ``cost_tn`` (floats).
+    """
+    if not isinstance(d, dict):
+        raise CostError(f"costs must be a mapping, got {type(d).__name__}")
+    if "ratio_fn_to_fp" in d:
+        if len(d) != 1:
+            others = sorted(k for k in d if k != "ratio_fn_to_fp")
+            raise CostError(f"ratio_fn_to_fp cannot be combined with other cost keys: {others}")
+        ratio = _check_cost("ratio_fn_to_fp", d["ratio_fn_to_fp"], strictly_positive=True)
+        return _validated_costs(1.0, ratio, 0.0, 0.0)
+    unknown = sorted(str(k) for k in d if k not in _CONFIG_KEYS)
+    missing = [k for k in ("false_positive", "false_negative") if k not in d]
+    if unknown or missing:
+        raise CostError(
+            "costs must be given as false_positive/false_negative[/true_positive/true_negative]"
+            " or as ratio_fn_to_fp",
+            problems=[f"unknown key {k!r}" for k in unknown]
+            + [f"missing key {k!r}" for k in missing],
+        )
+    _check_cost("false_positive", d["false_positive"], strictly_positive=True)
+    _check_cost("false_negative", d["false_negative"], strictly_positive=True)
+    values = {_CONFIG_KEYS[k]: d.get(k, 0) for k in _CONFIG_KEYS}
+    for key in ("true_positive", "true_negative"):
+        _check_cost(key, d.get(key, 0), strictly_positive=False)
+    return _validated_costs(**values)
+
+
+def _resolve_costs(costs) -> dict:
+    if not isinstance(costs, dict):
+        raise CostError(f"costs must be a dict with keys {list(_COST_KEYS)}, got {costs!r}")
+    unknown = sorted(str(k) for k in costs if k not in _COST_KEYS)
+    if unknown:
+        raise CostError(
+            f"unknown cost keys {unknown}; expected {list(_COST_KEYS)} "
+            "(use costs_from_config for the configuration form)"
+        )
+    if "cost_fp" not in costs or "cost_fn" not in costs:
+        raise CostError(f"costs need cost_fp and cost_fn, got keys {sorted(costs)}")
+    return _validated_costs(
+        costs["cost_fp"], costs["cost_fn"], costs.get("cost_tp", 0), costs.get("cost_tn", 0)
+    )
+
+
+# ---------------------------------------------------------------------------------------------
+# cost curve
+
+
+def _curve_counts(y: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Cut-offs (ascending, ``inf`` last), flagged counts and true positives at each.
+
+    One sort, then cumulative sums over ``p`` in decreasing order; the count at a distinct
+    value is read at the end of its run of ties, because ``p >= t`` flags the whole run.
+    """
+    order = np.argsort(-p, kind="stable")
+    p_desc = p[order]
+    cum_tp = np.cumsum(y[order])
+    run_ends = np.flatnonzero(np.append(p_desc[1:] != p_desc[:-1], True))
+    cutoffs = np.append(p_desc[run_ends][::-1], np.inf)
+    flagged = np.append((run_ends + 1)[::-1], 0)
+    tp = np.append(cum_tp[run_ends][::-1], 0)
+    return cutoffs, flagged.astype(np.int64), tp.astype(np.int64)
+
+
+def _total_cost(costs: dict, tp, fp, tn, fn):
+    return (
+        costs["cost_tp"] * tp
+        + costs["cost_fp"] * fp
+        + costs["cost_tn"] * tn
+        + costs["cost_fn"] * fn
+    )
+
+
+def cost_curve(y, p, *, costs) -> pd.DataFrame:
+    """Confusion counts and expected cost at every distinct candidate cut-off.
+
+    Candidates are every distinct value of ``p`` plus ``inf`` (flag none); rows are in
+    increasing order of cut-off. Exact and O(n log n).
+
+    Parameters
+    ----------
+    costs : dict
+        ``cost_fp``, ``cost_fn`` and optionally ``cost_tp``, ``cost_tn`` (see
+        :func:`costs_from_config`).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``cutoff``, ``flagged``, ``tp``, ``fp``, ``tn``, ``fn``, ``flag_rate``,
+        ``sensitivity``, ``specificity``, ``expected_cost_per_case``. Sensitivity
+        (specificity) is NaN when there are no positives (negatives).
+    """
+    costs = _resolve_costs(costs)
+    y, p = _validated(y, p)
+    cutoffs, flagged, tp = _curve_counts(y, p)
+    n, events = y.shape[0], int(y.sum())
+    fp = flagged - tp
+    fn = events - tp
+    tn = (n - events) - fp
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sensitivity = tp / events if events else np.full(tp.shape, np.nan)
+        specificity = tn / (n - events) if n > events else np.full(tn.shape, np.nan)
+    return pd.DataFrame(
+        {
+            "cutoff": cutoffs,
+            "flagged": flagged,
+            "tp": tp,
+            "fp": fp,
+            "tn": tn,
+            "fn": fn,
+            "flag_rate": flagged / n,
+            "sensitivity": sensitivity,
+            "specificity": specificity,
+            "expected_cost_per_case": _total_cost(costs, tp, fp, tn, fn) / n,
+        }
+    )
+
+
+# ---------------------------------------------------------------------------------------------
+# single cut-off
+
+
+def _flag_mask(p: np.ndarray, cutoff) -> np.ndarray:
+    if cutoff is None:
+        return np.zeros(p.shape, dtype=bool)
+    if isinstance(cutoff, bool) or not isinstance(cutoff, Real) or math.isnan(cutoff):
+        raise OddsmithError(f"cutoff must be a number or None (flag none), got {cutoff!r}")
+    return p >= cutoff
+
+
+def _ratio(numerator: int, denominator: int) -> float | None:
+    return numerator / denominator if denominator else None
+
+
+def confusion_at(y, p, cutoff) -> dict:
+    """Confusion counts and rates when flagging ``p >= cutoff``.
+
+    ``cutoff`` may be ``None`` or ``inf`` to flag none.
+
+    Returns
+    -------
+    dict
+        ``cutoff``, ``n``, ``tp``, ``fp``, ``tn``, ``fn``, ``sensitivity``, ``specificity``,
+        ``ppv``, ``npv``, ``flag_rate``. A rate whose denominator is 0 is None.
+    """
+    y, p = _validated(y, p)
+    flag = _flag_mask(p, cutoff)
+    tp = int(np.sum(flag & (y == 1)))
+    fp = int(np.sum(flag & (y == 0)))
+    fn = int(np.sum(~flag & (y == 1)))
+    tn = int(np.sum(~flag & (y == 0)))
+    return {
+        "cutoff": None if cutoff is None or math.isinf(cutoff) else float(cutoff),
+        "n": int(y.shape[0]),
+        "tp": tp,
+        "fp": fp,
+        "tn": tn,
+        "fn": fn,
+        "sensitivity": _ratio(tp, tp + fn),
+        "specificity": _ratio(tn, tn + fp),
+        "ppv": _ratio(tp, tp + fp),
+        "npv": _ratio(tn, tn + fn),
+        "flag_rate": (tp + fp) / y.shape[0],
+    }
+
+
+def realised_cost_per_1000(y, p, cutoff, *, costs) -> float:
+    """Average cost per 1,000 cases when flagging ``p >= cutoff`` on these rows."""
+    costs = _resolve_costs(costs)
+    c = confusion_at(y, p, cutoff)
+    return 1000.0 * float(_total_cost(costs, c["tp"], c["fp"], c["tn"], c["fn"])) / c["n"]
+
+
+# ---------------------------------------------------------------------------------------------
+# choosing a cut-off
+
+
+def _lowest_cost_index(total_cost: np.ndarray, allowed: np.ndarray | None = None) -> int:
+    """Index of the lowest total cost; ties (within rounding) go to the highest cut-off.
+
+    Rows are in increasing order of cut-off, so the last tied row is the highest.
+    """
+    cost = total_cost if allowed is None else np.where(allowed, total_cost, np.inf)
+    best = cost.min()
+    tied = cost <= best + _TIE_RTOL * max(1.0, abs(best))
+    return int(np.flatnonzero(tied)[-1])
+
+
+def _cutoff_value(cutoff: float) -> float | None:
+    return None if math.isinf(cutoff) else float(cutoff)
+
+
+def _pct(x: float) -> str:
+    return f"{100.0 * x:.4g}%"
+
+
+def _check_constraints(max_flag_rate, min_sensitivity) -> None:
+    for name, value, low_open in (
+        ("max_flag_rate", max_flag_rate, True),
+        ("min_sensitivity", min_sensitivity, False),
+    ):
+        if value is None:
+            continue
+        ok = isinstance(value, Real) and not isinstance(value, bool) and math.isfinite(value)
+        if not ok or value > 1.0 or value < 0.0 or (low_open and value == 0.0):
+            bounds = "(0, 1]" if low_open else "[0, 1]"
+            raise CostError(f"{name} must be a number in {bounds}, got {value!r}")
+
+
+def _feasible(curve: dict, n: int, events: int, max_flag_rate, min_sensitivity) -> np.ndarray:
+    ok = np.ones(curve["cutoff"].shape, dtype=bool)
+    # a small allowance keeps e.g. 5 flagged of 100 inside a 0.05 limit despite rounding
+    if max_flag_rate is not None:
+        ok &= curve["flagged"] <= max_flag_rate * n + 1e-9
+    if min_sensitivity is not None:
+        ok &= curve["tp"] >= min_sensitivity * events - 1e-9
+    return ok
+
+
+def _infeasible_error(curve: dict, n: int, events: int, max_flag_rate, min_sensitivity):
+    within_rate = _feasible(curve, n, events, max_flag_rate, None)
+    within_sens = _feasible(curve, n, events, None, min_sensitivity)
+    best_sens_row = int(np.flatnonzero(within_rate)[0])  # lowest cut-off within the rate
+    least_rate_row = int(np.flatnonzero(within_sens)[-1])  # highest cut-off reaching it
+    best_sens = curve["tp"][best_sens_row] / events
+    least_rate = curve["flagged"][least_rate_row] / n
+    return CostError(
+        f"no cut-off flags <= {_pct(max_flag_rate)} while reaching sensitivity >= "
+        f"{_pct(min_sensitivity)}: at flag rate <= {_pct(max_flag_rate)} the best sensitivity "
+        f"is {_pct(best_sens)} (cut-off {curve['cutoff'][best_sens_row]:.4g}); sensitivity >= "
+        f"{_pct(min_sensitivity)} needs a flag rate of {_pct(least_rate)} "
+        f"(cut-off {curve['cutoff'][least_rate_row]:.4g})"
+    )
+
+
+def _curve_dict(y: np.ndarray, p: np.ndarray, costs: dict) -> dict:
+    cutoffs, flagged, tp = _curve_counts(y, p)
+    events, negatives = int(y.sum()), int(y.shape[0] - y.sum())
+    fp = flagged - tp
+    total = _total_cost(costs, tp, fp, negatives - fp, events - tp)
+    return {"cutoff": cutoffs, "flagged": flagged, "tp": tp, "total_cost": total}
+
+
+def _bootstrap(y, p, costs, empirical_cutoff, resamples, seed) -> dict | None:
+    """Stratified percentile bootstrap of the empirical cut-off and its cost per 1,000.
+
+    Positives and negatives are resampled separately (their counts stay fixed). For each
+    resample the empirical cut-off is chosen again and its cost recorded; the cost of the
+    cut-off chosen on all rows is recorded too. Percentiles are order statistics (numpy
+    ``inverted_cdf``), so "flag none" (``inf``) can be an end point, reported as None.
+    """
+    if resamples == 0:
+        return None
+    rng = np.random.default_rng(seed)
+    pos, neg = np.flatnonzero(y == 1), np.flatnonzero(y == 0)
+    chosen, chosen_cost, fixed_cost = (np.empty(resamples) for _ in range(3))
+    for b in range(resamples):
+        rows = np.concatenate(
+            [pos[rng.integers(0, pos.size, pos.size)], neg[rng.integers(0, neg.size, neg.size)]]
+        )
+        y_b, p_b = y[rows], p[rows]
+        curve = _curve_dict(y_b, p_b, costs)
+        best = _lowest_cost_index(curve["total_cost"])
+        chosen[b] = curve["cutoff"][best]
+        chosen_cost[b] = curve["total_cost"][best]
+        flag = p_b >= empirical_cutoff
+        tp, fp = np.sum(flag & (y_b == 1)), np.sum(flag & (y_b == 0))
+        fixed_cost[b] = _total_cost(costs, tp, fp, neg.size - fp, pos.size - tp)
+    q = [(1 - _BOOTSTRAP_LEVEL) / 2, (1 + _BOOTSTRAP_LEVEL) / 2]
+    cut_lo, cut_hi = np.quantile(chosen, q, method="inverted_cdf")
+    scale = 1000.0 / y.shape[0]
+    cost_lo, cost_hi = np.quantile(chosen_cost, q, method="inverted_cdf") * scale
+    fixed_lo, fixed_hi = np.quantile(fixed_cost, q, method="inverted_cdf") * scale
+    return {
+        "resamples": int(resamples),
+        "seed": seed,
+        "level": _BOOTSTRAP_LEVEL,
+        "cutoff_low": _cutoff_value(cut_lo),
+        "cutoff_high": _cutoff_value(cut_hi),
+        "cost_per_1000_low": float(cost_lo),
+        "cost_per_1000_high": float(cost_hi),
+        "fixed_cutoff_cost_per_1000_low": float(fixed_lo),
+        "fixed_cutoff_cost_per_1000_high": float(fixed_hi),
+    }
+
+
+def _check_choice_options(y, adopt, bootstrap, seed, max_flag_rate, min_sensitivity) -> None:
+    if adopt not in _ADOPT:
+        raise CostError(f"adopt must be one of {list(_ADOPT)}, got {adopt!r}")
+    if adopt == "constrained" and max_flag_rate is None and min_sensitivity is None:
+        raise CostError("adopt='constrained' needs max_flag_rate or min_sensitivity")
+    if isinstance(bootstrap, bool) or not isinstance(bootstrap, (int, np.integer)) or bootstrap < 0:
+        raise CostError(f"bootstrap must be a whole number >= 0, got {bootstrap!r}")
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
+        raise CostError(f"seed must be an integer, got {seed!r}")
+    events = int(y.sum())
+    if events == 0 or events == y.shape[0]:
+        raise OddsmithError(
+            f"choosing a cut-off needs both outcomes, got {events} events in {y.shape[0]} rows"
+        )
+    _check_constraints(max_flag_rate, min_sensitivity)
+
+
+def _reason(adopt, chosen, constraints, n_candidates, bayes) -> str:
+    per_1000 = f"{chosen['cost_per_1000']:.4g} per 1,000 cases"
+    if adopt == "empirical":
+        return (
+            f"empirical: lowest expected cost on these rows ({per_1000}) among {n_candidates} "
+            "candidate cut-offs; ties go to the highest cut-off"
+        )
+    if adopt == "bayes":
+        return (
+            f"bayes: cut-off (cost_fp - cost_tn)/(cost_fp - cost_tn + cost_fn - cost_tp) = "
+            f"{bayes:.4g} from the stated costs, which assumes p is calibrated ({per_1000} "
+            "on these rows)"
+        )
+    limits = []
+    if constraints["max_flag_rate"] is not None:
+        limits.append(f"flag at most {_pct(constraints['max_flag_rate'])}")
+    if constraints["min_sensitivity"] is not None:
+        limits.append(f"reach sensitivity of at least {_pct(constraints['min_sensitivity'])}")
+    return f"constrained: lowest expected cost ({per_1000}) among cut-offs that " + " and ".join(
+        limits
+    )
+
+
+def _operating_point(curve: dict, row: int, n: int) -> dict:
+    return {
+        "cutoff": _cutoff_value(curve["cutoff"][row]),
+        "flags_none": bool(math.isinf(curve["cutoff"][row])),
+        "cost_per_case": float(curve["total_cost"][row]) / n,
+        "cost_per_1000": 1000.0 * float(curve["total_cost"][row]) / n,
+    }
+
+
+def _bayes_point(y: np.ndarray, p: np.ndarray, costs: dict) -> dict:
+    cutoff = bayes_cutoff(**costs)
+    per_1000 = realised_cost_per_1000(y, p, cutoff, costs=costs)
+    return {
+        "cutoff": cutoff,
+        "flags_none": False,
+        "cost_per_case": per_1000 / 1000.0,
+        "cost_per_1000": per_1000,
+    }
+
+
+def _constrained_point(curve: dict, n: int, events: int, max_flag_rate, min_sensitivity):
+    """``(constraints, operating point)``, both None when no constraint is given."""
+    if max_flag_rate is None and min_sensitivity is None:
+        return None, None
+    allowed = _feasible(curve, n, events, max_flag_rate, min_sensitivity)
+    if not allowed.any():
+        raise _infeasible_error(curve, n, events, max_flag_rate, min_sensitivity)
+    row = _lowest_cost_index(curve["total_cost"], allowed)
+    point = _operating_point(curve, row, n)
+    point["flag_rate"] = int(curve["flagged"][row]) / n
+    point["sensitivity"] = int(curve["tp"][row]) / events
+    constraints = {"max_flag_rate": max_flag_rate, "min_sensitivity": min_sensitivity}
+    return constraints, point
+
+
+def _constraint_note(confusion: dict, constraints: dict, events: int) -> str:
+    misses = []
+    limit = constraints["max_flag_rate"]
+    if limit is not None and confusion["tp"] + confusion["fp"] > limit * confusion["n"] + 1e-9:
+        misses.append(f"it flags {_pct(confusion['flag_rate'])} (limit {_pct(limit)})")
+    floor = constraints["min_sensitivity"]
+    if floor is not None and confusion["tp"] < floor * events - 1e-9:
+        misses.append(f"its sensitivity is {_pct(confusion['sensitivity'])} (floor {_pct(floor)})")
+    return "; it does not meet the operating constraints: " + ", ".join(misses) if misses else ""
+
+
+def choose_cutoff(
+    y,
+    p,
+    *,
+    costs,
+    max_flag_rate=None,
+    min_sensitivity=None,
+    bootstrap: int = 500,
+    seed: int = 0,
+    adopt: str = "empirical",
+) -> dict:
+    """Choose the cut-off that minimises expected cost, with its uncertainty and alternatives.
+
+    Candidates are the distinct values of ``p`` plus "flag none"; the rule is always
+    ``p >= cutoff`` (also when evaluating the Bayes cut-off on these rows). The empirical
+    cut-off has the lowest expected cost; among equal costs the highest cut-off is taken
+    (fewest cases flagged). With constraints, the constrained cut-off is the lowest-cost
+    candidate meeting every given constraint.
+
+    Parameters
+    ----------
+    costs : dict
+        ``cost_fp``, ``cost_fn`` and optionally ``cost_tp``, ``cost_tn``.
+    max_flag_rate, min_sensitivity : float, optional
+        Operating constraints: share flagged at most, sensitivity at least.
+    bootstrap : int
+        Stratified resamples for the 95% percentile intervals; 0 skips them.
+    seed : int
+        Seed of ``numpy.random.default_rng`` for the bootstrap.
+    adopt : {"empirical", "bayes", "constrained"}
+        Which cut-off to adopt.
+
+    Returns
+    -------
+    dict
+        ``rule``, ``costs``, ``n``, ``events``, ``candidates``, ``bayes`` and ``empirical``
+        (each ``cutoff``, ``flags_none``, ``cost_per_case``, ``cost_per_1000``),
+        ``bootstrap`` (None when skipped), ``constraints`` and ``constrained`` (None without
+        constraints), ``cost_per_1000`` (``adopted``, ``flag_none``, ``flag_all``, ``bayes``),
+        ``adopted``, ``adopted_cutoff``, ``reason``, ``confusion_at_adopted``.
+
+    Raises
+    ------
+    CostError
+        Bad costs or options, or constraints no cut-off can meet (with the closest values).
+    """
+    costs = _resolve_costs(costs)
+    y, p = _validated(y, p)
+    _check_choice_options(y, adopt, bootstrap, seed, max_flag_rate, min_sensitivity)
+    n, events = int(y.shape[0]), int(y.sum())
+    curve = _curve_dict(y, p, costs)
+    empirical = _operating_point(curve, _lowest_cost_index(curve["total_cost"]), n)
+    bayes = _bayes_point(y, p, costs)
+    constraints, constrained = _constrained_point(curve, n, events, max_flag_rate, min_sensitivity)
+    chosen = {"empirical": empirical, "bayes": bayes, "constrained": constrained}[adopt]
+    confusion = confusion_at(y, p, chosen["cutoff"])
+    reason = _reason(adopt, chosen, constraints, int(curve["cutoff"].size), bayes["cutoff"])
+    if constraints is not None and adopt != "constrained":
+        reason += _constraint_note(confusion, constraints, events)
+    empirical_threshold = math.inf if empirical["flags_none"] else empirical["cutoff"]
+    return {
+        "rule": "flag when p >= cutoff",
+        "costs": costs,
+        "n": n,
+        "events": events,
+        "candidates": int(curve["cutoff"].size),
+        "bayes": bayes,
+        "empirical": empirical,
+        "bootstrap": _bootstrap(y, p, costs, empirical_threshold, int(bootstrap), int(seed)),
+        "constraints": constraints,
+        "constrained": constrained,
+        "cost_per_1000": {
+            "adopted": chosen["cost_per_1000"],
+            "flag_none": 1000.0 * float(curve["total_cost"][-1]) / n,
+            "flag_all": 1000.0 * float(curve["total_cost"][0]) / n,
+            "bayes": bayes["cost_per_1000"],
+        },
+        "adopted": adopt,
+        "adopted_cutoff": chosen["cutoff"],
+        "reason": reason,
+        "confusion_at_adopted": confusion,
+    }

@@ -1,0 +1,316 @@
+"""Tests for oddsmith.threshold: Elkan's cut-off, exact cost curves, constraints, bootstrap."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+from sklearn.metrics import confusion_matrix
+
+from oddsmith import threshold
+from oddsmith.errors import CostError, OddsmithError
+
+# Eight rows worked by hand below. Distinct cut-offs 0.1, 0.3, 0.4, 0.6, 0.8, 0.9, inf.
+TOY_P = np.array([0.9, 0.8, 0.8, 0.6, 0.4, 0.3, 0.3, 0.1])
+TOY_Y = np.array([1, 1, 0, 1, 0, 0, 1, 0])
+# (cutoff, flagged, tp, fp) for "flag when p >= cutoff"
+TOY_COUNTS = [
+    (0.1, 8, 4, 4),
+    (0.3, 7, 4, 3),
+    (0.4, 5, 3, 2),
+    (0.6, 4, 3, 1),
+    (0.8, 3, 2, 1),
+    (0.9, 1, 1, 0),
+    (math.inf, 0, 0, 0),
+]
+FP1_FN3 = {"cost_fp": 1, "cost_fn": 3}
+
+
+def _calibrated_sample(seed, n, a, b):
+    """p ~ Beta(a, b) and y ~ Bernoulli(p): p is calibrated by construction."""
+    rng = np.random.default_rng(seed)
+    p = rng.beta(a, b, size=n)
+    return (rng.random(n) < p).astype(int), p
+
+
+def _slow_curve(y, p, costs):
+    rows = []
+    for t in sorted(set(p.tolist())) + [math.inf]:
+        tp = fp = tn = fn = 0
+        for score, outcome in zip(p, y):
+            flagged = score >= t
+            tp += flagged and outcome == 1
+            fp += flagged and outcome == 0
+            tn += (not flagged) and outcome == 0
+            fn += (not flagged) and outcome == 1
+        total = (
+            costs["cost_tp"] * tp
+            + costs["cost_fp"] * fp
+            + costs["cost_tn"] * tn
+            + costs["cost_fn"] * fn
+        )
+        rows.append((t, tp, fp, tn, fn, total / len(y)))
+    return rows
+
+
+# ------------------------------------------------------------------ Bayes cut-off and costs
+
+
+def test_bayes_cutoff_formula():
+    # Elkan, "The Foundations of Cost-Sensitive Learning", IJCAI 2001
+    assert threshold.bayes_cutoff(cost_fp=1, cost_fn=4) == 0.2
+    assert threshold.bayes_cutoff(cost_fp=5, cost_fn=9, cost_tp=3, cost_tn=1) == 0.4
+
+
+@pytest.mark.parametrize(
+    "costs, a, b, expected",
+    [
+        ({"cost_fp": 1, "cost_fn": 4}, 2, 5, 0.2),
+        ({"cost_fp": 5, "cost_fn": 9, "cost_tp": 3, "cost_tn": 1}, 2, 3, 0.4),
+    ],
+)
+def test_empirical_cutoff_recovers_elkan_on_calibrated_probabilities(costs, a, b, expected):
+    # Elkan (2001): with calibrated p the cost-minimising rule is p >= the Bayes cut-off.
+    # 200,000 simulated rows; the tolerance 0.02 is our own choice for this sample size.
+    y, p = _calibrated_sample(2001, 200_000, a, b)
+    result = threshold.choose_cutoff(y, p, costs=costs, bootstrap=0)
+    assert result["bayes"]["cutoff"] == pytest.approx(expected, abs=1e-15)
+    assert abs(result["empirical"]["cutoff"] - expected) < 0.02
+    assert result["empirical"]["cost_per_1000"] <= result["bayes"]["cost_per_1000"]
+
+
+def test_costs_from_config_forms():
+    assert threshold.costs_from_config({"ratio_fn_to_fp": 5}) == {
+        "cost_fp": 1.0,
+        "cost_fn": 5.0,
+        "cost_tp": 0.0,
+        "cost_tn": 0.0,
+    }
+    full = {"false_positive": 2, "false_negative": 7, "true_positive": 1, "true_negative": 0.5}
+    assert threshold.costs_from_config(full) == {
+        "cost_fp": 2.0,
+        "cost_fn": 7.0,
+        "cost_tp": 1.0,
+        "cost_tn": 0.5,
+    }
+
+
+@pytest.mark.parametrize(
+    "config, message",
+    [
+        ({"ratio_fn_to_fp": 0}, "ratio_fn_to_fp must be > 0, got 0.0"),
+        ({"ratio_fn_to_fp": -5}, "ratio_fn_to_fp must be > 0, got -5.0"),
+        ({"ratio_fn_to_fp": float("inf")}, "ratio_fn_to_fp must be finite, got inf"),
+        ({"ratio_fn_to_fp": float("nan")}, "ratio_fn_to_fp must be finite, got nan"),
+        ({"ratio_fn_to_fp": True}, "ratio_fn_to_fp must be a number, got True"),
+        ({"ratio_fn_to_fp": "5"}, "ratio_fn_to_fp must be a number, got '5'"),
+        ({"ratio_fn_to_fp": 5, "false_positive": 1}, "cannot be combined .*'false_positive'"),
+        ({"false_positive": 0, "false_negative": 5}, "false_positive must be > 0, got 0.0"),
+        ({"false_positive": 1, "false_negative": -2}, "false_negative must be > 0, got -2.0"),
+        ({"false_positive": 1, "false_negative": 5, "true_negative": -1}, "got -1.0"),
+        (
+            {"false_positive": 1, "false_negative": 5, "true_negative": 1},
+            "cost_fp must exceed cost_tn.*cost_fp=1.0, cost_tn=1.0",
+        ),
+        (
+            {"false_positive": 1, "false_negative": 5, "true_positive": 6},
+            "cost_fn must exceed cost_tp.*cost_fn=5.0, cost_tp=6.0",
+        ),
+        ({"false_positive": 1}, "missing key 'false_negative'"),
+        ({"false_positive": 1, "false_negative": 5, "fp": 1}, "unknown key 'fp'"),
+    ],
+)
+def test_costs_from_config_rejects_bad_values(config, message):
+    with pytest.raises(CostError, match=message):
+        threshold.costs_from_config(config)
+
+
+@pytest.mark.parametrize(
+    "kwargs, message",
+    [
+        ({"cost_fp": 0, "cost_fn": 1}, "cost_fp must exceed cost_tn"),
+        ({"cost_fp": -1, "cost_fn": 1}, "cost_fp must be >= 0, got -1.0"),
+        ({"cost_fp": 1, "cost_fn": float("nan")}, "cost_fn must be finite, got nan"),
+        ({"cost_fp": 1, "cost_fn": 2, "cost_tn": 3}, "cost_fp=1.0, cost_tn=3.0"),
+    ],
+)
+def test_bayes_cutoff_rejects_bad_costs(kwargs, message):
+    with pytest.raises(CostError, match=message):
+        threshold.bayes_cutoff(**kwargs)
+
+
+# ------------------------------------------------------------------ cost curve and confusion
+
+
+def test_cost_curve_toy_case_by_hand():
+    curve = threshold.cost_curve(TOY_Y, TOY_P, costs=FP1_FN3)
+    assert list(curve.columns) == [
+        "cutoff",
+        "flagged",
+        "tp",
+        "fp",
+        "tn",
+        "fn",
+        "flag_rate",
+        "sensitivity",
+        "specificity",
+        "expected_cost_per_case",
+    ]
+    assert [tuple(r) for r in curve[["cutoff", "flagged", "tp", "fp"]].to_numpy()] == TOY_COUNTS
+    # total cost = fp + 3 fn: 4, 3, 5, 4, 7, 9, 12 over 8 rows
+    assert curve["expected_cost_per_case"].tolist() == [x / 8 for x in (4, 3, 5, 4, 7, 9, 12)]
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_cost_curve_matches_slow_loop(seed):
+    rng = np.random.default_rng(seed)
+    p = np.round(rng.random(150), 1)  # heavy ties
+    y = (rng.random(150) < p).astype(int)
+    costs = {"cost_fp": 2.0, "cost_fn": 7.0, "cost_tp": 0.5, "cost_tn": 0.25}
+    curve = threshold.cost_curve(y, p, costs=costs)
+    slow = _slow_curve(y, p, costs)
+    assert len(curve) == len(slow)
+    for row, (t, tp, fp, tn, fn, cost) in zip(curve.itertuples(), slow):
+        assert (row.cutoff, row.tp, row.fp, row.tn, row.fn) == (t, tp, fp, tn, fn)
+        assert row.expected_cost_per_case == pytest.approx(cost, rel=1e-12)
+
+
+@pytest.mark.parametrize("cutoff", [0.05, 0.3, 0.31, 0.8, 1.0])
+def test_confusion_at_matches_sklearn(cutoff):
+    rng = np.random.default_rng(5)
+    p = np.round(rng.random(200), 2)
+    y = (rng.random(200) < p).astype(int)
+    result = threshold.confusion_at(y, p, cutoff)
+    tn, fp, fn, tp = confusion_matrix(y, (p >= cutoff).astype(int), labels=[0, 1]).ravel()
+    assert (result["tn"], result["fp"], result["fn"], result["tp"]) == (tn, fp, fn, tp)
+    assert result["flag_rate"] == (tp + fp) / 200
+
+
+def test_confusion_at_leaves_undefined_rates_none():
+    result = threshold.confusion_at([0, 0, 0], [0.2, 0.5, 0.7], None)
+    json.dumps(result, allow_nan=False)
+    assert result["sensitivity"] is None and result["ppv"] is None
+    assert result["specificity"] == 1.0 and result["npv"] == 1.0 and result["cutoff"] is None
+    with pytest.raises(
+        OddsmithError, match=r"cutoff must be a number or None \(flag none\), got nan"
+    ):
+        threshold.confusion_at([0, 1], [0.2, 0.5], float("nan"))
+
+
+def test_realised_cost_per_1000_toy_case():
+    # at p >= 0.6: fp 1, fn 1 -> 1·1 + 3·1 = 4 over 8 rows
+    assert threshold.realised_cost_per_1000(TOY_Y, TOY_P, 0.6, costs=FP1_FN3) == 500.0
+
+
+# ------------------------------------------------------------------ choose_cutoff
+
+
+def test_choose_cutoff_toy_case_by_hand():
+    result = threshold.choose_cutoff(TOY_Y, TOY_P, costs=FP1_FN3, bootstrap=0)
+    json.dumps(result, allow_nan=False)
+    assert result["empirical"] == {
+        "cutoff": 0.3,
+        "flags_none": False,
+        "cost_per_case": 0.375,
+        "cost_per_1000": 375.0,
+    }
+    # Bayes cut-off 1/(1+3) = 0.25 flags the same rows as 0.3
+    assert result["bayes"]["cutoff"] == 0.25
+    assert result["cost_per_1000"] == {
+        "adopted": 375.0,
+        "flag_none": 1500.0,
+        "flag_all": 500.0,
+        "bayes": 375.0,
+    }
+    assert result["adopted"] == "empirical" and result["adopted_cutoff"] == 0.3
+    assert result["confusion_at_adopted"]["fp"] == 3
+    assert result["bootstrap"] is None and result["constrained"] is None
+    assert result["candidates"] == 7
+
+
+def test_choose_cutoff_breaks_ties_toward_the_highest_cutoff():
+    # with cost_fn = 2 the totals are 4, 3, 4, 3, 5, 6, 8: 0.3 and 0.6 tie at 3
+    result = threshold.choose_cutoff(TOY_Y, TOY_P, costs={"cost_fp": 1, "cost_fn": 2}, bootstrap=0)
+    assert result["empirical"]["cutoff"] == 0.6
+    assert "ties go to the highest cut-off" in result["reason"]
+
+
+def test_choose_cutoff_can_flag_none():
+    result = threshold.choose_cutoff(
+        [0, 1, 0, 1], [0.9, 0.2, 0.8, 0.1], costs={"cost_fp": 100, "cost_fn": 1}, bootstrap=50
+    )
+    json.dumps(result, allow_nan=False)
+    assert result["empirical"]["flags_none"] is True
+    assert result["empirical"]["cutoff"] is None
+    assert result["bootstrap"]["cutoff_high"] is None  # flag none in every resample
+    assert result["confusion_at_adopted"]["flag_rate"] == 0.0
+
+
+def test_constrained_cutoff_toy_case():
+    # at most 50% flagged allows cut-offs 0.6 and above; totals 4, 7, 9, 12 -> 0.6
+    result = threshold.choose_cutoff(
+        TOY_Y, TOY_P, costs=FP1_FN3, max_flag_rate=0.5, bootstrap=0, adopt="constrained"
+    )
+    assert result["constrained"]["cutoff"] == 0.6
+    assert result["constrained"]["flag_rate"] == 0.5
+    assert result["constrained"]["sensitivity"] == 0.75
+    assert result["adopted_cutoff"] == 0.6
+    assert result["cost_per_1000"]["adopted"] == 500.0
+    assert result["reason"].startswith("constrained:") and "flag at most 50%" in result["reason"]
+    empirical = threshold.choose_cutoff(TOY_Y, TOY_P, costs=FP1_FN3, max_flag_rate=0.5, bootstrap=0)
+    assert "does not meet the operating constraints: it flags 87.5% (limit 50%)" in (
+        empirical["reason"]
+    )
+
+
+def test_impossible_constraints_report_the_closest_achievable_values():
+    # at <= 50% flagged the best is 0.6 (sensitivity 3/4); sensitivity 100% needs 0.3 (7/8)
+    with pytest.raises(CostError) as error:
+        threshold.choose_cutoff(
+            TOY_Y, TOY_P, costs=FP1_FN3, max_flag_rate=0.5, min_sensitivity=1.0, bootstrap=0
+        )
+    assert str(error.value) == (
+        "no cut-off flags <= 50% while reaching sensitivity >= 100%: at flag rate <= 50% the "
+        "best sensitivity is 75% (cut-off 0.6); sensitivity >= 100% needs a flag rate of "
+        "87.5% (cut-off 0.3)"
+    )
+
+
+@pytest.mark.parametrize(
+    "kwargs, message",
+    [
+        ({"adopt": "lowest"}, "adopt must be one of .* got 'lowest'"),
+        ({"adopt": "constrained"}, "needs max_flag_rate or min_sensitivity"),
+        ({"max_flag_rate": 0}, r"max_flag_rate must be a number in \(0, 1\], got 0"),
+        ({"min_sensitivity": 1.5}, r"min_sensitivity must be a number in \[0, 1\], got 1.5"),
+        ({"bootstrap": -1}, "bootstrap must be a whole number >= 0, got -1"),
+        ({"costs": {"cost_fp": 1}}, "costs need cost_fp and cost_fn"),
+        ({"costs": {"false_positive": 1, "false_negative": 2}}, "use costs_from_config"),
+    ],
+)
+def test_choose_cutoff_rejects_bad_options(kwargs, message):
+    options = {"costs": FP1_FN3, "bootstrap": 0} | kwargs
+    with pytest.raises(CostError, match=message):
+        threshold.choose_cutoff(TOY_Y, TOY_P, **options)
+
+
+def test_choose_cutoff_needs_both_outcomes():
+    with pytest.raises(OddsmithError, match="needs both outcomes, got 0 events in 3 rows"):
+        threshold.choose_cutoff([0, 0, 0], [0.1, 0.2, 0.3], costs=FP1_FN3)
+
+
+def test_bootstrap_is_deterministic_for_a_seed():
+    y, p = _calibrated_sample(7, 1500, 2, 5)
+    p = np.round(p, 3)
+    first = threshold.choose_cutoff(y, p, costs=FP1_FN3, bootstrap=200, seed=11)
+    again = threshold.choose_cutoff(y, p, costs=FP1_FN3, bootstrap=200, seed=11)
+    other = threshold.choose_cutoff(y, p, costs=FP1_FN3, bootstrap=200, seed=12)
+    assert json.dumps(first, allow_nan=False) == json.dumps(again, allow_nan=False)
+    assert first["bootstrap"] != other["bootstrap"]
+    boot = first["bootstrap"]
+    assert boot["cutoff_low"] <= first["empirical"]["cutoff"] <= boot["cutoff_high"]
+    assert boot["cost_per_1000_low"] <= boot["cost_per_1000_high"]
+    # re-choosing the cut-off in each resample can only lower that resample's cost
+    assert boot["cost_per_1000_low"] <= boot["fixed_cutoff_cost_per_1000_low"]
