@@ -10,8 +10,11 @@ configfile: "config/config.yaml"
 
 include: "rules/common.smk"
 include: "rules/validate.smk"
+include: "rules/split.smk"
+include: "rules/fit.smk"
+include: "rules/decide.smk"
 
 
 rule all:
     input:
-        f"results/{RUN}/validated/data.parquet",
+        f"results/{RUN}/evaluation/metrics.json",

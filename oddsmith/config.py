@@ -7,6 +7,7 @@ what was found. Defaults from the schema are filled in so later stages never gue
 from __future__ import annotations
 
 import copy
+import json
 import math
 from pathlib import Path
 
@@ -215,3 +216,35 @@ def candidate(config: dict, name: str) -> dict:
             return c
     known = ", ".join(c["name"] for c in config["candidates"])
     raise ConfigError(f"unknown candidate '{name}'; configured: {known}")
+
+
+def _type_text(spec: dict) -> str:
+    kind = spec.get("type", "")
+    text = " or ".join(kind) if isinstance(kind, list) else kind
+    if "enum" in spec:
+        text += ": " + " \\| ".join(f"`{v}`" for v in spec["enum"])
+    if spec.get("type") == "array" and isinstance(spec.get("items"), dict) and "type" in spec["items"]:
+        text += f" of {_type_text(spec['items'])}"
+    return text
+
+
+def _reference_rows(props: dict, prefix: str, required: list) -> list[str]:
+    rows = []
+    for name, spec in props.items():
+        key = f"{prefix}{name}"
+        default = "required" if name in required else (
+            f"`{json.dumps(spec['default'])}`" if "default" in spec else "optional")
+        rows.append(f"| `{key}` | {_type_text(spec)} | {default} | {spec.get('description', '')} |")
+        if spec.get("type") == "object" and "properties" in spec:
+            rows += _reference_rows(spec["properties"], key + ".", spec.get("required", []))
+        items = spec.get("items", {})
+        if spec.get("type") == "array" and isinstance(items, dict) and "properties" in items:
+            rows += _reference_rows(items["properties"], key + "[].", items.get("required", []))
+    return rows
+
+
+def schema_reference_markdown() -> str:
+    """The key reference table of config/README.md, generated from the JSON Schema."""
+    schema = load_schema()
+    header = ["| key | type | default | meaning |", "|---|---|---|---|"]
+    return "\n".join(header + _reference_rows(schema["properties"], "", schema["required"])) + "\n"

@@ -54,7 +54,8 @@ def stage(snakemake, function, **kwargs):
     """Run ``function(**kwargs)`` as the body of a Snakemake job, then stamp it.
 
     stderr and the ``oddsmith`` loggers go to ``snakemake.log[0]``; BLAS/OpenMP pools are
-    limited to ``snakemake.threads``. The output named ``stamp`` is written last.
+    limited to ``snakemake.threads``. The output named ``stamp`` (if the rule has one) is
+    written last.
     """
     log_path = snakemake.log[0]
     Path(log_path).parent.mkdir(parents=True, exist_ok=True)
@@ -65,7 +66,8 @@ def stage(snakemake, function, **kwargs):
 
     with threadpool_limits(limits=int(snakemake.threads)):
         result = function(**kwargs)
-    write_stamp(snakemake)
+    if "stamp" in snakemake.output.keys():
+        write_stamp(snakemake)
     return result
 
 

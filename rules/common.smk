@@ -20,6 +20,11 @@ wildcard_constraints:
     candidate="|".join(CANDIDATES),
 
 
+def candidate_settings(name):
+    """Settings of one candidate (its config slice)."""
+    return next(c for c in CONFIG["candidates"] if c["name"] == name)
+
+
 def code(*modules, script):
     """Fingerprint of the package modules a rule runs plus its script (principle 1)."""
     base = ("runner", "io", "errors")

@@ -90,3 +90,24 @@ def test_read_config_file_errors(tmp_path):
     bad.write_text("run: [unclosed\n")
     with pytest.raises(ConfigError, match="not valid YAML"):
         read_config_file(bad)
+
+
+def test_config_readme_documents_every_key(root):
+    from oddsmith.config import schema_reference_markdown
+
+    text = (root / "config" / "README.md").read_text()
+    assert schema_reference_markdown() in text, "regenerate the table in config/README.md"
+
+
+def test_every_schema_key_has_type_and_description():
+    from oddsmith.config import load_schema
+
+    def walk(props, prefix=""):
+        for name, spec in props.items():
+            assert "description" in spec and "type" in spec, prefix + name
+            if "properties" in spec:
+                walk(spec["properties"], prefix + name + ".")
+            if isinstance(spec.get("items"), dict) and "properties" in spec["items"]:
+                walk(spec["items"]["properties"], prefix + name + "[].")
+
+    walk(load_schema()["properties"])

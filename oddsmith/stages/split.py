@@ -1,0 +1,27 @@
+"""The split stage: validated data → assignment (part and folds per id) and its summary."""
+
+from __future__ import annotations
+
+import logging
+
+from oddsmith.io import read_json, read_parquet, write_json
+from oddsmith.split import assign_split, write_assignment
+
+log = logging.getLogger("oddsmith.split")
+
+
+def run_split(*, data_path: str, report_path: str, data: dict, split: dict, cross_validation: dict,
+              out_assignment: str, out_summary: str) -> dict:
+    """Assign rows to train/test and folds; the planned parameter count comes from the report."""
+    df = read_parquet(data_path)
+    n_parameters = read_json(report_path)["planned_parameters"]
+    assignment, summary = assign_split(
+        df, id_column=data["id_column"], target=data["target"],
+        split=split | {"date_column": data["date_column"]}, cross_validation=cross_validation,
+        n_parameters=n_parameters,
+    )
+    for warning in summary.get("warnings", []):
+        log.warning(warning)
+    write_assignment(assignment, out_assignment)
+    write_json(out_summary, summary)
+    return summary

@@ -1,0 +1,64 @@
+rule threshold:
+    input:
+        selected="results/{run}/comparison/selected.json",
+        oof=expand("results/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES),
+    output:
+        choice="results/{run}/threshold/choice.json",
+        curve="results/{run}/threshold/cost_curve.parquet",
+        stamp="results/{run}/provenance/threshold.json",
+    params:
+        candidates=CANDIDATES,
+        costs=CONFIG["costs"],
+        code=code("stages/threshold", "threshold", script="scripts/threshold.py"),
+    log:
+        "logs/{run}/threshold.log",
+    benchmark:
+        "benchmarks/{run}/threshold.tsv"
+    threads: 1
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
+    script:
+        "../scripts/threshold.py"
+
+
+rule evaluate:
+    input:
+        data="results/{run}/validated/data.parquet",
+        assignment="results/{run}/split/assignment.parquet",
+        recipe="results/{run}/features/recipe.json",
+        selected="results/{run}/comparison/selected.json",
+        models=expand("results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES),
+        choice="results/{run}/threshold/choice.json",
+    output:
+        metrics="results/{run}/evaluation/metrics.json",
+        subgroups="results/{run}/evaluation/subgroups.json",
+        predictions="results/{run}/evaluation/predictions.parquet",
+        stamp="results/{run}/provenance/evaluate.json",
+    params:
+        candidates=CANDIDATES,
+        data={k: CONFIG["data"][k] for k in ("id_column", "target", "date_column")},
+        fairness=CONFIG["fairness"],
+        feature_names=[f["name"] for f in CONFIG["features"]],
+        evaluation=CONFIG["evaluation"],
+        split_method=CONFIG["split"]["method"],
+        code=code(
+            "stages/evaluate",
+            "metrics",
+            "fairness",
+            "predict",
+            "models",
+            "recipe",
+            "threshold",
+            script="scripts/evaluate.py",
+        ),
+    log:
+        "logs/{run}/evaluate.log",
+    benchmark:
+        "benchmarks/{run}/evaluate.tsv"
+    threads: 1
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
+    script:
+        "../scripts/evaluate.py"

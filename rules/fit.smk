@@ -1,0 +1,49 @@
+rule fit:
+    input:
+        data="results/{run}/validated/data.parquet",
+        assignment="results/{run}/split/assignment.parquet",
+        recipe="results/{run}/features/recipe.json",
+    output:
+        model="results/{run}/candidates/{candidate}/model.json",
+        cv="results/{run}/candidates/{candidate}/cv.json",
+        oof="results/{run}/candidates/{candidate}/oof.parquet",
+        stamp="results/{run}/provenance/fit-{candidate}.json",
+    params:
+        candidate=lambda wc: candidate_settings(wc.candidate),
+        target=CONFIG["data"]["target"],
+        seed=CONFIG["cross_validation"]["seed"],
+        code=code("stages/fit", "models", "metrics", "recipe", "split", script="scripts/fit.py"),
+    log:
+        "logs/{run}/fit/{candidate}.log",
+    benchmark:
+        "benchmarks/{run}/fit/{candidate}.tsv"
+    threads: 1
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
+    script:
+        "../scripts/fit.py"
+
+
+rule compare:
+    input:
+        cv=expand("results/{{run}}/candidates/{candidate}/cv.json", candidate=CANDIDATES),
+        oof=expand("results/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES),
+    output:
+        table="results/{run}/comparison/table.json",
+        selected="results/{run}/comparison/selected.json",
+        stamp="results/{run}/provenance/compare.json",
+    params:
+        candidates=CANDIDATES,
+        selection=CONFIG["selection"],
+        code=code("stages/compare", "metrics", script="scripts/compare.py"),
+    log:
+        "logs/{run}/compare.log",
+    benchmark:
+        "benchmarks/{run}/compare.tsv"
+    threads: 1
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
+    script:
+        "../scripts/compare.py"
