@@ -375,7 +375,12 @@ def _group_codes(df: pd.DataFrame, settings: dict) -> np.ndarray:
 
 
 def _grouped_parts(y: np.ndarray, groups: np.ndarray, settings: dict) -> np.ndarray:
-    """Draw whole groups into the test part, separately for groups with and without events."""
+    """Draw whole groups into the test part, separately for groups with and without events.
+
+    Within each stratum the groups are shuffled and the prefix whose row count is closest to
+    ``test_fraction`` of the stratum's rows goes to the test part (ties: fewer rows); a
+    stratum of two or more groups always leaves at least one group in each part.
+    """
     n_groups = int(groups.max()) + 1
     size = np.bincount(groups, minlength=n_groups)
     has_event = np.bincount(groups, weights=y, minlength=n_groups) > 0
@@ -385,7 +390,10 @@ def _grouped_parts(y: np.ndarray, groups: np.ndarray, settings: dict) -> np.ndar
         members = np.flatnonzero(has_event == stratum)
         order = rng.permutation(members)
         taken = np.concatenate([[0], np.cumsum(size[order])])
-        k = int(np.argmin(np.abs(taken - settings["test_fraction"] * size[members].sum())))
+        gap = np.abs(taken - settings["test_fraction"] * size[members].sum())
+        if len(members) >= 2:  # give each part at least one group of the stratum
+            gap[[0, -1]] = np.inf
+        k = int(np.argmin(gap))
         test_group[order[:k]] = True
     return test_group[groups]
 
@@ -506,7 +514,7 @@ def _epv_warnings(parts: dict, n_parameters) -> list[str]:
                 f"{name} part: {epv:.2f} events per parameter ({min(part['events'], part['non_events'])} "
                 f"minority-class events, {n_parameters} parameters) is below 10 (Peduzzi et al. 1996)"
             )
-            warnings.warn(message, EventsPerVariableWarning, stacklevel=3)
+            warnings.warn(message, EventsPerVariableWarning, stacklevel=4)
             found.append(message)
     return found
 
