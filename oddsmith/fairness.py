@@ -1,0 +1,283 @@
+"""Subgroup evidence: adverse-impact ratios, error-rate gaps and per-group discrimination.
+
+The adverse-impact rule follows 29 CFR 1607.4(D): a group whose favourable-outcome rate is
+below four-fifths of the highest group's rate is flagged; a ratio of exactly 4/5 is not.
+Comparisons are made in exact fractions so that 48/60 is 4/5, not 0.7999….
+"""
+
+from __future__ import annotations
+
+import math
+from fractions import Fraction
+from numbers import Integral, Rational, Real
+
+import numpy as np
+import pandas as pd
+
+from oddsmith import metrics
+from oddsmith.errors import OddsmithError
+from oddsmith.threshold import confusion_at
+
+FOUR_FIFTHS = Fraction(4, 5)
+_FAVOURABLE = ("not_flagged", "flagged")
+
+
+# ---------------------------------------------------------------------------------------------
+# adverse-impact ratio
+
+
+def _exact_rate(group: str, value) -> tuple[Fraction, bool]:
+    """``(rate, exact)`` from a ``(favourable, total)`` count pair, a rational or a float.
+
+    A float is read as the decimal it prints as (``Fraction(repr(x))``), so ``0.48`` is
+    exactly 12/25; ratios computed from floats are still returned as floats.
+    """
+    if isinstance(value, tuple):
+        if len(value) != 2 or not all(
+            isinstance(v, Integral) and not isinstance(v, bool) for v in value
+        ):
+            raise OddsmithError(
+                f"group {group!r}: counts must be (favourable, total) ints, got {value!r}"
+            )
+        favourable, total = int(value[0]), int(value[1])
+        if total <= 0 or not 0 <= favourable <= total:
+            raise OddsmithError(
+                f"group {group!r}: need 0 <= favourable <= total and total > 0, got {value!r}"
+            )
+        return Fraction(favourable, total), True
+    if isinstance(value, bool) or not isinstance(value, Real):
+        raise OddsmithError(
+            f"group {group!r}: rate must be a number or a count pair, got {value!r}"
+        )
+    if isinstance(value, Rational):
+        rate, exact = Fraction(value), True
+    elif math.isfinite(value):
+        rate, exact = Fraction(repr(float(value))), False
+    else:
+        raise OddsmithError(f"group {group!r}: rate must be finite, got {value!r}")
+    if not 0 <= rate <= 1:
+        raise OddsmithError(f"group {group!r}: rate must be within [0, 1], got {value!r}")
+    return rate, exact
+
+
+def adverse_impact(rates: dict) -> dict:
+    """Ratio of each group's favourable rate to the highest group's rate (four-fifths rule).
+
+    Parameters
+    ----------
+    rates : dict
+        Group label → favourable (selection) rate, as a ``(favourable, total)`` count pair, a
+        ``Fraction`` or a float.
+
+    Returns
+    -------
+    dict
+        Group label (sorted as text) → ``{"rate", "ratio", "flagged", "reference_group"}``.
+        ``rate`` and ``ratio`` are ``Fraction`` when every input is a count pair or rational,
+        otherwise float. ``flagged`` is True iff ``ratio < 4/5``, decided exactly. When every
+        rate is 0 the ratios are undefined: ``ratio`` is None and nothing is flagged (all
+        groups are treated alike).
+
+    Examples
+    --------
+    >>> out = adverse_impact({"a": (60, 100), "b": (48, 100)})
+    >>> out["b"]["ratio"], out["b"]["flagged"]
+    (Fraction(4, 5), False)
+    """
+    if not isinstance(rates, dict) or len(rates) < 2:
+        raise OddsmithError(f"adverse impact needs at least two groups, got {rates!r}")
+    parsed = {str(g): _exact_rate(str(g), v) for g, v in rates.items()}
+    exact = all(is_exact for _, is_exact in parsed.values())
+    labels = sorted(parsed)
+    highest = max(labels, key=lambda g: parsed[g][0])  # first label among equal highest
+    top = parsed[highest][0]
+    result = {}
+    for g in labels:
+        rate = parsed[g][0]
+        ratio = None if top == 0 else rate / top
+        result[g] = {
+            "rate": rate if exact else float(rate),
+            "ratio": ratio if exact or ratio is None else float(ratio),
+            "flagged": ratio is not None and ratio < FOUR_FIFTHS,
+            "reference_group": highest,
+        }
+    return result
+
+
+# ---------------------------------------------------------------------------------------------
+# subgroup table
+
+
+def _group_labels(groups, n: int, attribute: str) -> np.ndarray:
+    series = pd.Series(groups)
+    if series.shape[0] != n:
+        raise OddsmithError(f"groups for {attribute!r} has {series.shape[0]} rows, y has {n}")
+    missing = series.isna().to_numpy()
+    if missing.any():
+        row = int(np.flatnonzero(missing)[0])
+        raise OddsmithError(
+            f"sensitive attribute {attribute!r} has {int(missing.sum())} missing values "
+            f"(first at row {row}); map them to an explicit group first"
+        )
+    return series.astype(str).to_numpy()
+
+
+def _check_options(cutoff, min_group_size, favourable) -> None:
+    if cutoff is not None and (
+        isinstance(cutoff, bool) or not isinstance(cutoff, Real) or math.isnan(cutoff)
+    ):
+        raise OddsmithError(f"cutoff must be a number or None (flag none), got {cutoff!r}")
+    if (
+        isinstance(min_group_size, bool)
+        or not isinstance(min_group_size, Integral)
+        or min_group_size < 1
+    ):
+        raise OddsmithError(f"min_group_size must be a positive integer, got {min_group_size!r}")
+    if favourable not in _FAVOURABLE:
+        raise OddsmithError(f"favourable must be one of {list(_FAVOURABLE)}, got {favourable!r}")
+
+
+_NOISY = (
+    "base_rate",
+    "mean_predicted",
+    "auc",
+    "calibration_in_the_large",
+    "tpr",
+    "fpr",
+    "flag_rate",
+    "favourable_rate",
+    "adverse_impact_ratio",
+    "adverse_impact_numerator",
+    "adverse_impact_denominator",
+    "adverse_impact_flag",
+    "reference_group",
+    "tpr_gap",
+    "fpr_gap",
+)
+
+
+def _group_row(label: str, y: np.ndarray, p: np.ndarray, cutoff, favourable: str, min_size: int):
+    """One row without the comparisons, plus the favourable count used for them."""
+    n, events = int(y.shape[0]), int(y.sum())
+    row = {"group": label, "n": n, "events": events, "too_small": n < min_size}
+    row |= dict.fromkeys(_NOISY)
+    row["notes"] = []
+    if row["too_small"]:
+        row["notes"].append(f"fewer than {min_size} rows; figures withheld as too noisy")
+        return row, None
+    confusion = confusion_at(y, p, cutoff)
+    flagged = confusion["tp"] + confusion["fp"]
+    favourable_count = n - flagged if favourable == "not_flagged" else flagged
+    row["base_rate"] = events / n
+    row["mean_predicted"] = float(p.mean())
+    row["calibration_in_the_large"] = row["mean_predicted"] - row["base_rate"]
+    row["tpr"] = confusion["sensitivity"]
+    specificity = confusion["specificity"]
+    row["fpr"] = None if specificity is None else 1.0 - specificity
+    row["flag_rate"] = confusion["flag_rate"]
+    row["favourable_rate"] = favourable_count / n
+    if 0 < events < n:
+        row["auc"] = metrics.auc(y, p)
+    else:
+        row["notes"].append(f"only one outcome class ({events} events in {n}); AUC undefined")
+    if events == 0:
+        row["notes"].append("no events; true-positive rate undefined")
+    if events == n:
+        row["notes"].append("no non-events; false-positive rate undefined")
+    return row, favourable_count
+
+
+def _gap(value, reference):
+    return None if value is None or reference is None else value - reference
+
+
+def _add_comparisons(rows: list[dict], favourable_counts: dict) -> None:
+    """Fill adverse-impact ratios and equalised-odds gaps against the most favoured group."""
+    if len(favourable_counts) < 2:
+        for row in rows:
+            if not row["too_small"]:
+                row["notes"].append("fewer than two groups large enough; nothing to compare")
+        return
+    by_label = {row["group"]: row for row in rows}
+    impact = adverse_impact({g: (c, by_label[g]["n"]) for g, c in favourable_counts.items()})
+    for label, outcome in impact.items():
+        row, reference = by_label[label], by_label[outcome["reference_group"]]
+        ratio = outcome["ratio"]
+        row["reference_group"] = outcome["reference_group"]
+        row["adverse_impact_flag"] = outcome["flagged"]
+        if ratio is None:
+            row["notes"].append("no group has a favourable outcome; ratio undefined")
+        else:
+            row["adverse_impact_ratio"] = float(ratio)
+            row["adverse_impact_numerator"] = ratio.numerator
+            row["adverse_impact_denominator"] = ratio.denominator
+        row["tpr_gap"] = _gap(row["tpr"], reference["tpr"])
+        row["fpr_gap"] = _gap(row["fpr"], reference["fpr"])
+
+
+def subgroup_table(
+    y,
+    p,
+    groups,
+    *,
+    cutoff,
+    min_group_size: int = 100,
+    favourable: str = "not_flagged",
+    attribute: str | None = None,
+) -> list[dict]:
+    """Per-group discrimination, calibration, error rates and adverse-impact evidence.
+
+    A case is flagged when ``p >= cutoff`` (``None`` flags none). With
+    ``favourable="not_flagged"`` the favourable outcome is *not* being flagged (e.g. approved);
+    with ``"flagged"`` it is being flagged (e.g. offered support).
+
+    Per group: ``calibration_in_the_large`` is mean predicted minus observed rate (above 0 means
+    over-prediction); ``tpr``/``fpr`` are the true- and false-positive rates of the flag;
+    ``adverse_impact_ratio`` is the favourable rate over that of the most favoured group (the
+    highest favourable rate among groups large enough; ties go to the first label), kept
+    exactly as ``adverse_impact_numerator``/``adverse_impact_denominator``;
+    ``adverse_impact_flag`` is True iff the ratio is below 4/5; ``tpr_gap``/``fpr_gap`` are the
+    group's rate minus the most favoured group's (equalised-odds gaps). Groups with fewer than
+    ``min_group_size`` rows are ``too_small``: only ``n`` and ``events`` are given, the other
+    figures are None, and they take no part in the comparisons.
+
+    Parameters
+    ----------
+    attribute : str, optional
+        Name of the sensitive attribute for messages; defaults to ``groups.name`` when it is a
+        named ``pandas.Series``, else ``"group"``.
+
+    Returns
+    -------
+    list of dict
+        One per group, sorted by label as text, with keys ``group``, ``n``, ``events``,
+        ``too_small``, ``base_rate``, ``mean_predicted``, ``auc``,
+        ``calibration_in_the_large``, ``tpr``, ``fpr``, ``flag_rate``, ``favourable_rate``,
+        ``adverse_impact_ratio``, ``adverse_impact_numerator``, ``adverse_impact_denominator``,
+        ``adverse_impact_flag``, ``reference_group``, ``tpr_gap``, ``fpr_gap``, ``notes``.
+
+    Raises
+    ------
+    OddsmithError
+        If the attribute has a single group, has missing values, or an option is invalid.
+    """
+    y, p = metrics._validated(y, p)
+    _check_options(cutoff, min_group_size, favourable)
+    if attribute is None:
+        attribute = groups.name if isinstance(groups, pd.Series) and groups.name else "group"
+    labels = _group_labels(groups, y.shape[0], str(attribute))
+    distinct = sorted(set(labels.tolist()))
+    if len(distinct) == 1:
+        raise OddsmithError(
+            f"sensitive attribute '{attribute}' has a single group '{distinct[0]}'; "
+            "nothing to compare"
+        )
+    rows, favourable_counts = [], {}
+    for label in distinct:
+        mask = labels == label
+        row, count = _group_row(label, y[mask], p[mask], cutoff, favourable, min_group_size)
+        rows.append(row)
+        if count is not None:
+            favourable_counts[label] = count
+    _add_comparisons(rows, favourable_counts)
+    return rows
