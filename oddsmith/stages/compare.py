@@ -76,8 +76,8 @@ def _paired(selected: str, cvs: dict, oofs: dict, metric: str) -> list[dict]:
             continue
         pairs = [(f, base_folds[(f["repeat"], f["fold"])]) for f in cv["folds"] if (f["repeat"], f["fold"]) in base_folds]
         diffs = [a[metric] - b[metric] for a, b in pairs if a[metric] is not None and b[metric] is not None]
-        n_test = float(np.mean([a["n"] for a, _ in pairs]))
-        n_train = float(np.mean([a["n_train"] for a, _ in pairs]))
+        n_test = round(float(np.mean([a["n"] for a, _ in pairs])))
+        n_train = round(float(np.mean([a["n_train"] for a, _ in pairs])))
         ttest = metrics.corrected_resampled_ttest(diffs, n_train=n_train, n_test=n_test)
         other = oofs[name]
         if not np.array_equal(other["id"].to_numpy(), sel_oof["id"].to_numpy()):

@@ -21,9 +21,15 @@ TABLE_CUTOFFS = (0.05, 0.10, 0.15, 0.20, 0.25, 0.30, 0.40, 0.50, 0.60, 0.70)
 PERIOD_CODES = {"quarter": "Q", "month": "M", "year": "Y"}
 
 
+def flagged(p: np.ndarray, cutoff) -> np.ndarray:
+    """Flag when p >= cutoff; a cut-off of None means flag none."""
+    return np.zeros(p.shape, dtype=bool) if cutoff is None else p >= cutoff
+
+
 def _cutoff_table(y, p, choice: dict) -> list[dict]:
     marks = {round(c, 6): "" for c in TABLE_CUTOFFS}
-    marks[round(choice["adopted_cutoff"], 6)] = "adopted"
+    if choice["adopted_cutoff"] is not None:
+        marks[round(choice["adopted_cutoff"], 6)] = "adopted"
     marks.setdefault(round(choice["bayes"]["cutoff"], 6), "Bayes")
     rows = []
     for cutoff in sorted(marks):
@@ -40,7 +46,7 @@ def _periods(dates: pd.Series, y, p, cutoff: float, period: str) -> list[dict]:
         m = labels == label
         row = {"period": label, "n": int(m.sum()), "events": int(y[m].sum()),
                "mean_predicted": float(p[m].mean()), "observed_rate": float(y[m].mean()),
-               "flag_rate": float((p[m] >= cutoff).mean()), "log_loss": metrics.log_loss(y[m], p[m]),
+               "flag_rate": float(flagged(p[m], cutoff).mean()), "log_loss": metrics.log_loss(y[m], p[m]),
                "brier": metrics.brier(y[m], p[m]), "auc": None}
         if 0 < y[m].sum() < m.sum():
             row["auc"] = metrics.auc(y[m], p[m])
@@ -75,10 +81,11 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
     for kind in ("sensitive", "segments"):
         for name in fairness[kind]:
             groups[name] = {"kind": kind, "used_as_feature": name in feature_names, "rows": subgroup_table(
-                y, p, test[name].astype(str).to_numpy(), cutoff=cutoff, min_group_size=fairness["min_group_size"])}
-    log.info("test AUC %.4f (n=%d), cut-off %.4f", result["overall"]["auc"] or float("nan"), len(y), cutoff)
+                y, p, test[name].astype(str).to_numpy(), cutoff=cutoff, min_group_size=fairness["min_group_size"],
+                attribute=name)}
+    log.info("test AUC %s (n=%d), cut-off %s", result["overall"]["auc"], len(y), cutoff)
     predictions = pd.DataFrame({"id": test[data["id_column"]].to_numpy(), "y": y, "p": p,
-                                "flagged": (p >= cutoff).astype("int8")})
+                                "flagged": flagged(p, cutoff).astype("int8")})
     write_parquet(out_predictions, predictions)
     write_json(out_metrics, result)
     write_json(out_subgroups, {"min_group_size": fairness["min_group_size"], "attributes": groups,

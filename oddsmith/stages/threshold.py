@@ -24,7 +24,7 @@ def run_threshold(*, selected_path: str, oof_paths: dict, costs: dict, out_choic
     choice["candidate"] = selected
     choice["source"] = "out-of-fold predictions of the selected candidate on the training part"
     choice["cost_units"] = {k: costs[k] for k in COST_KEYS if k in costs}
-    log.info("adopted %s cut-off %.4f: %s", choice["adopted"], choice["adopted_cutoff"], choice["reason"])
+    log.info("adopted %s cut-off %s: %s", choice["adopted"], choice["adopted_cutoff"], choice["reason"])
     write_parquet(out_curve, cost_curve(y, p, costs=money))
     write_json(out_choice, choice)
     return choice
