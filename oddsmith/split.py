@@ -558,7 +558,7 @@ def _drift_warnings(result: dict, method: str) -> list[str]:
 
 
 def _description(settings: dict, detail: dict) -> str:
-    share = f"{settings['test_fraction']:.0%}"
+    share = f"{settings['test_fraction'] * 100:g}%"
     method = settings["method"]
     if method == "stratified":
         return (
