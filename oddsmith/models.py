@@ -65,9 +65,8 @@ _OPTION_KEYS = {
 }
 _LINK_OF_KIND = {"probit": "probit", "cloglog": "cloglog"}
 _LIBRARIES = ("numpy", "scipy", "pandas", "statsmodels", "scikit-learn")
-# A fitted probability this close to 0 or 1 means the likelihood is being pushed to a
-# boundary; the fit is then checked for separation.
-_EXTREME_PROBABILITY = 1e-12
+# Fitted probabilities this close to 0 or 1 are reported in the model's warnings.
+_EXTREME_PROBABILITY = 1e-15
 
 
 @dataclass
@@ -90,7 +89,8 @@ class FittedModel:
     penalty : dict or None
         Penalised kinds: ``C`` (chosen inverse strength), ``l1_ratio``, ``grid`` (inverse
         strengths tried, ascending), ``inner_folds``, ``inner_cv_log_loss`` (mean over inner
-        folds, one per grid value), ``seed`` and ``solver``.
+        folds, one per grid value), ``inner_cv_converged`` (whether every inner fit at
+        that C converged; only those C are eligible), ``seed`` and ``solver``.
     coef_table : list of dict
         Baseline and ML kinds: one row per term, see ``COEF_TABLE_KEYS``.
     warnings : list of str
@@ -502,8 +502,9 @@ def _fit_maximum_likelihood(values: np.ndarray, outcome: np.ndarray, names: list
     _raise_if_single_column_separation(values, outcome, names, kind=kind)
     exog = np.column_stack([np.ones(values.shape[0]), values])
     result, trouble = _statsmodels_fit(exog, outcome, kind=kind, max_iter=max_iter)
-    notes = []
     if trouble:
+        # Separation always shows as non-convergence (the coefficients keep growing), so the
+        # exact (and slower) linear-programming check runs only when something went wrong.
         separating = _separating_columns(values, outcome, names)
         if separating:
             raise FitError(_separation_message(kind, separating, single=False))
@@ -512,7 +513,8 @@ def _fit_maximum_likelihood(values: np.ndarray, outcome: np.ndarray, names: list
         if not result.mle_retvals.get("converged", False):
             raise FitError(f"{kind} fit did not converge in max_iter={max_iter} Newton "
                            f"iterations ({'; '.join(trouble)})")
-        notes.append(f"fit accepted after checks found no separation: {'; '.join(trouble)}")
+    notes = [f"fit converged despite: {t}" for t in trouble] + _boundary_note(result, exog,
+                                                                              kind=kind)
     return _ml_model(result, outcome, names, kind=kind, notes=notes)
 
 
@@ -535,21 +537,22 @@ def _statsmodels_fit(exog: np.ndarray, outcome: np.ndarray, *, kind: str,
             result = model.fit(method="newton", maxiter=max_iter, **fit_options)
         except (np.linalg.LinAlgError, ValueError, OverflowError) as exc:
             return None, [f"{type(exc).__name__}: {exc}"]
-    trouble = sorted({f"{w.category.__name__}: {w.message}" for w in caught})
-    return result, trouble + _boundary_signs(result, exog, kind=kind)
-
-
-def _boundary_signs(result, exog: np.ndarray, *, kind: str) -> list[str]:
-    signs = []
+    # Overflow inside the library's exp() is harmless on its own; it is not a sign.
+    trouble = sorted({f"{w.category.__name__}: {w.message}" for w in caught
+                      if not issubclass(w.category, RuntimeWarning)})
     if not result.mle_retvals.get("converged", False):
-        signs.append("Newton iterations did not converge")
+        trouble.append("Newton iterations did not converge")
     if not _finite_fit(result):
-        return signs + ["non-finite estimates or standard errors"]
+        trouble.append("non-finite estimates or standard errors")
+    return result, trouble
+
+
+def _boundary_note(result, exog: np.ndarray, *, kind: str) -> list[str]:
     fitted = inverse_link(_LINK_OF_KIND.get(kind, "logit"), exog @ result.params)
     at_edge = int(np.sum((fitted < _EXTREME_PROBABILITY) | (fitted > 1 - _EXTREME_PROBABILITY)))
-    if at_edge:
-        signs.append(f"{at_edge} fitted probabilities within {_EXTREME_PROBABILITY:g} of 0 or 1")
-    return signs
+    if not at_edge:
+        return []
+    return [f"{at_edge} fitted probabilities within {_EXTREME_PROBABILITY:g} of 0 or 1"]
 
 
 def _finite_fit(result) -> bool:
@@ -571,15 +574,63 @@ def _ml_model(result, outcome: np.ndarray, names: list[str], *, kind: str,
 
 
 def _coef_table(result, names: list[str], *, link: str) -> list[dict]:
-    """Wald table with average marginal effects (statsmodels ``get_margeff(at="overall")``)."""
-    params, bse = np.asarray(result.params), np.asarray(result.bse)
-    margins = result.get_margeff(at="overall", method="dydx")
-    ame, ame_se = np.asarray(margins.margeff), np.asarray(margins.margeff_se)
+    """Wald table (estimates, standard errors, 95% intervals) with average marginal effects."""
+    params = np.asarray(result.params, dtype=float)
+    bse = np.asarray(result.bse, dtype=float)
+    exog = np.asarray(result.model.exog, dtype=float)
+    ame, ame_se = average_marginal_effects(link, params, np.asarray(result.cov_params()), exog)
     rows = [_table_row(INTERCEPT_TERM, params[0], bse[0], link=link, ame=None)]
     for j, name in enumerate(names):
         rows.append(_table_row(name, params[j + 1], bse[j + 1], link=link,
                                ame=(ame[j], ame_se[j])))
     return rows
+
+
+def average_marginal_effects(link: str, params, cov, exog) -> tuple[np.ndarray, np.ndarray]:
+    """Average marginal effects dP/dx_j over the rows, with delta-method standard errors.
+
+    Parameters
+    ----------
+    link : {"logit", "probit", "cloglog"}
+    params : array_like, shape (k,)
+        Intercept first, then one coefficient per feature.
+    cov : array_like, shape (k, k)
+        Covariance matrix of ``params``.
+    exog : array_like, shape (n, k)
+        Design matrix whose first column is the intercept (all ones).
+
+    Returns
+    -------
+    ame, std_error : numpy.ndarray, shape (k - 1,)
+        One value per feature (the intercept has none). Each feature is treated as
+        continuous: AME_j = b_j * mean(f(eta)), f the derivative of the inverse link.
+    """
+    params, cov, exog = (np.asarray(a, dtype=float) for a in (params, cov, exog))
+    density, slope = _link_derivatives(link, exog @ params)
+    mean_density = density.mean()
+    ame = params[1:] * mean_density
+    # d AME_j / d b_k = [j == k] mean(f) + b_j mean(f'(eta) x_k)
+    jacobian = np.outer(params[1:], (slope[:, None] * exog).mean(axis=0))
+    jacobian[:, 1:] += mean_density * np.eye(params.size - 1)
+    variance = np.einsum("jk,kl,jl->j", jacobian, cov, jacobian)
+    return ame, np.sqrt(np.maximum(variance, 0.0))
+
+
+def _link_derivatives(link: str, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """First and second derivatives of the inverse link with respect to eta."""
+    if link == "logit":
+        p = scipy.special.expit(eta)
+        density = p * (1.0 - p)
+        return density, density * (1.0 - 2.0 * p)
+    if link == "probit":
+        density = scipy.stats.norm.pdf(eta)
+        return density, -eta * density
+    if link == "cloglog":
+        with np.errstate(over="ignore"):
+            exp_eta = np.exp(eta)
+            density = np.exp(eta - exp_eta)
+        return density, np.where(density > 0, density * (1.0 - exp_eta), 0.0)
+    raise ValueError(f"link must be one of {LINKS}, got {link!r}")
 
 
 # --------------------------------------------------------------------------------------
@@ -589,17 +640,16 @@ def _coef_table(result, names: list[str], *, link: str) -> list[dict]:
 
 def _raise_if_singular(values: np.ndarray, names: list[str], *, kind: str) -> None:
     """Raise FitError naming linearly dependent columns of [intercept, X]."""
-    labels = [INTERCEPT_TERM] + list(names)
-    exog = np.column_stack([np.ones(values.shape[0]), values])
-    norms = np.linalg.norm(exog, axis=0)
-    zero = [labels[j] for j in np.flatnonzero(norms == 0)]
-    if zero:
-        raise FitError(f"{kind}: singular design: columns {zero} are all zero")
-    unit = exog / norms
+    constant = values.min(axis=0) == values.max(axis=0)
+    problems = [f"column {name!r} is constant (collinear with the intercept)"
+                for name, c in zip(names, constant) if c]
+    kept = [name for name, c in zip(names, constant) if not c]
+    labels = [INTERCEPT_TERM] + kept
+    exog = np.column_stack([np.ones(values.shape[0]), values[:, ~constant]])
+    unit = exog / np.linalg.norm(exog, axis=0)
     eigen = np.linalg.eigvalsh(unit.T @ unit)
-    if eigen[0] > 1e-10 * eigen[-1]:  # condition number of X below 1e5: clearly full rank
-        return
-    problems = _dependent_sets(unit, labels)
+    if eigen[0] <= 1e-10 * eigen[-1]:  # condition number of X above 1e5: look closer
+        problems += _dependent_sets(unit, labels)
     if problems:
         raise FitError(f"{kind}: singular design (columns are linearly dependent)",
                        problems=problems)
@@ -614,8 +664,9 @@ def _dependent_sets(unit: np.ndarray, labels: list[str]) -> list[str]:
     for column in pivot[rank:]:
         weights = np.linalg.lstsq(unit[:, basis], unit[:, column], rcond=None)[0]
         partners = [labels[basis[k]] for k in np.flatnonzero(np.abs(weights) > 1e-6)]
-        if partners == [INTERCEPT_TERM]:
-            problems.append(f"column {labels[column]!r} is constant (collinear with the intercept)")
+        if labels[column] == INTERCEPT_TERM:
+            problems.append(f"columns {partners} add up to a constant (collinear with the "
+                            "intercept)")
         else:
             problems.append(f"column {labels[column]!r} is a linear combination of {partners}")
     return problems
@@ -689,7 +740,7 @@ def _lp_direction(signed: np.ndarray, p: int) -> np.ndarray | None:
     b_ub = np.zeros(n + 2 * p)
     a_eq = np.concatenate([signed.sum(axis=0), np.zeros(p)])[None, :]
     bounds = [(None, None)] * (p + 1) + [(0, None)] * p
-    solution = scipy.optimize.linprog(cost, A_ub=a_ub, b_ub=b_ub, A_eq=a_eq, b_eq=[1.0],
+    solution = scipy.optimize.linprog(cost, A_ub=a_ub, b_ub=b_ub, A_eq=a_eq, b_eq=[float(n)],
                                       bounds=bounds, method="highs")
     return solution.x[: p + 1] if solution.status == 0 else None
 
@@ -703,21 +754,27 @@ def _fit_penalised(values: np.ndarray, outcome: np.ndarray, names: list[str], *,
                    grid: list[float], inner_folds: int, l1_ratio: float, max_iter: int,
                    seed: int) -> FittedModel:
     notes = _penalised_notes(values, outcome, names)
-    losses, cv_notes = _inner_cv_log_loss(values, outcome, grid=grid, inner_folds=inner_folds,
-                                          l1_ratio=l1_ratio, max_iter=max_iter, seed=seed)
-    chosen = grid[int(np.argmin(losses))]  # ties go to the smaller C (stronger penalty)
-    estimator = _penalised_estimator(C=chosen, l1_ratio=l1_ratio, max_iter=max_iter, seed=seed)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        estimator.fit(values, outcome)
+    losses, converged = _inner_cv_log_loss(values, outcome, grid=grid, inner_folds=inner_folds,
+                                           l1_ratio=l1_ratio, max_iter=max_iter, seed=seed)
+    chosen = _choose_C(grid, losses, converged, kind=kind, max_iter=max_iter)
+    # Refit along the same warm-started path as the inner folds, up to the chosen C: a
+    # cold start at a weak penalty can stall when the classes are (nearly) separated.
+    path = grid[: grid.index(chosen) + 1]
+    estimator, caught = _fit_path(values, outcome, path, l1_ratio=l1_ratio, max_iter=max_iter,
+                                  seed=seed)
     if int(np.max(estimator.n_iter_)) >= max_iter:
         raise FitError(f"{kind} refit with C={chosen!r} did not converge in "
                        f"max_iter={max_iter} iterations; raise max_iter or check that X "
                        "is standardised")
-    notes += cv_notes + sorted({f"{w.category.__name__}: {w.message}" for w in caught})
+    skipped = [c for c, ok in zip(grid, converged) if not ok]
+    if skipped:
+        notes.append(f"C values {skipped} were not eligible: some inner-fold fits did not "
+                     f"converge in max_iter={max_iter} iterations")
+    notes += sorted({f"{w.category.__name__}: {w.message}" for w in caught})
     penalty = {"C": chosen, "l1_ratio": l1_ratio, "grid": list(grid),
                "inner_folds": inner_folds, "inner_cv_log_loss": [float(v) for v in losses],
-               "seed": seed, "solver": estimator.solver}
+               "inner_cv_converged": [bool(ok) for ok in converged], "seed": seed,
+               "solver": estimator.solver}
     return FittedModel(
         kind=kind, link="logit", feature_names=list(names),
         intercept=float(estimator.intercept_[0]),
@@ -728,26 +785,45 @@ def _fit_penalised(values: np.ndarray, outcome: np.ndarray, names: list[str], *,
     )
 
 
+def _choose_C(grid: list[float], losses: np.ndarray, converged: np.ndarray, *, kind: str,
+              max_iter: int) -> float:
+    """Smallest mean inner log loss among C values whose inner fits all converged.
+
+    Ties go to the smaller C (stronger penalty), the first in the ascending grid.
+    """
+    if not np.any(converged):
+        raise FitError(f"{kind}: no C in the grid {grid} converged in every inner fold "
+                       f"within max_iter={max_iter} iterations")
+    eligible = np.where(converged, losses, np.inf)
+    return grid[int(np.argmin(eligible))]
+
+
 def _penalised_estimator(*, C: float, l1_ratio: float, max_iter: int, seed: int):
     from sklearn.linear_model import LogisticRegression
 
-    # Pure L2 uses a Newton solver (exact and fast when rows far outnumber columns);
-    # any L1 part needs saga. Neither penalises the intercept.
-    solver = "newton-cholesky" if l1_ratio == 0.0 else "saga"
-    return LogisticRegression(C=C, l1_ratio=l1_ratio, solver=solver, max_iter=max_iter,
+    # Pure L2 uses a Newton solver (fast when rows far outnumber columns, so a tight
+    # tolerance costs an iteration or two); any L1 part needs saga, kept at its default
+    # tolerance for speed. Neither solver penalises the intercept.
+    if l1_ratio == 0.0:
+        return LogisticRegression(C=C, l1_ratio=0.0, solver="newton-cholesky", tol=1e-8,
+                                  max_iter=max_iter, random_state=seed)
+    return LogisticRegression(C=C, l1_ratio=l1_ratio, solver="saga", max_iter=max_iter,
                               random_state=seed)
 
 
 def _inner_cv_log_loss(values: np.ndarray, outcome: np.ndarray, *, grid: list[float],
                        inner_folds: int, l1_ratio: float, max_iter: int,
-                       seed: int) -> tuple[np.ndarray, list[str]]:
-    """Mean validation log loss per C over stratified inner folds of the given rows."""
+                       seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """Mean validation log loss per C over stratified inner folds of the given rows.
+
+    Returns the mean losses and, per C, whether the fits of every inner fold converged.
+    """
     from sklearn.metrics import log_loss
     from sklearn.model_selection import StratifiedKFold
 
     folds = StratifiedKFold(n_splits=inner_folds, shuffle=True, random_state=seed)
     losses = np.zeros((inner_folds, len(grid)))
-    slow = set()
+    converged = np.ones(len(grid), dtype=bool)
     for f, (train, valid) in enumerate(folds.split(values, outcome)):
         # Warm start along the grid, from strongest to weakest penalty.
         estimator = _penalised_estimator(C=grid[0], l1_ratio=l1_ratio, max_iter=max_iter,
@@ -758,13 +834,27 @@ def _inner_cv_log_loss(values: np.ndarray, outcome: np.ndarray, *, grid: list[fl
             with warnings.catch_warnings(record=True):
                 warnings.simplefilter("always")
                 estimator.fit(values[train], outcome[train])
-            if int(np.max(estimator.n_iter_)) >= max_iter:
-                slow.add(c)
+            converged[k] &= int(np.max(estimator.n_iter_)) < max_iter
             probabilities = estimator.predict_proba(values[valid])[:, 1]
             losses[f, k] = log_loss(outcome[valid], probabilities, labels=[0, 1])
-    notes = [f"inner-CV fits did not converge in max_iter={max_iter} for C in {sorted(slow)}"
-             ] if slow else []
-    return losses.mean(axis=0), notes
+    return losses.mean(axis=0), converged
+
+
+def _fit_path(values: np.ndarray, outcome: np.ndarray, path: list[float], *, l1_ratio: float,
+              max_iter: int, seed: int):
+    """Fit at each C of ``path`` in turn, each fit starting from the previous solution.
+
+    Returns the estimator and the warnings raised by the last fit.
+    """
+    estimator = _penalised_estimator(C=path[0], l1_ratio=l1_ratio, max_iter=max_iter,
+                                     seed=seed)
+    estimator.set_params(warm_start=True)
+    for c in path:
+        estimator.set_params(C=c)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            estimator.fit(values, outcome)
+    return estimator, caught
 
 
 def _penalised_notes(values: np.ndarray, outcome: np.ndarray, names: list[str]) -> list[str]:
@@ -773,5 +863,5 @@ def _penalised_notes(values: np.ndarray, outcome: np.ndarray, names: list[str]) 
         return []
     message = (f"separation by {separating}: unpenalised estimates would diverge; the "
                "penalty keeps these coefficients finite")
-    warnings.warn(message, SeparationWarning, stacklevel=3)
+    warnings.warn(message, SeparationWarning, stacklevel=4)
     return [message]
