@@ -12,7 +12,7 @@ import pandas as pd
 
 from oddsmith.contract import load_contract, read_raw, validate_frame
 from oddsmith.errors import ContractError
-from oddsmith.io import sha256_file, write_json, write_parquet, write_text
+from oddsmith.io import sha256_file, write_bytes_atomic, write_json, write_parquet, write_text
 
 log = logging.getLogger("oddsmith.validate")
 
@@ -108,8 +108,10 @@ def quality_profile(df: pd.DataFrame, *, id_column: str, target: str, n_paramete
     }
 
 
-def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: str, out_report: str, out_summary: str) -> dict:
-    """Check the raw data against contract and config; write the snapshot, report, summary."""
+def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: str, out_report: str, out_summary: str,
+                 out_contract: str | None = None) -> dict:
+    """Check the raw data against contract and config; write the snapshot, report, summary,
+    and a byte copy of the contract (so a results folder carries the contract it was checked by)."""
     contract = load_contract(contract_path)
     problems = config_contract_problems(config, contract)
     if problems:
@@ -134,6 +136,8 @@ def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: 
     write_parquet(out_data, df)
     write_json(out_report, report)
     write_text(out_summary, render_summary(report))
+    if out_contract:
+        write_bytes_atomic(out_contract, Path(contract_path).read_bytes())
     return report
 
 

@@ -6,6 +6,7 @@ rule validate:
         data="results/{run}/validated/data.parquet",
         report="results/{run}/validated/report.json",
         summary="results/{run}/validated/summary.txt",
+        contract="results/{run}/validated/contract.yaml",
         stamp="results/{run}/provenance/validate.json",
     params:
         config={k: CONFIG[k] for k in ("data", "features", "interactions", "fairness")}

@@ -12,4 +12,5 @@ stage(
     out_data=snakemake.output.data,  # noqa: F821
     out_report=snakemake.output.report,  # noqa: F821
     out_summary=snakemake.output.summary,  # noqa: F821
+    out_contract=snakemake.output.contract,  # noqa: F821
 )
