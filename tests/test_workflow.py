@@ -1,0 +1,117 @@
+"""End-to-end: the demo workflow on the invented data, built once per session in a temporary
+folder; then properties that can only be checked from the artifacts it writes."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+import yaml
+
+from conftest import copy_project, run_snakemake
+
+pytestmark = pytest.mark.e2e
+RUN = "results/lease_demo"
+
+
+def _json(project, path):
+    return json.loads((project / RUN / path).read_text())
+
+
+def test_every_stage_writes_its_artifacts(demo_build):
+    for path in ("validated/data.parquet", "validated/report.json", "split/assignment.parquet",
+                 "split/summary.json", "features/recipe.json", "features/diagnostics.json",
+                 "comparison/table.json", "comparison/selected.json", "threshold/choice.json",
+                 "threshold/cost_curve.parquet", "evaluation/metrics.json", "evaluation/subgroups.json",
+                 "evaluation/predictions.parquet"):
+        assert (demo_build / RUN / path).is_file(), path
+    cfg = yaml.safe_load((demo_build / "config" / "config.yaml").read_text())
+    for c in [c["name"] for c in cfg["candidates"]] + ["baseline"]:
+        for name in ("model.json", "cv.json", "oof.parquet"):
+            assert (demo_build / RUN / "candidates" / c / name).is_file(), (c, name)
+        assert (demo_build / "benchmarks/lease_demo/fit" / f"{c}.tsv").is_file(), "one job per candidate"
+
+
+def test_out_of_time_split_and_training_only_recipe(demo_build):
+    data = pd.read_parquet(demo_build / RUN / "validated/data.parquet")
+    assignment = pd.read_parquet(demo_build / RUN / "split/assignment.parquet")
+    assert (assignment["id"].to_numpy() == data["application_id"].to_numpy()).all()
+    dates = data["application_date"]
+    assert dates[assignment["part"] == "test"].min() >= dates[assignment["part"] == "train"].max()
+    recipe = _json(demo_build, "features/recipe.json")
+    assert recipe["n_training_rows"] == int((assignment["part"] == "train").sum())
+
+
+def test_every_candidate_used_the_same_folds(demo_build):
+    assignment = pd.read_parquet(demo_build / RUN / "split/assignment.parquet")
+    train = assignment[assignment["part"] == "train"]
+    fold_sizes = train["fold"].value_counts().sort_index().to_dict()
+    table = _json(demo_build, "comparison/table.json")
+    reference_ids = None
+    for row in table["rows"]:
+        name = row["candidate"]
+        oof = pd.read_parquet(demo_build / RUN / "candidates" / name / "oof.parquet")
+        if reference_ids is None:
+            reference_ids = oof["id"].to_numpy()
+        assert (oof["id"].to_numpy() == reference_ids).all(), name
+        assert (oof["id"].to_numpy() == train["id"].to_numpy()).all(), name
+        cv = _json(demo_build, f"candidates/{name}/cv.json")
+        if cv["status"] == "ok":
+            assert {f["fold"]: f["n"] for f in cv["folds"]} == fold_sizes, name
+
+
+def test_selection_is_explained_and_baseline_is_compared(demo_build):
+    table = _json(demo_build, "comparison/table.json")
+    names = [r["candidate"] for r in table["rows"]]
+    assert "baseline" in names and sum(r["selected"] for r in table["rows"]) == 1
+    selected = _json(demo_build, "comparison/selected.json")
+    assert selected["candidate"] in names and "standard error" in selected["reason"]
+    assert "Breiman" in table["rule_text"]
+    assert {p["candidate"] for p in table["paired_tests"]} == set(names) - {selected["candidate"]} - {
+        f["candidate"] for f in table["failed"]}
+    base = next(r for r in table["rows"] if r["candidate"] == "baseline")
+    chosen = next(r for r in table["rows"] if r["selected"])
+    assert chosen["log_loss_mean"] < base["log_loss_mean"]
+
+
+def test_test_predictions_come_from_the_selected_model(demo_build):
+    predictions = pd.read_parquet(demo_build / RUN / "evaluation/predictions.parquet")
+    metrics = _json(demo_build, "evaluation/metrics.json")
+    choice = _json(demo_build, "threshold/choice.json")
+    assert metrics["cutoff"] == choice["adopted_cutoff"]
+    flagged = predictions["p"] >= metrics["cutoff"]
+    c = metrics["confusion"]
+    assert c["tp"] == int((flagged & (predictions["y"] == 1)).sum())
+    assert c["fp"] == int((flagged & (predictions["y"] == 0)).sum())
+    assert metrics["n"] == len(predictions)
+
+
+def test_threshold_ignores_the_test_labels(demo_build, tmp_path):
+    """The cut-off is chosen on out-of-fold training predictions only: flipping every test
+    label leaves threshold/choice.json byte-identical."""
+    project = copy_project(tmp_path / "flipped")
+    data_path = project / "data_demo" / "lease_applications.csv"
+    df = pd.read_csv(data_path, dtype=str, keep_default_na=False)
+    test_rows = df["application_date"] >= "2025-07-01"
+    df.loc[test_rows, "serious_delinquency"] = np.where(df.loc[test_rows, "serious_delinquency"] == "1", "0", "1")
+    df.to_csv(data_path, index=False, lineterminator="\n")
+    run_snakemake(project, f"{RUN}/threshold/choice.json")
+    original = (demo_build / RUN / "threshold/choice.json").read_bytes()
+    assert (project / RUN / "threshold/choice.json").read_bytes() == original
+
+
+def test_stratified_split_config(tmp_path):
+    """A second configuration of the demo with a stratified split (up to the split stage)."""
+    project = copy_project(tmp_path / "stratified")
+    cfg_path = project / "config" / "config.yaml"
+    cfg = yaml.safe_load(cfg_path.read_text())
+    cfg["split"] = {"method": "stratified", "test_fraction": 0.3, "seed": 5}
+    cfg_path.write_text(yaml.safe_dump(cfg))
+    run_snakemake(project, f"{RUN}/split/summary.json")
+    summary = json.loads((project / RUN / "split/summary.json").read_text())
+    assert summary["method"] == "stratified"
+    parts = summary["parts"]
+    assert abs(parts["test"]["n"] / (parts["test"]["n"] + parts["train"]["n"]) - 0.3) < 0.001
+    assert abs(parts["test"]["base_rate"] - parts["train"]["base_rate"]) < 0.002
