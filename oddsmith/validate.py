@@ -122,6 +122,13 @@ def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: 
         raw, contract, id_column=data["id_column"], target=data["target"],
         positive_label=data["positive_label"], extra_columns=data["extra_columns"], source=str(data_path),
     )
+    problems = [
+        f"fairness: attribute '{name}' has a single group {sorted(df[name].dropna().unique().tolist())}; nothing to compare"
+        for name in config["fairness"]["sensitive"] + config["fairness"]["segments"]
+        if df[name].nunique(dropna=True) < 2
+    ]
+    if problems:
+        raise ContractError(f"{data_path}: the groups to assess cannot be compared", problems)
     report = quality_profile(df, id_column=data["id_column"], target=data["target"],
                              n_parameters=planned_parameters(config, contract))
     report["source"] = {"path": str(data_path), "sha256": sha256_file(data_path), "contract": str(contract_path),

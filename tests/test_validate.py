@@ -182,3 +182,8 @@ def test_workflow_refuses_bad_config(project):
     result = run_snakemake(project, "--dry-run", check=False)
     assert result.returncode != 0
     assert "'surprise' was unexpected" in result.stderr + result.stdout
+
+
+def test_sensitive_attribute_with_one_group(cfg, tmp_path):
+    frame = _demo_frame().assign(owner_age_band="35-49")
+    _expect_failure(cfg, tmp_path, _write(tmp_path, frame), "attribute 'owner_age_band' has a single group ['35-49']")
