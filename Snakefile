@@ -13,8 +13,11 @@ include: "rules/validate.smk"
 include: "rules/split.smk"
 include: "rules/fit.smk"
 include: "rules/decide.smk"
+include: "rules/score.smk"
+include: "rules/manifest.smk"
 
 
 rule all:
     input:
         f"results/{RUN}/evaluation/metrics.json",
+        SCORING_OUTPUTS,

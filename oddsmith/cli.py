@@ -39,6 +39,10 @@ def build_parser() -> argparse.ArgumentParser:
 
 _REGISTRARS: list = []
 
+from oddsmith import verify as _verify  # noqa: E402 (subcommands register themselves below)
+
+_REGISTRARS += [_verify.register]
+
 
 def main(argv=None) -> int:
     parser = build_parser()

@@ -1,9 +1,13 @@
 # Shared helpers: the checked configuration, the run name, code fingerprints, resources.
+import os
 import sys
+
+from snakemake.io import get_wildcard_names, strip_wildcard_constraints
 
 from oddsmith.config import check_config
 from oddsmith.errors import ConfigError
-from oddsmith.runner import code_fingerprint
+from oddsmith.manifest import build_info, environment, source_date_epoch
+from oddsmith.runner import code_fingerprint, params_hash
 
 try:
     CONFIG = check_config(config, project_dir=".")
@@ -29,3 +33,51 @@ def code(*modules, script):
     """Fingerprint of the package modules a rule runs plus its script (principle 1)."""
     base = ("runner", "io", "errors")
     return code_fingerprint(base + modules, extra_files=[script])
+
+
+# Build facts for the manifest, computed once per invocation.
+_EPOCH, _EPOCH_SOURCE = source_date_epoch(workflow.basedir)
+if _EPOCH_SOURCE.startswith("fallback"):
+    print(
+        f"oddsmith: SOURCE_DATE_EPOCH not set and no git history; dates use {_EPOCH_SOURCE}",
+        file=sys.stderr,
+    )
+# Every job inherits the same reference time (fontTools and the card read it).
+os.environ.setdefault("SOURCE_DATE_EPOCH", str(_EPOCH))
+BUILD = build_info(workflow.basedir)
+ENVIRONMENT = environment()
+
+
+def stamps(run):
+    """Stamp paths of every job of the run: one per rule with a ``stamp`` output, one per
+    candidate for per-candidate rules (rules defined in any included file are found)."""
+    paths = []
+    for rule_ in sorted(workflow.rules, key=lambda r: r.name):
+        pattern = rule_.output.get("stamp")
+        if pattern is None:
+            continue
+        pattern = strip_wildcard_constraints(pattern)
+        names = get_wildcard_names(pattern)
+        if names == {"run"}:
+            paths += expand(pattern, run=run)
+        elif names == {"run", "candidate"}:
+            paths += expand(pattern, run=run, candidate=CANDIDATES)
+    return sorted(set(paths))
+
+
+def config_files():
+    """The configuration files this build read, relative to the project (in load order)."""
+    rel = [os.path.relpath(os.path.abspath(p)) for p in workflow.configfiles]
+    return list(dict.fromkeys(rel))
+
+
+def rule_fingerprint(name):
+    """Params hash and code fingerprint of the named rule, or None when it is not defined.
+
+    Lets the manifest record what will render the card, which writes no stamp of its own.
+    """
+    found = [r for r in workflow.rules if r.name == name]
+    if not found:
+        return None
+    params = dict(found[0].params.items())
+    return {"params_sha256": params_hash(params), "code_sha256": params.get("code")}

@@ -1,0 +1,270 @@
+"""The provenance manifest of a run: every artifact's SHA-256 joined with the stamp of the job
+that wrote it, plus the raw inputs, the resolved configuration and the environment.
+
+``results/<run>/manifest.json`` is written by the ``manifest`` rule after every other stage
+except the card. It covers every file under ``results/<run>/`` except ``card/`` (rendered
+after it) and itself; the card prints the manifest's SHA-256 and ``card/card.sha256`` binds
+the card's files to that hash. Every path in it is relative (artifacts to the run folder,
+raw inputs to the project), keys are sorted and nothing depends on the clock, the folder or
+the host, so two clean builds of the same inputs give the same bytes.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import importlib.metadata
+import json
+import logging
+import os
+import platform
+import re
+import stat
+import subprocess
+from pathlib import Path, PurePosixPath
+
+from oddsmith.errors import ManifestError
+from oddsmith.io import canonical_json, sha256_file
+
+log = logging.getLogger("oddsmith.manifest")
+
+FORMAT_NAME = "oddsmith-manifest"
+FORMAT_VERSION = 1
+FORMAT = f"{FORMAT_NAME}/{FORMAT_VERSION}"
+MANIFEST_NAME = "manifest.json"
+CARD_DIR = "card"
+#: Environment variable through which ``oddsmith verify --rebuild`` carries the recorded git
+#: state into a rebuild made from a copy of the checkout (which has no repository).
+GIT_OVERRIDE_ENV = "ODDSMITH_BUILD_GIT"
+#: Temporary files of ``oddsmith.io``'s atomic writers (``.<name>.<random>.part``): left
+#: behind only by a killed write, never an artifact.
+PARTIAL_WRITE = re.compile(r"^\..+\.part$")
+_HEX64 = re.compile(r"^[0-9a-f]{64}$")
+
+
+def unsafe_path_reason(path) -> str | None:
+    """Why ``path`` may not name a file inside a folder, or None when it is a plain relative path.
+
+    Examples
+    --------
+    >>> unsafe_path_reason("candidates/lasso/model.json") is None
+    True
+    >>> unsafe_path_reason("../secrets.txt")
+    'contains ..'
+    """
+    if not isinstance(path, str) or not path:
+        return "is not a non-empty string"
+    if "\\" in path or "\0" in path:
+        return "contains a backslash or NUL"
+    if path.startswith("/") or re.match(r"^[A-Za-z]:", path):
+        return "is absolute"
+    parts = PurePosixPath(path).parts
+    if ".." in path.split("/"):
+        return "contains .."
+    if any(p in ("", ".") for p in path.split("/")) or not parts:
+        return "has an empty or '.' component"
+    return None
+
+
+def is_hex_digest(value) -> bool:
+    """True for a 64-character lowercase hex SHA-256."""
+    return isinstance(value, str) and bool(_HEX64.match(value))
+
+
+def git_state(project_dir: str | Path = ".") -> dict | None:
+    """The commit checked out in ``project_dir`` and whether the work tree differs from it.
+
+    Returns None outside a git repository (or without git). ``dirty`` counts modified,
+    staged, deleted and untracked files that are not ignored.
+    """
+    override = os.environ.get(GIT_OVERRIDE_ENV)
+    if override is not None:
+        return _git_override(override)
+    commit = _git(project_dir, "rev-parse", "HEAD")
+    if commit is None:
+        return None
+    status = _git(project_dir, "status", "--porcelain")
+    return {"commit": commit, "dirty": bool(status)}
+
+
+def _git_override(text: str) -> dict | None:
+    try:
+        value = json.loads(text)
+    except json.JSONDecodeError:
+        raise ManifestError(f"{GIT_OVERRIDE_ENV} must be JSON (null or {{\"commit\", \"dirty\"}}), got {text!r}") from None
+    if value is None:
+        return None
+    if not (isinstance(value, dict) and set(value) == {"commit", "dirty"} and isinstance(value["dirty"], bool)):
+        raise ManifestError(f"{GIT_OVERRIDE_ENV} must be null or {{\"commit\": ..., \"dirty\": true|false}}, got {text!r}")
+    return value
+
+
+def _git(project_dir, *args) -> str | None:
+    try:
+        done = subprocess.run(["git", "-C", str(project_dir), *args], capture_output=True, text=True,
+                              timeout=30, check=False)
+    except (OSError, subprocess.TimeoutExpired):
+        return None
+    return done.stdout.strip() if done.returncode == 0 else None
+
+
+def source_date_epoch(project_dir: str | Path = ".") -> tuple[int, str]:
+    """The build's reference time and where it came from.
+
+    ``SOURCE_DATE_EPOCH`` from the environment if set, else the time of the last commit,
+    else 0 (1970-01-01), which the caller should announce.
+    """
+    text = os.environ.get("SOURCE_DATE_EPOCH", "").strip()
+    if text:
+        if not text.isdigit():
+            raise ManifestError(f"SOURCE_DATE_EPOCH must be a whole number of seconds, got {text!r}")
+        return int(text), "environment variable SOURCE_DATE_EPOCH"
+    committed = _git(project_dir, "log", "-1", "--format=%ct")
+    if committed and committed.isdigit():
+        return int(committed), "time of the last commit"
+    return 0, "fallback 0 (no SOURCE_DATE_EPOCH and no git history)"
+
+
+def build_info(project_dir: str | Path = ".") -> dict:
+    """``{"source_date_epoch": int, "git": {"commit", "dirty"} | None}`` for this build."""
+    epoch, _ = source_date_epoch(project_dir)
+    return {"source_date_epoch": epoch, "git": git_state(project_dir)}
+
+
+def environment() -> dict:
+    """Python version, platform (system and machine only) and every installed distribution."""
+    libraries = {}
+    for dist in importlib.metadata.distributions():
+        name = dist.metadata["Name"]
+        if name:
+            libraries.setdefault(_canonical_name(name), dist.version)
+    return {
+        "python": platform.python_version(),
+        "platform": f"{platform.system()}-{platform.machine()}",
+        "libraries": dict(sorted(libraries.items())),
+    }
+
+
+def _canonical_name(name: str) -> str:
+    return re.sub(r"[-_.]+", "-", name).lower()
+
+
+def config_sha256(config: dict) -> str:
+    """SHA-256 of the configuration's canonical JSON."""
+    return hashlib.sha256(canonical_json(config)).hexdigest()
+
+
+def run_files(run_dir: str | Path) -> tuple[list[str], list[str], list[str]]:
+    """Walk a run folder without following links.
+
+    Returns ``(files, partial_writes, problems)``: the relative paths of regular files outside
+    ``card/`` and other than the manifest, the leftovers of interrupted atomic writes, and
+    one line per symlink or special file.
+    """
+    run_dir = Path(run_dir)
+    files, partial, problems = [], [], []
+    for dirpath, dirnames, filenames in os.walk(run_dir, followlinks=False):
+        rel_dir = Path(dirpath).relative_to(run_dir)
+        if rel_dir == Path("."):
+            dirnames[:] = [d for d in dirnames if d != CARD_DIR]
+        for name in sorted(dirnames + filenames):
+            full = Path(dirpath) / name
+            rel = (rel_dir / name).as_posix()
+            mode = full.lstat().st_mode
+            if stat.S_ISLNK(mode):
+                problems.append(f"{rel} is a symlink (to {os.readlink(full)}); a results folder holds only regular files")
+            elif stat.S_ISDIR(mode):
+                continue
+            elif not stat.S_ISREG(mode):
+                problems.append(f"{rel} is not a regular file")
+            elif PARTIAL_WRITE.match(name):
+                partial.append(rel)
+            elif rel != MANIFEST_NAME:
+                files.append(rel)
+    return sorted(files), sorted(partial), problems
+
+
+def _run_relative(path: str, prefix: str) -> str | None:
+    return path[len(prefix):] if path.startswith(prefix) else None
+
+
+def _file_entries(run: str, run_dir: Path, stamps: list[str | Path]) -> tuple[dict, dict]:
+    """One entry per file claimed by a stamp (its outputs and the stamp itself), and the
+    output hashes the stamps recorded."""
+    prefix = f"results/{run}/"
+    entries, recorded = {}, {}
+    for stamp_path in stamps:
+        stamp_path = Path(stamp_path)
+        stamp = json.loads(stamp_path.read_text(encoding="utf-8"))
+        stamp_rel = stamp_path.relative_to(run_dir).as_posix()
+        links = {
+            "rule": stamp["rule"],
+            "stamp": stamp_rel,
+            "inputs": dict(sorted(stamp["inputs"].items())),
+            "params_sha256": stamp["params_sha256"],
+            "code_sha256": stamp["code_sha256"],
+        }
+        for output in [*stamp["outputs"], prefix + stamp_rel]:
+            rel = _run_relative(output, prefix)
+            if rel is None or unsafe_path_reason(rel):
+                raise ManifestError(f"stamp {stamp_rel} names an output outside results/{run}/: {output!r}")
+            if rel in entries:
+                raise ManifestError(f"{rel} is claimed by two stamps: {entries[rel]['stamp']} and {stamp_rel}")
+            entries[rel] = dict(links)
+            recorded[rel] = stamp["outputs"].get(output)
+    return entries, recorded
+
+
+def raw_input_entries(paths, *, project_dir: str | Path = ".") -> dict:
+    """``{project-relative path: {"sha256", "size"}}`` of the raw data, contract and config files."""
+    project_dir = Path(project_dir).resolve()
+    entries = {}
+    for path in paths:
+        full = (project_dir / path).resolve()
+        rel = Path(os.path.relpath(full, project_dir)).as_posix()
+        entries[rel] = {"sha256": sha256_file(full), "size": full.stat().st_size}
+    return dict(sorted(entries.items()))
+
+
+def build_manifest(*, run: str, run_dir: str | Path, stamps, raw_inputs, config: dict, build: dict,
+                   card_rule: dict | None = None, project_dir: str | Path = ".") -> dict:
+    """Assemble the manifest of ``run_dir`` (``results/<run>``) from the job stamps.
+
+    Every regular file in the folder (outside ``card/``) must be claimed by a stamp of this
+    build; a file no stamp claims (a leftover of an earlier configuration) is an error, so a
+    stale artifact can never ride along under a fresh manifest. Leftovers of interrupted
+    atomic writes are deleted.
+    """
+    run_dir = Path(run_dir)
+    on_disk, partial, problems = run_files(run_dir)
+    for rel in partial:
+        log.info("removing %s, left by an interrupted write", rel)
+        (run_dir / rel).unlink()
+    claimed, recorded = _file_entries(run, run_dir, stamps)
+    problems += [f"{rel} is in the results folder but no job of this build wrote it "
+                 "(left over from an earlier configuration? delete it)"
+                 for rel in on_disk if rel not in claimed]
+    problems += [f"{rel} is recorded by stamp {claimed[rel]['stamp']} but missing" for rel in claimed if rel not in on_disk]
+    if problems:
+        raise ManifestError(f"cannot write the manifest of {run_dir}", problems)
+    files = {}
+    for rel in on_disk:
+        full = run_dir / rel
+        files[rel] = {"sha256": sha256_file(full), "size": full.stat().st_size} | claimed[rel]
+        if recorded[rel] is not None and recorded[rel] != files[rel]["sha256"]:
+            problems.append(f"{rel} changed after its job finished: stamp {claimed[rel]['stamp']} "
+                            f"recorded {recorded[rel]}, found {files[rel]['sha256']}")
+    if problems:
+        raise ManifestError(f"cannot write the manifest of {run_dir}", problems)
+    return {
+        "format": FORMAT,
+        "run": run,
+        "config": config,
+        "config_sha256": config_sha256(config),
+        "files": files,
+        "raw_inputs": raw_input_entries(raw_inputs, project_dir=project_dir),
+        "environment": environment(),
+        "git": build["git"],
+        "source_date_epoch": build["source_date_epoch"],
+        "card_rule": card_rule,
+        "release": None,
+    }

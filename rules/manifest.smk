@@ -1,0 +1,24 @@
+rule manifest:
+    input:
+        stamps=lambda wildcards: stamps(wildcards.run),
+        data=CONFIG["data"]["path"],
+        contract=CONFIG["data"]["contract"],
+        configs=config_files(),
+    output:
+        manifest="results/{run}/manifest.json",
+    log:
+        "logs/{run}/manifest.log",
+    benchmark:
+        "benchmarks/{run}/manifest.tsv"
+    threads: 1
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
+    params:
+        config=CONFIG,
+        build=BUILD,
+        environment=ENVIRONMENT,
+        card_rule=lambda wildcards: rule_fingerprint("card"),
+        code=code("stages/manifest", "manifest", script="scripts/manifest.py"),
+    script:
+        "../scripts/manifest.py"

@@ -1,0 +1,11 @@
+"""Snakemake script of the manifest rule: hashes and provenance of every artifact of the run."""
+
+import os
+
+from oddsmith.runner import stage
+from oddsmith.stages.manifest import run_manifest
+
+sm = snakemake  # noqa: F821 (provided by Snakemake)
+stage(sm, run_manifest, run=sm.wildcards.run, run_dir=os.path.dirname(sm.output.manifest), stamps=list(sm.input.stamps),
+      raw_inputs=[sm.input.data, sm.input.contract, *sm.input.configs], config=sm.params.config,
+      build=sm.params.build, card_rule=sm.params.card_rule, out_manifest=sm.output.manifest)
