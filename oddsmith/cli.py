@@ -39,9 +39,9 @@ def build_parser() -> argparse.ArgumentParser:
 
 _REGISTRARS: list = []
 
-from oddsmith import verify as _verify  # noqa: E402 (subcommands register themselves below)
+from oddsmith import diff as _diff, release as _release, verify as _verify  # noqa: E402 (registrars below)
 
-_REGISTRARS += [_verify.register]
+_REGISTRARS += [_verify.register, _release.register, _diff.register]
 
 
 def main(argv=None) -> int:
