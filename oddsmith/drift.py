@@ -22,8 +22,14 @@ Bands
 
 from __future__ import annotations
 
+import logging
+from pathlib import Path
+from urllib.parse import unquote, urlsplit
+
 import numpy as np
 import pandas as pd
+
+from oddsmith.errors import OddsmithError
 
 EMPTY_BIN_POLICY = "add 0.5 to the count of every bin in both samples before taking shares"
 PSEUDO_COUNT = 0.5
@@ -210,3 +216,88 @@ def _missing_shares(development: pd.DataFrame, batch: pd.DataFrame, columns) -> 
         dev, new = float(development[name].isna().mean()), float(batch[name].isna().mean())
         out.append({"column": name, "development": dev, "batch": new, "shift": new - dev})
     return out
+
+
+# ---------------------------------------------------------------------------- the drift page
+
+
+def render_html(drift: dict, summary: dict, *, template_path, batch_name: str, stylesheet: str | None = None) -> str:
+    """The drift page as HTML (Jinja2, autoescape on); ``stylesheet`` is inlined CSS text.
+
+    The page has no external resource: styles are inlined, there are no images.
+    """
+    import jinja2
+
+    template_path = Path(template_path)
+    env = jinja2.Environment(loader=jinja2.FileSystemLoader(str(template_path.parent)), autoescape=True,
+                             undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
+    return env.get_template(template_path.name).render(drift=drift, summary=summary, batch_name=batch_name,
+                                                       stylesheet=stylesheet)
+
+
+class RefusedFetch(OddsmithError):
+    """A resource outside the output folder was requested while rendering."""
+
+
+def _fetcher_class():
+    from weasyprint.urls import FatalURLFetchingError, URLFetcher
+
+    class OutputFolderFetcher(URLFetcher):
+        """Fetch only ``file:`` URLs inside one folder; anything else stops the render."""
+
+        def __init__(self, folder, **kwargs):
+            super().__init__(allowed_protocols=("file",), **kwargs)
+            self.folder = Path(folder).resolve()
+            self.refused: list[str] = []
+
+        def fetch(self, url, headers=None):
+            if not self._inside(url):
+                self.refused.append(url)
+                raise FatalURLFetchingError(f"refused to fetch {url!r}: only files inside {self.folder} may be read")
+            return super().fetch(url, headers)
+
+        def _inside(self, url: str) -> bool:
+            parsed = urlsplit(url)
+            if parsed.scheme != "file" or parsed.netloc not in ("", "localhost"):
+                return False
+            path = Path(unquote(parsed.path)).resolve()
+            return path.is_file() and self.folder in path.parents
+
+    return OutputFolderFetcher
+
+
+def output_folder_fetcher(folder):
+    """A WeasyPrint URL fetcher that reads only files inside ``folder`` and refuses the rest."""
+    return _fetcher_class()(folder)
+
+
+def pdf_bytes(html: str, *, folder) -> bytes:
+    """Render the page to PDF bytes; deterministic for the same HTML and library versions.
+
+    The base URL is ``folder`` and the fetcher refuses every resource outside it; a refused
+    fetch fails the render (``RefusedFetch``). WeasyPrint's warnings go to the
+    ``oddsmith.drift`` logger.
+    """
+    import weasyprint
+
+    fetcher = output_folder_fetcher(folder)
+    _route_weasyprint_warnings()
+    try:
+        document = weasyprint.HTML(string=html, base_url=str(Path(folder).resolve()) + "/", url_fetcher=fetcher)
+        data = document.write_pdf(pdf_identifier=True)
+    except Exception as exc:  # WeasyPrint wraps fetch errors; report the refusal itself
+        if fetcher.refused:
+            raise RefusedFetch(f"the drift page asked for {fetcher.refused}; refused") from exc
+        raise
+    if fetcher.refused:
+        raise RefusedFetch(f"the drift page asked for {fetcher.refused}; refused")
+    return data
+
+
+def _route_weasyprint_warnings() -> None:
+    logger = logging.getLogger("weasyprint")
+    if not any(getattr(h, "_oddsmith", False) for h in logger.handlers):
+        handler = logging.StreamHandler()  # stderr: the rule's log when run by Snakemake
+        handler._oddsmith = True
+        handler.setLevel(logging.WARNING)
+        logger.addHandler(handler)

@@ -41,13 +41,15 @@ Policies for missing and unseen values
 CSV output
     Text cells (and header names) that begin with ``=``, ``+``, ``-``, ``@``, a tab or a
     carriage return are prefixed with an apostrophe, so a spreadsheet shows them as text
-    instead of running them as formulas. Numeric columns are written as numbers and left
-    alone: a negative probability contribution such as ``-0.25`` is a number the writer
-    produced, never text from the data. The Parquet file holds the unaltered values.
+    instead of running them as formulas; every text cell is quoted. Numeric columns are
+    written as numbers and left alone: a negative contribution such as ``-0.25`` is a
+    number the writer produced, never text from the data. The Parquet file holds the
+    unaltered values.
 """
 
 from __future__ import annotations
 
+import csv
 import io
 from dataclasses import dataclass
 from pathlib import Path
@@ -387,12 +389,12 @@ def reason_reference(sm: ScoringModel, method: str = "training_mean") -> dict:
         partial = (_model_design_means(sm) * beta) @ W
         out["note"] = "partial score at the training mean of every design column"
     else:
-        X, _ = _design(sm, sm.training)
+        X, _ = design_matrix(sm, sm.training)
         scores = (X.to_numpy() * beta) @ W
         at = scores.argmin(axis=0) if len(names) else np.array([], dtype=int)
         partial = scores.min(axis=0) if len(names) else np.zeros(0)
         ids = sm.training[sm.id_column].to_numpy()
-        out["observed_at"] = {n: {"id": str(ids[i]), "value": _plain(sm.training[n].iloc[i])}
+        out["observed_at"] = {n: {"id": str(ids[i]), "value": json_value(sm.training[n].iloc[i])}
                               for n, i in zip(names, at.tolist())}
         out["note"] = "smallest partial score of each feature over the development training rows"
     out["partial"] = {n: float(v) for n, v in zip(names, partial)}
@@ -400,7 +402,8 @@ def reason_reference(sm: ScoringModel, method: str = "training_mean") -> dict:
     return out
 
 
-def _plain(value):
+def json_value(value):
+    """A typed cell as a JSON-ready value (None for missing, ISO text for a date)."""
     if value is None or value is pd.NA or (isinstance(value, float) and np.isnan(value)):
         return None
     if isinstance(value, pd.Timestamp):
@@ -408,7 +411,8 @@ def _plain(value):
     return value.item() if hasattr(value, "item") else value
 
 
-def _design(sm: ScoringModel, df: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+def design_matrix(sm: ScoringModel, df: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The model's design matrix and the recipe's per-row flags (through oddsmith.predict)."""
     # Index by id so that recipe errors name rows by their id.
     indexed = df.set_axis(pd.Index(df[sm.id_column].astype(str).to_numpy()), axis=0) \
         if sm.id_column in df.columns else df
@@ -478,7 +482,7 @@ def score_frame(sm: ScoringModel, df: pd.DataFrame, *, top_k: int = DEFAULT_TOP_
         per-row flags ``<feature>:filled`` / ``<feature>:unseen``.
     """
     reference = reference or reason_reference(sm)
-    X, flags = _design(sm, df)
+    X, flags = design_matrix(sm, df)
     eta = linear_predictor(sm.model, X)
     p = inverse_link(sm.link, eta)
     names, _ = feature_weights(sm.recipe, sm.model["design_columns"])
@@ -493,6 +497,12 @@ def score_frame(sm: ScoringModel, df: pd.DataFrame, *, top_k: int = DEFAULT_TOP_
     for column in flags.columns:
         frame[column] = flags[column].to_numpy()
     return frame
+
+
+def probabilities(sm: ScoringModel, df: pd.DataFrame) -> np.ndarray:
+    """Probabilities of the event for typed rows (the evaluate stage's path)."""
+    X, _ = design_matrix(sm, df)
+    return inverse_link(sm.link, linear_predictor(sm.model, X))
 
 
 def flagged(p: np.ndarray, cutoff) -> np.ndarray:
@@ -555,7 +565,8 @@ def neutralise_text(values: pd.Series) -> pd.Series:
 def csv_bytes(frame: pd.DataFrame) -> bytes:
     """The scored frame as UTF-8 CSV (``\\n`` line ends), text cells neutralised.
 
-    Numbers are written with Python's shortest round-trip form; a missing cell is empty.
+    Every text cell is quoted (so a carriage return inside one cannot split the row) and
+    numbers are not; numbers use Python's shortest round-trip form; a missing cell is ``""``.
     """
     out = frame.copy()
     for column in out.columns:
@@ -563,7 +574,7 @@ def csv_bytes(frame: pd.DataFrame) -> bytes:
             out[column] = neutralise_text(out[column])
     out.columns = neutralise_text(pd.Series(list(out.columns), dtype=object)).tolist()
     buf = io.StringIO()
-    out.to_csv(buf, index=False, lineterminator="\n")
+    out.to_csv(buf, index=False, lineterminator="\n", quoting=csv.QUOTE_NONNUMERIC)
     return buf.getvalue().encode("utf-8")
 
 
