@@ -15,9 +15,11 @@ include: "rules/fit.smk"
 include: "rules/decide.smk"
 include: "rules/score.smk"
 include: "rules/manifest.smk"
+include: "rules/card.smk"
 
 
 rule all:
     input:
-        f"results/{RUN}/evaluation/metrics.json",
+        f"results/{RUN}/card/model_card.pdf",
+        f"results/{RUN}/card/card.sha256",
         SCORING_OUTPUTS,

@@ -1,0 +1,691 @@
+"""The model card: every artifact of a run, formatted into one HTML document and its PDF.
+
+The card computes nothing statistical. It reads the JSON, YAML and SVG artifacts of a run
+folder and the run's ``manifest.json`` (configuration, file hashes, environment), checks
+stored values against stated rules of thumb to list caveats, and formats numbers with the
+fixed conventions in :data:`NUMBER_FORMATS`. Sections follow Mitchell et al., "Model Cards
+for Model Reporting" (FAT* 2019).
+
+Rendering is closed and deterministic: Jinja2 autoescapes every value; figures and the
+stylesheet are inlined (figures as ``data:`` URLs); WeasyPrint fetches through
+:class:`RunFolderFetcher`, which refuses anything but ``data:`` URLs and files inside the
+run folder and stops the render on a refusal; the PDF's dates come from the recorded
+``SOURCE_DATE_EPOCH`` and its identifier from its content.
+"""
+
+from __future__ import annotations
+
+import base64
+import contextlib
+import datetime as dt
+import logging
+import math
+import os
+from pathlib import Path
+from urllib.parse import unquote, urlsplit
+
+import yaml
+from jinja2 import Environment, FileSystemLoader, StrictUndefined
+from markupsafe import Markup, escape
+from weasyprint.urls import FatalURLFetchingError, URLFetcher
+
+from oddsmith.errors import ArtifactError, OddsmithError
+from oddsmith.io import read_json, sha256_bytes, sha256_file, write_bytes_atomic
+from oddsmith.plots import FIGURE_NAMES
+
+log = logging.getLogger("oddsmith.card")
+
+TEMPLATE_DIR = Path(__file__).resolve().parent.parent / "reports"
+TEMPLATE = "model_card.html.j2"
+STYLESHEET = "model_card.css"
+
+#: artifact key → path inside the run folder (everything the card reads besides models).
+ARTIFACTS = {
+    "manifest": "manifest.json",
+    "report": "validated/report.json",
+    "contract": "validated/contract.yaml",
+    "split": "split/summary.json",
+    "recipe": "features/recipe.json",
+    "diagnostics": "features/diagnostics.json",
+    "table": "comparison/table.json",
+    "selected": "comparison/selected.json",
+    "choice": "threshold/choice.json",
+    "metrics": "evaluation/metrics.json",
+    "subgroups": "evaluation/subgroups.json",
+}
+FIGURES = {name: f"figures/{name}.svg" for name in FIGURE_NAMES}
+
+#: Libraries named in the model details (the appendix lists every installed one).
+KEY_LIBRARIES = ("numpy", "scipy", "pandas", "statsmodels", "scikit-learn", "pyarrow", "matplotlib", "jinja2",
+                 "weasyprint", "snakemake")
+#: Calibration slope band treated as acceptable: common practice, not a statistical test.
+CALIBRATION_SLOPE_BAND = (0.8, 1.2)
+#: Events per estimated parameter below this draw a caveat (Peduzzi et al. 1996).
+MIN_EVENTS_PER_PARAMETER = 10
+#: Significance level for the Hosmer–Lemeshow caveat (common practice).
+HL_ALPHA = 0.05
+#: Free text longer than this is shortened on the card (the artifact keeps it whole).
+TEXT_LIMIT = 1200
+#: Names (columns, groups, candidates, terms) longer than this are shortened.
+NAME_LIMIT = 80
+
+SECTIONS = (
+    ("model-details", "1. Model details"),
+    ("intended-use", "2. Intended use and out-of-scope uses"),
+    ("factors", "3. Factors"),
+    ("metrics", "4. Metrics"),
+    ("data", "5. Training and evaluation data"),
+    ("analyses", "6. Quantitative analyses"),
+    ("ethics", "7. Ethical considerations and cautions"),
+    ("caveats", "8. Caveats and recommendations"),
+    ("method", "9. Method notes"),
+    ("appendix", "Appendix. Artifacts and their hashes"),
+)
+
+#: Printed verbatim on every card (DEVELOPERS.md, "Cautions carried by every card").
+CAUTIONS = (
+    "This model card supports, and does not replace, independent model validation. Using a "
+    "model to decide about people is subject to fair-lending, anti-discrimination, consumer "
+    "protection and, in clinical settings, clinical-governance rules, and to local law; those "
+    "duties remain with the people who deploy the model and with licensed professional "
+    "judgement. Subgroup figures are screening evidence for human review: passing the "
+    "four-fifths screen is not proof of fairness, and a flagged group calls for investigation. "
+    "The model is valid only for the population, period and decision described here."
+)
+
+NUMBER_FORMATS = (
+    "AUC, Gini, KS, calibration intercept and slope, adverse-impact ratios: 3 decimals",
+    "log loss and Brier score: 4 decimals",
+    "cut-offs: 4 decimals",
+    "coefficients, standard errors, intervals, odds ratios and marginal effects: 4 significant digits",
+    "rates and shares: percentages with 1 decimal",
+    "counts: whole numbers with thousands separators",
+    "costs: whole cost units with thousands separators",
+    "p-values: 3 decimals; below 0.001 shown as “< 0.001”",
+    "hashes: the first 12 hexadecimal digits of the SHA-256 (the full value is in the manifest)",
+)
+MINUS = "\u2212"
+MISSING = "—"
+
+
+class CardError(OddsmithError):
+    """The model card cannot be rendered (missing input, refused fetch, bad option)."""
+
+
+class RefusedFetch(FatalURLFetchingError):
+    """A fetch outside the run folder was attempted; WeasyPrint stops the render."""
+
+
+class RunFolderFetcher(URLFetcher):
+    """WeasyPrint URL fetcher that serves only ``data:`` URLs and files inside ``root``.
+
+    Every other URL (http, https, ftp, files elsewhere, symlinks leading out) is recorded
+    in ``refused`` and raises :class:`RefusedFetch`, which stops the render.
+    """
+
+    def __init__(self, root, **kwargs):
+        super().__init__(allowed_protocols=("data", "file"), allow_redirects=False, fail_on_errors=True, **kwargs)
+        self.root = Path(root).resolve()
+        self.refused: list[str] = []
+
+    def allows(self, url: str) -> bool:
+        """Whether ``url`` is a ``data:`` URL or names a file inside the root folder."""
+        parts = urlsplit(url)
+        scheme = parts.scheme.lower()
+        if scheme == "data":
+            return True
+        if scheme != "file" or parts.netloc not in ("", "localhost"):
+            return False
+        path = Path(unquote(parts.path)).resolve()
+        return path.is_file() and path.is_relative_to(self.root)
+
+    def fetch(self, url, headers=None):
+        if not self.allows(url):
+            self.refused.append(url)
+            raise RefusedFetch(f"refused to fetch {url!r}: only data: URLs and files inside {self.root} are allowed")
+        return super().fetch(url, headers)
+
+
+# ---------------------------------------------------------------------------------------------
+# number formats (one place, used by the template as filters and by the tests)
+
+
+def _minus(text: str) -> str:
+    return text.replace("-", MINUS)
+
+
+def _bad(x) -> bool:
+    return x is None or (isinstance(x, float) and not math.isfinite(x))
+
+
+def fmt_fixed(x, decimals: int = 3) -> str:
+    """Fixed decimals with thousands separators and a true minus sign.
+
+    Examples
+    --------
+    >>> fmt_fixed(1234.5678, 2), fmt_fixed(-0.0242, 3), fmt_fixed(None)
+    ('1,234.57', '−0.024', '—')
+    """
+    if _bad(x):
+        return MISSING
+    text = f"{x:,.{decimals}f}"
+    if text.lstrip("-").strip("0.,") == "":
+        text = text.lstrip("-")  # no "−0.000"
+    return _minus(text)
+
+
+def fmt_sig(x, digits: int = 4) -> str:
+    """``digits`` significant digits in positional notation (scientific below 1e-6 or from 1e9).
+
+    Examples
+    --------
+    >>> fmt_sig(-0.007672288), fmt_sig(1.4104893), fmt_sig(1544.1324), fmt_sig(0.0)
+    ('−0.007672', '1.410', '1,544', '0')
+    """
+    if _bad(x):
+        return MISSING
+    if x == 0:
+        return "0"
+    exponent = math.floor(math.log10(abs(x)))
+    if exponent < -6 or exponent >= 9:
+        return _minus(f"{x:.{digits - 1}e}")
+    return fmt_fixed(x, max(0, digits - 1 - exponent))
+
+
+def fmt_pct(x, decimals: int = 1) -> str:
+    """A share as a percentage: ``fmt_pct(0.39055) == '39.1%'``."""
+    return MISSING if _bad(x) else fmt_fixed(100 * x, decimals) + "%"
+
+
+def fmt_count(n) -> str:
+    """A count with thousands separators: ``fmt_count(12000) == '12,000'``."""
+    return MISSING if _bad(n) else _minus(f"{int(n):,}")
+
+
+def fmt_p(p) -> str:
+    """A p-value to 3 decimals, ``< 0.001`` below that."""
+    if _bad(p):
+        return MISSING
+    return "< 0.001" if p < 0.001 else f"{p:.3f}"
+
+
+def fmt_hash(h, length: int = 12) -> str:
+    """The first ``length`` hex digits of a hash."""
+    return MISSING if not h else str(h)[:length]
+
+
+def clip(text, limit: int = NAME_LIMIT) -> str:
+    """Shorten ``text`` to ``limit`` characters, saying how long it was.
+
+    Examples
+    --------
+    >>> clip("abcdefghij", 4)
+    'abc… [shortened; 10 characters in full]'
+    """
+    if text is None:
+        return MISSING
+    text = str(text)
+    if len(text) <= limit:
+        return text
+    return f"{text[: limit - 1]}… [shortened; {len(text):,} characters in full]"
+
+
+#: A run of this many characters without a space may be broken anywhere on the card.
+LONG_WORD = 24
+
+
+def clip_html(text, limit: int = NAME_LIMIT) -> Markup:
+    """:func:`clip`, escaped; text with a very long word is marked so the layout may break it."""
+    text = clip(text, limit)
+    if any(len(word) > LONG_WORD for word in text.split()):
+        return Markup('<span class="long">%s</span>') % text
+    return escape(text)
+
+
+FILTERS = {
+    "fixed": fmt_fixed, "sig": fmt_sig, "pct": fmt_pct, "count": fmt_count, "p": fmt_p, "short": fmt_hash,
+    "clip": clip_html, "cutoff": lambda x: fmt_fixed(x, 4) if x is not None else "none (flag no case)",
+    "cost": lambda x: fmt_fixed(x, 0), "metric": lambda x: fmt_fixed(x, 3), "loss": lambda x: fmt_fixed(x, 4),
+}
+
+
+# ---------------------------------------------------------------------------------------------
+# reading the run folder
+
+
+def load_run(run_dir) -> dict:
+    """Read every artifact the card needs from ``run_dir``.
+
+    Raises
+    ------
+    ArtifactError
+        Naming every missing or unreadable artifact at once.
+    """
+    run_dir = Path(run_dir)
+    if not run_dir.is_dir():
+        raise ArtifactError(f"run folder not found: {run_dir}")
+    wanted = {key: run_dir / rel for key, rel in ARTIFACTS.items()} | {
+        f"figure:{name}": run_dir / rel for name, rel in FIGURES.items()}
+    missing = [str(path) for path in wanted.values() if not path.is_file()]
+    if missing:
+        raise ArtifactError("the model card needs artifacts that are missing", [f"missing: {m}" for m in missing])
+    run = {"dir": run_dir, "manifest_sha256": sha256_file(wanted["manifest"])}
+    for key, path in wanted.items():
+        if key.startswith("figure:"):
+            continue
+        run[key] = _read_yaml(path) if path.suffix == ".yaml" else read_json(path)
+    run["figures"] = {name: (run_dir / rel).read_bytes() for name, rel in FIGURES.items()}
+    selected = run["selected"]["candidate"]
+    model_path = run_dir / "candidates" / selected / "model.json"
+    if not model_path.is_file():
+        raise ArtifactError(f"the model card needs the selected model, which is missing: {model_path}")
+    run["model"] = read_json(model_path)
+    run["config"] = _manifest_config(run["manifest"], wanted["manifest"])
+    return run
+
+
+def _read_yaml(path: Path):
+    try:
+        return yaml.safe_load(path.read_text(encoding="utf-8"))
+    except (yaml.YAMLError, UnicodeDecodeError) as exc:
+        raise ArtifactError(f"artifact {path} is not valid YAML: {exc}") from None
+
+
+def _manifest_config(manifest: dict, path: Path) -> dict:
+    problems = [f"key '{k}' is missing" for k in ("config", "files", "environment", "git") if k not in manifest]
+    config = manifest.get("config") or {}
+    if "card" not in config:
+        problems.append("key 'config.card' is missing")
+    if problems:
+        raise ArtifactError(f"manifest {path} cannot describe the run", problems)
+    return config
+
+
+# ---------------------------------------------------------------------------------------------
+# what the card says
+
+
+def card_dates(run: dict, release: dict | None) -> dict:
+    """The card's printed date and the PDF's creation timestamp, with their source.
+
+    The timestamp is the manifest's ``source_date_epoch``, else the ``SOURCE_DATE_EPOCH``
+    environment variable; the printed date is the release date, else ``card.date`` from the
+    configuration, else the day of that timestamp.
+    """
+    epoch, source = run["manifest"].get("source_date_epoch"), "the manifest's source_date_epoch"
+    if epoch is None and os.environ.get("SOURCE_DATE_EPOCH"):
+        epoch, source = os.environ["SOURCE_DATE_EPOCH"], "the SOURCE_DATE_EPOCH environment variable"
+    card_date = run["config"]["card"].get("date")
+    if epoch is None and card_date is None:
+        raise CardError("the card has no date: the manifest records no source_date_epoch, SOURCE_DATE_EPOCH is "
+                        "unset and config card.date is empty")
+    try:
+        stamp = (dt.datetime.fromtimestamp(int(epoch), dt.timezone.utc) if epoch is not None
+                 else dt.datetime.fromisoformat(str(card_date)).replace(tzinfo=dt.timezone.utc))
+    except ValueError:
+        raise CardError(f"card date cannot be read: source_date_epoch {epoch!r}, card.date {card_date!r}") from None
+    printed, printed_source = stamp.date().isoformat(), f"the day of {source}"
+    if card_date:
+        printed, printed_source = str(card_date), "config card.date"
+    if epoch is None:
+        source = "config card.date at 00:00 UTC"
+    if release:
+        printed, printed_source = str(release["released_at"]), "the release date"
+    return {"printed": printed, "printed_source": printed_source, "timestamp": stamp.strftime("%Y-%m-%dT%H:%M:%SZ"),
+            "timestamp_source": source, "epoch": int(stamp.timestamp())}
+
+
+def _check_release(release):
+    if release is None:
+        return None
+    if not isinstance(release, dict) or not release.get("version") or not release.get("released_at"):
+        raise CardError(f"release must be None or a dict with 'version' and 'released_at', got {release!r}")
+    try:
+        dt.date.fromisoformat(str(release["released_at"])[:10])
+    except ValueError:
+        raise CardError(f"release released_at must be an ISO date, got {release['released_at']!r}") from None
+    return {"version": str(release["version"]), "released_at": str(release["released_at"])}
+
+
+def code_state(git: dict) -> str:
+    """The state of the code in plain words, from the manifest's ``git`` record."""
+    commit = (git or {}).get("commit")
+    if not commit:
+        return "The code was not built from a git checkout: no commit identifies it."
+    if git.get("dirty"):
+        return (f"The code had uncommitted changes when this run was built (last commit {fmt_hash(commit)}); "
+                "that commit alone does not reproduce these results.")
+    return f"The code was committed, with no uncommitted changes: commit {fmt_hash(commit)}."
+
+
+def _finding(status: str, check: str, basis: str, found: str, advice: str = "") -> dict:
+    return {"status": status, "check": check, "basis": basis, "found": found, "advice": advice}
+
+
+def findings(run: dict) -> list[dict]:
+    """Checks of stored values against stated rules, in the order printed on the card.
+
+    Each is ``{"status": "attention" | "note" | "ok", "check", "basis", "found", "advice"}``.
+    """
+    out = [_epv_finding(run), *_calibration_findings(run), _subgroup_finding(run), *_group_size_findings(run),
+           _failed_finding(run), _leak_finding(run), _vif_finding(run), _drift_finding(run), *_decision_findings(run)]
+    diag = run["diagnostics"]
+    if diag["correlations"]["pairs"]:
+        pairs = "; ".join(f"{clip(p['a'])} and {clip(p['b'])} (r = {fmt_fixed(p['r'])})"
+                          for p in diag["correlations"]["pairs"])
+        out.append(_finding("note", "Strongly correlated design columns",
+                            f"|r| above {fmt_fixed(diag['correlations']['threshold'], 2)}", pairs,
+                            "Expected between a main effect and its interaction; otherwise read the two "
+                            "coefficients together, not one by one."))
+    warnings = [*run["report"].get("warnings", []), *run["split"].get("warnings", []),
+                *run["model"].get("warnings", []), *run["metrics"]["overall"].get("notes", [])]
+    if warnings:
+        out.append(_finding("note", "Warnings recorded by the stages", "artifact warnings",
+                            "; ".join(clip(w, 300) for w in warnings), "Read each warning in its artifact."))
+    git = run["manifest"].get("git") or {}
+    if git.get("dirty") or not git.get("commit"):
+        out.append(_finding("attention", "Code state", "manifest git record", code_state(git),
+                            "Commit the code and rebuild before this card is used for a decision."))
+    return out
+
+
+def _epv_finding(run):
+    diag = run["diagnostics"]
+    epv = diag["events_per_parameter"]
+    found = f"{fmt_fixed(epv, 1)} ({fmt_count(diag['events'])} events, {fmt_count(diag['n_parameters'])} parameters)"
+    if epv is not None and epv < MIN_EVENTS_PER_PARAMETER:
+        return _finding("attention", "Events per parameter (training)", f"at least {MIN_EVENTS_PER_PARAMETER}",
+                        found, "Too few events for the number of parameters: estimates may be unstable and "
+                        "optimistic. Reduce the parameters or collect more events.")
+    return _finding("ok", "Events per parameter (training)", f"at least {MIN_EVENTS_PER_PARAMETER}", found)
+
+
+def _calibration_findings(run):
+    overall = run["metrics"]["overall"]
+    low, high = CALIBRATION_SLOPE_BAND
+    slope = overall["calibration_slope"]
+    band = f"within [{fmt_fixed(low, 1)}, {fmt_fixed(high, 1)}]"
+    if slope is None or not low <= slope <= high:
+        slope_f = _finding("attention", "Calibration slope (test)", band, fmt_fixed(slope),
+                           "Predicted risks are too spread out (slope below the band) or too compressed "
+                           "(above it) on new data. Recalibrate on recent data before using the probabilities.")
+    else:
+        slope_f = _finding("ok", "Calibration slope (test)", band, fmt_fixed(slope))
+    hl = run["metrics"]["hosmer_lemeshow"]
+    found = f"C = {fmt_fixed(hl['statistic'], 2)}, df = {hl['df']}, p = {fmt_p(hl['p_value'])}"
+    if hl["p_value"] is not None and hl["p_value"] < HL_ALPHA:
+        hl_f = _finding("attention", "Hosmer–Lemeshow goodness of fit (test)", f"p at least {HL_ALPHA}", found,
+                        "Observed and predicted rates differ across risk deciles; inspect the reliability table.")
+    else:
+        hl_f = _finding("ok", "Hosmer–Lemeshow goodness of fit (test)", f"p at least {HL_ALPHA}", found)
+    return [slope_f, hl_f]
+
+
+def _subgroup_finding(run):
+    flagged = [f"{clip(attr)}: {clip(row['group'])} ({fmt_fixed(row['adverse_impact_ratio'])})"
+               for attr, block in run["subgroups"]["attributes"].items() for row in block["rows"]
+               if row.get("adverse_impact_flag")]
+    basis = "adverse-impact ratio at least 4/5"
+    if flagged:
+        return _finding("attention", "Groups below the four-fifths screen", basis, "; ".join(flagged),
+                        "Investigate why these groups are flagged more often: differences in the inputs, in "
+                        "the outcome, or in how the model treats them. Do not adjust the model automatically.")
+    return _finding("ok", "Groups below the four-fifths screen", basis, "none")
+
+
+def _group_size_findings(run):
+    out = []
+    min_size = run["subgroups"]["min_group_size"]
+    small = [f"{clip(attr)}: {clip(row['group'])} (n = {fmt_count(row['n'])})"
+             for attr, block in run["subgroups"]["attributes"].items() for row in block["rows"] if row.get("too_small")]
+    if small:
+        out.append(_finding("attention", "Groups too small to assess", f"at least {fmt_count(min_size)} test cases",
+                            "; ".join(small), "These groups were not screened; assess them on more data."))
+    used = [clip(attr) for attr, block in run["subgroups"]["attributes"].items()
+            if block["kind"] == "sensitive" and block.get("used_as_feature")]
+    if used:
+        out.append(_finding("attention", "Sensitive attribute used as a model input", "not used", ", ".join(used),
+                            "Confirm that using it is lawful and justified, and record who approved it."))
+    return out
+
+
+def _failed_finding(run):
+    failed = [r for r in run["table"]["rows"] if r.get("status") != "ok"]
+    if failed:
+        return _finding("attention", "Candidates that could not be fitted", "none failed",
+                        "; ".join(f"{clip(r['candidate'])}: {clip(r.get('reason'), 300)}" for r in failed),
+                        "Read the reasons (separation, non-convergence); the comparison excludes these candidates.")
+    return _finding("ok", "Candidates that could not be fitted", "none failed", "none")
+
+
+def _leak_finding(run):
+    leak = run["diagnostics"]["leakage"]
+    basis = f"single-feature AUC at most {fmt_fixed(leak['threshold'], 2)}"
+    if leak["suspected"]:
+        names = "; ".join(clip(s["feature"] if isinstance(s, dict) else s) for s in leak["suspected"])
+        return _finding("attention", "Suspected leaks", basis, names,
+                        "Check that these inputs are known before the outcome; remove them if not.")
+    return _finding("ok", "Suspected leaks", basis, "none")
+
+
+def _vif_finding(run):
+    vif = run["diagnostics"]["vif"]
+    basis = f"VIF at most {fmt_fixed(vif['threshold'], 0)} (rule of thumb)"
+    bad = [*(clip(v["column"] if isinstance(v, dict) else v) for v in vif["flagged"]),
+           *(clip(v) + " (perfectly collinear)" for v in vif.get("perfectly_collinear", []))]
+    if bad:
+        return _finding("attention", "Variance inflation", basis, "; ".join(bad),
+                        "Coefficients of these columns are imprecise; do not read them one by one.")
+    return _finding("ok", "Variance inflation", basis, "none above the threshold")
+
+
+def _drift_finding(run):
+    parts, test = run["split"]["parts"], run["split"]["base_rate_test"]
+    found = (f"training {fmt_pct(parts['train']['base_rate'])}, test {fmt_pct(parts['test']['base_rate'])}; "
+             f"p = {fmt_p(test['p_value'])}")
+    basis = f"no difference at level {test['alpha']}"
+    if test["p_value"] is not None and test["p_value"] < test["alpha"]:
+        return _finding("attention", "Base-rate drift between training and test", basis, found,
+                        "The event rate changed between the parts: check the calibration-in-the-large on recent "
+                        "data and recalibrate the intercept if needed.")
+    return _finding("ok", "Base-rate drift between training and test", basis, found)
+
+
+def _decision_findings(run):
+    out, metrics, choice = [], run["metrics"], run["choice"]
+    if metrics["auc_ci"]["lower"] is not None and metrics["auc_ci"]["lower"] <= 0.5:
+        out.append(_finding("attention", "Discrimination above chance (test)", "AUC interval above 0.5",
+                            f"{fmt_fixed(metrics['auc_ci']['lower'])}–{fmt_fixed(metrics['auc_ci']['upper'])}",
+                            "The model does not rank cases better than chance with confidence; do not deploy."))
+    if choice["adopted_cutoff"] is None:
+        out.append(_finding("attention", "Adopted cut-off", "flags some cases", "flags no case",
+                            "At these costs the model never pays for a review; revisit the costs or the model."))
+    costs = choice["cost_per_1000"]
+    trivial = min(costs["flag_none"], costs["flag_all"])
+    if costs["adopted"] is not None and costs["adopted"] >= trivial:
+        out.append(_finding("attention", "Cost against trivial rules (training, out-of-fold)",
+                            "below flag-none and flag-all", f"{fmt_fixed(costs['adopted'], 0)} per 1,000 cases",
+                            "The model does not lower the expected cost of decisions; it adds no value at these costs."))
+    if run["selected"]["candidate"] == "baseline" or run["model"].get("kind") == "baseline":
+        out.append(_finding("attention", "Selected candidate", "a model with inputs", "the intercept-only baseline",
+                            "No candidate beat the baseline; the inputs carry no usable signal as specified."))
+    return out
+
+
+def _contract_rows(run: dict) -> list[dict]:
+    cfg, profile = run["config"], run["report"].get("column_profile", {})
+    roles = {cfg["data"]["id_column"]: "id", cfg["data"]["target"]: "target"}
+    if cfg["data"].get("date_column"):
+        roles[cfg["data"]["date_column"]] = "date"
+    fairness = cfg.get("fairness", {})
+    for f in cfg["features"]:
+        roles[f["name"]] = "input"
+    for name in fairness.get("segments", []):
+        roles[name] = roles.get(name, "") + (", " if name in roles else "") + "segment"
+    for name in fairness.get("sensitive", []):
+        roles[name] = roles.get(name, "") + (", " if name in roles else "") + "sensitive"
+    rows = []
+    for name, spec in ((run["contract"] or {}).get("columns") or {}).items():
+        spec = spec or {}
+        rules = []
+        if spec.get("min") is not None or spec.get("max") is not None:
+            rules.append(f"{spec.get('min', '')} to {spec.get('max', '')}")
+        if spec.get("levels"):
+            rules.append("levels: " + ", ".join(map(str, spec["levels"])))
+        rules += [word for key, word in (("unique", "unique"), ("nullable", "may be empty")) if spec.get(key)]
+        rows.append({"name": name, "type": spec.get("type", ""), "rules": "; ".join(rules),
+                     "role": roles.get(name, "not used"), "description": spec.get("description", ""),
+                     "missing": (profile.get(name) or {}).get("missing_share")})
+    return rows
+
+
+def build_context(run: dict, *, release: dict | None) -> dict:
+    """Everything the template shows, taken from the artifacts without computation."""
+    config, manifest = run["config"], run["manifest"]
+    table, model = run["table"], run["model"]
+    pooled = next((r for r in table["rows"] if r["candidate"] == run["selected"]["candidate"]), {})
+    marks = findings(run)
+    environment = manifest.get("environment") or {}
+    libraries = environment.get("libraries") or {}
+    return {
+        "sections": dict(SECTIONS), "section_list": SECTIONS, "config": config, "card": config["card"],
+        "release": release, "dates": card_dates(run, release), "fingerprint": run["manifest_sha256"],
+        "git": manifest.get("git") or {}, "code_state": code_state(manifest.get("git") or {}),
+        "environment": environment, "key_libraries": [(n, libraries[n]) for n in KEY_LIBRARIES if n in libraries],
+        "files": sorted((manifest.get("files") or {}).items()),
+        "raw_inputs": sorted((manifest.get("raw_inputs") or {}).items()),
+        "report": run["report"], "contract_rows": _contract_rows(run), "split": run["split"],
+        "recipe": run["recipe"], "diagnostics": run["diagnostics"], "table": table, "selected": run["selected"],
+        "selected_row": pooled, "model": model, "choice": run["choice"], "metrics": run["metrics"],
+        "subgroups": run["subgroups"], "findings": marks,
+        "attention": [f for f in marks if f["status"] == "attention"],
+        "figures": {name: "data:image/svg+xml;base64," + base64.b64encode(svg).decode("ascii")
+                    for name, svg in run["figures"].items()},
+        "slope_band": CALIBRATION_SLOPE_BAND, "min_epv": MIN_EVENTS_PER_PARAMETER, "hl_alpha": HL_ALPHA,
+        "cautions": CAUTIONS, "number_formats": NUMBER_FORMATS, "text_limit": TEXT_LIMIT, "name_limit": NAME_LIMIT,
+        "is_logit": bool(model.get("coef_table")) and model["coef_table"][0].get("odds_ratio") is not None,
+    }
+
+
+# ---------------------------------------------------------------------------------------------
+# rendering
+
+
+def render_html(context: dict, *, template_dir=TEMPLATE_DIR) -> str:
+    """The card's HTML: the Jinja2 template with autoescape on and the stylesheet inlined."""
+    env = Environment(loader=FileSystemLoader(str(template_dir)), autoescape=True, undefined=StrictUndefined,
+                      trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
+    env.filters.update(FILTERS)
+    stylesheet = Markup((Path(template_dir) / STYLESHEET).read_text(encoding="utf-8"))
+    return env.get_template(TEMPLATE).render(**context, stylesheet=stylesheet)
+
+
+class _WeasyLog(logging.Handler):
+    """Collect WeasyPrint's messages and pass them to the ``oddsmith.card`` logger."""
+
+    def __init__(self):
+        super().__init__(level=logging.WARNING)
+        self.messages: list[str] = []
+
+    def emit(self, record):
+        message = record.getMessage()
+        self.messages.append(message)
+        log.warning("weasyprint: %s", message)
+
+
+@contextlib.contextmanager
+def _weasyprint_logging():
+    logger, progress = logging.getLogger("weasyprint"), logging.getLogger("weasyprint.progress")
+    handler, propagate, progress_level = _WeasyLog(), logger.propagate, progress.level
+    logger.addHandler(handler)
+    logger.propagate = False
+    progress.setLevel(logging.WARNING)  # per-step progress lines would drown the rule log
+    try:
+        yield handler
+    finally:
+        logger.removeHandler(handler)
+        logger.propagate = propagate
+        progress.setLevel(progress_level)
+
+
+@contextlib.contextmanager
+def _source_date_epoch(epoch: int):
+    # fontTools stamps subset fonts with SOURCE_DATE_EPOCH when it is set.
+    previous = os.environ.get("SOURCE_DATE_EPOCH")
+    os.environ["SOURCE_DATE_EPOCH"] = str(epoch)
+    try:
+        yield
+    finally:
+        if previous is None:
+            os.environ.pop("SOURCE_DATE_EPOCH", None)
+        else:
+            os.environ["SOURCE_DATE_EPOCH"] = previous
+
+
+def render_pdf(html: str, *, run_dir, epoch: int, fetcher: RunFolderFetcher | None = None) -> bytes:
+    """PDF bytes of ``html``; fetches are limited to ``run_dir``; a refused fetch raises CardError."""
+    fetcher = fetcher or RunFolderFetcher(run_dir)
+    base_url = Path(run_dir).resolve().as_uri() + "/"
+    with _weasyprint_logging() as messages, _source_date_epoch(epoch):
+        from weasyprint import HTML
+
+        try:
+            pdf = HTML(string=html, base_url=base_url, url_fetcher=fetcher).write_pdf(pdf_identifier=True)
+        except RefusedFetch as exc:
+            raise CardError(f"model card render stopped: {exc}") from None
+    if fetcher.refused:
+        raise CardError("model card render stopped: refused fetches", [f"refused: {u}" for u in fetcher.refused])
+    log.info("PDF rendered: %d bytes, %d WeasyPrint message(s)", len(pdf), len(messages.messages))
+    return pdf
+
+
+def render_card(run_dir, *, out_dir=None, release=None) -> dict:
+    """Render the model card of the run in ``run_dir`` and write it with its hashes.
+
+    Reads the artifacts, figures and ``manifest.json`` of ``run_dir`` (the configuration
+    comes from the manifest), writes ``model_card.html``, ``model_card.pdf`` and
+    ``card.sha256`` into ``out_dir`` (default ``run_dir/card``).
+
+    Parameters
+    ----------
+    run_dir : path
+        The results folder of one run, ``results/<run>``.
+    out_dir : path, optional
+        Where the three files go.
+    release : dict, optional
+        ``{"version": ..., "released_at": ISO date}`` for a release copy; None (default) for a
+        working draft. When None, a ``release`` record in the manifest is used if present.
+
+    Returns
+    -------
+    dict
+        ``{path: sha256}`` for manifest.json, the HTML and the PDF, paths relative to
+        ``run_dir`` exactly as written in ``card.sha256``.
+
+    Raises
+    ------
+    ArtifactError
+        Naming every missing artifact.
+    CardError
+        On a bad ``release``, a missing date, or a refused fetch.
+    """
+    run_dir = Path(run_dir)
+    out_dir = Path(out_dir) if out_dir is not None else run_dir / "card"
+    run = load_run(run_dir)
+    release = _check_release(release if release is not None else run["manifest"].get("release"))
+    context = build_context(run, release=release)
+    html = render_html(context)
+    pdf = render_pdf(html, run_dir=run_dir, epoch=context["dates"]["epoch"])
+    html_bytes = html.encode("utf-8")
+    write_bytes_atomic(out_dir / "model_card.html", html_bytes)
+    write_bytes_atomic(out_dir / "model_card.pdf", pdf)
+    hashes = {"manifest.json": run["manifest_sha256"],
+              _relative(out_dir / "model_card.html", run_dir): sha256_bytes(html_bytes),
+              _relative(out_dir / "model_card.pdf", run_dir): sha256_bytes(pdf)}
+    write_bytes_atomic(out_dir / "card.sha256", "".join(f"{h}  {p}\n" for p, h in hashes.items()).encode("utf-8"))
+    log.info("model card written to %s (manifest %s)", out_dir, run["manifest_sha256"][:12])
+    return hashes
+
+
+def _relative(path: Path, start: Path) -> str:
+    return Path(os.path.relpath(path.resolve(), start.resolve())).as_posix()

@@ -1,0 +1,290 @@
+"""Figures of the model card as deterministic SVG (matplotlib, no pyplot state).
+
+Every function takes artifact contents (arrays, dicts) and returns SVG bytes. Nothing here
+estimates anything reported on the card: the curves are drawn from stored predictions and
+the annotated values (AUC, cut-offs, costs) are passed in from the artifacts.
+
+Bytes are stable: a fixed ``svg.hashsalt`` for element ids, no date in the metadata, glyphs
+drawn as paths (no dependence on the viewer's fonts), mathtext parsing off so a ``$`` in a
+column name or group label is printed, not interpreted. Series differ by line style,
+marker and hatch as well as by colour, so the figures survive greyscale printing.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+
+import numpy as np
+from matplotlib import rc_context
+from matplotlib.figure import Figure
+
+#: The card's own palette: slate ink, deep teal, ochre, plum, moss, and two greys.
+PALETTE = {
+    "ink": "#23313D",
+    "teal": "#1E6A72",
+    "ochre": "#B8742A",
+    "plum": "#6A4A7A",
+    "moss": "#6E7F45",
+    "grey": "#8C949C",
+    "mist": "#DCE1E5",
+}
+FIGURE_NAMES = ("roc", "reliability", "cost_curve", "coefficients", "score_distribution", "subgroups")
+LABEL_LIMIT = 38
+#: Figure widths in inches: half and full width of the card's A4 text column (about 1:1 on the page).
+HALF, WIDE = 3.4, 6.9
+
+STYLE = {
+    "svg.hashsalt": "oddsmith-figures",
+    "svg.fonttype": "path",
+    "text.parse_math": False,
+    "font.family": "DejaVu Sans",
+    "font.size": 7.5,
+    "axes.titlesize": 8.5,
+    "axes.titleweight": "bold",
+    "axes.titlelocation": "left",
+    "axes.labelsize": 7.5,
+    "axes.edgecolor": PALETTE["ink"],
+    "axes.labelcolor": PALETTE["ink"],
+    "axes.linewidth": 0.6,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "axes.grid": True,
+    "grid.color": PALETTE["mist"],
+    "grid.linewidth": 0.5,
+    "xtick.color": PALETTE["ink"],
+    "ytick.color": PALETTE["ink"],
+    "xtick.labelsize": 7,
+    "ytick.labelsize": 7,
+    "legend.fontsize": 6.8,
+    "legend.frameon": False,
+    "hatch.linewidth": 0.5,
+    "path.simplify": True,
+}
+
+
+def short_label(text, *, limit: int = LABEL_LIMIT) -> str:
+    """Shorten a label for a figure axis, marking the cut with an ellipsis.
+
+    Examples
+    --------
+    >>> short_label("x" * 50, limit=10)
+    'xxxxxxxxx…'
+    """
+    text = " ".join(str(text).split())
+    return text if len(text) <= limit else text[: limit - 1] + "…"
+
+
+def _figure(width: float, height: float) -> Figure:
+    return Figure(figsize=(width, height), dpi=100, layout="constrained")
+
+
+def _svg(fig: Figure) -> bytes:
+    buffer = io.BytesIO()
+    fig.savefig(buffer, format="svg", metadata={"Date": None})
+    return buffer.getvalue()
+
+
+def roc_points(y, p) -> tuple[np.ndarray, np.ndarray]:
+    """False- and true-positive rates at every distinct score, for drawing an ROC curve.
+
+    Examples
+    --------
+    >>> fpr, tpr = roc_points([0, 0, 1, 1], [0.1, 0.4, 0.35, 0.8])
+    >>> fpr.tolist(), tpr.tolist()
+    ([0.0, 0.0, 0.5, 0.5, 1.0], [0.0, 0.5, 0.5, 1.0, 1.0])
+    """
+    y, p = np.asarray(y, dtype=float), np.asarray(p, dtype=float)
+    order = np.argsort(-p, kind="mergesort")
+    ys, ps = y[order], p[order]
+    ends = np.r_[np.flatnonzero(np.diff(ps)), ys.size - 1]
+    tps = np.cumsum(ys)[ends]
+    fps = ends + 1 - tps
+    return np.r_[0.0, fps / fps[-1]], np.r_[0.0, tps / tps[-1]]
+
+
+def roc_svg(y, p, *, auc: float, auc_low: float, auc_high: float, cutoff=None, operating_point=None) -> bytes:
+    """ROC curve of the test predictions with the chance diagonal and the operating point.
+
+    ``operating_point`` is (1 − specificity, sensitivity) at the adopted cut-off, as stored
+    by the evaluate stage; it is drawn only when ``cutoff`` is not None.
+    """
+    with rc_context(STYLE):
+        fig = _figure(HALF, 2.9)
+        ax = fig.add_subplot()
+        fpr, tpr = roc_points(y, p)
+        ax.plot([0, 1], [0, 1], color=PALETTE["grey"], linestyle=(0, (4, 3)), linewidth=0.8, label="chance")
+        ax.plot(fpr, tpr, color=PALETTE["teal"], linewidth=1.4,
+                label=f"selected model, AUC {auc:.3f} ({auc_low:.3f}–{auc_high:.3f})")
+        if cutoff is not None and operating_point is not None:
+            ax.plot(*operating_point, marker="D", markersize=5, color=PALETTE["ochre"], markeredgecolor=PALETTE["ink"],
+                    linestyle="none", label=f"adopted cut-off {cutoff:.4f}")
+        ax.set(xlim=(0, 1), ylim=(0, 1.01), xlabel="false-positive rate (1 − specificity)",
+               ylabel="true-positive rate (sensitivity)", title="Discrimination on the test part")
+        ax.set_aspect("equal")
+        ax.legend(loc="lower right")
+        return _svg(fig)
+
+
+def reliability_svg(bins: list[dict]) -> bytes:
+    """Observed event rate against mean predicted probability per bin, with bin counts."""
+    with rc_context(STYLE):
+        fig = _figure(HALF, 2.9)
+        top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=[3, 1])
+        x = np.array([b["mean_predicted"] for b in bins], dtype=float)
+        obs = np.array([b["observed_rate"] for b in bins], dtype=float)
+        low = np.array([b.get("ci_low", b["observed_rate"]) for b in bins], dtype=float)
+        high = np.array([b.get("ci_high", b["observed_rate"]) for b in bins], dtype=float)
+        upper = float(max(np.max(high, initial=0), np.max(x, initial=0))) * 1.08 or 1.0
+        top.plot([0, upper], [0, upper], color=PALETTE["grey"], linestyle=(0, (4, 3)), linewidth=0.8,
+                 label="perfect calibration")
+        top.errorbar(x, obs, yerr=[obs - low, high - obs], color=PALETTE["teal"], marker="o", markersize=3.5,
+                     linewidth=1.0, capsize=2, label="observed rate, 95% interval")
+        top.set(xlim=(0, upper), ylim=(0, upper), ylabel="observed event rate", title="Calibration on the test part")
+        top.legend(loc="upper left")
+        width = upper / max(len(bins), 1) * 0.55
+        bottom.bar(x, [b["n"] for b in bins], width=width, color=PALETTE["mist"], edgecolor=PALETTE["ink"],
+                   linewidth=0.5, hatch="////")
+        bottom.set(xlabel="mean predicted probability in bin", ylabel="cases")
+        bottom.grid(axis="x", visible=False)
+        return _svg(fig)
+
+
+def cost_curve_svg(curve, *, adopted, bayes: float, interval: tuple[float, float], flag_none: float,
+                   flag_all: float, cost_label: str = "expected cost per case") -> bytes:
+    """Expected cost per case against the cut-off, with the chosen cut-offs marked.
+
+    ``curve`` has columns ``cutoff`` and ``expected_cost_per_case``; ``adopted`` may be None
+    (flag none). ``flag_none`` and ``flag_all`` are costs per case of the two trivial rules.
+    """
+    with rc_context(STYLE):
+        fig = _figure(HALF, 3.4)
+        ax = fig.add_subplot()
+        x = np.asarray(curve["cutoff"], dtype=float)
+        cost = np.asarray(curve["expected_cost_per_case"], dtype=float)
+        ax.axvspan(interval[0], interval[1], facecolor=PALETTE["mist"], hatch="\\\\\\", edgecolor=PALETTE["grey"],
+                   linewidth=0, label="bootstrap interval of the cut-off")
+        ax.plot(x, cost, color=PALETTE["teal"], linewidth=1.2, label=cost_label)
+        ax.axhline(flag_none, color=PALETTE["plum"], linestyle=(0, (1, 1.5)), linewidth=0.9, label="flag none")
+        ax.axhline(flag_all, color=PALETTE["moss"], linestyle=(0, (5, 1.5, 1, 1.5)), linewidth=0.9,
+                   label="flag all")
+        ax.axvline(bayes, color=PALETTE["ink"], linestyle=(0, (4, 2)), linewidth=0.9, label=f"Bayes cut-off {bayes:.4f}")
+        if adopted is not None:
+            ax.axvline(adopted, color=PALETTE["ochre"], linewidth=1.4, label=f"adopted cut-off {adopted:.4f}")
+        ax.set(xlim=(0, 1), xlabel="cut-off (flag when p ≥ cut-off)", ylabel="expected cost per case",
+               title="Cost of decisions (out-of-fold)")
+        ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=2)
+        return _svg(fig)
+
+
+def coefficients_svg(model: dict) -> bytes:
+    """Interval chart of the selected model's terms (intercept left out).
+
+    Logit: odds ratios with 95% intervals on a log axis. Probit and complementary log-log:
+    coefficients with 95% intervals. Penalised fits: standardised coefficients as points
+    (no Wald intervals exist for them). A model without terms gets a labelled empty panel.
+    """
+    rows = [r for r in model.get("coef_table") or [] if r["term"] != "intercept"]
+    if rows and rows[0].get("odds_ratio") is not None:
+        values = [(r["term"], r["odds_ratio"], r["or_ci_low"], r["or_ci_high"]) for r in rows]
+        reference, xlabel, log = 1.0, "odds ratio (95% interval, log scale)", True
+    elif rows:
+        values = [(r["term"], r["estimate"], r["ci_low"], r["ci_high"]) for r in rows]
+        reference, xlabel, log = 0.0, f"coefficient on the {model.get('link', '')} scale (95% interval)", False
+    else:
+        values = [(t, c, None, None) for t, c in sorted((model.get("coefficients") or {}).items())]
+        reference, xlabel, log = 0.0, "standardised coefficient (penalised, no interval)", False
+    with rc_context(STYLE):
+        fig = _figure(WIDE, max(1.4, 0.7 + 0.165 * len(values)))
+        ax = fig.add_subplot()
+        ax.set_title(f"Terms of the selected model ({model.get('candidate', '')}, {model.get('kind', '')})")
+        if not values:
+            ax.text(0.5, 0.5, "intercept only: no terms to show", ha="center", va="center", transform=ax.transAxes)
+            ax.set_axis_off()
+            return _svg(fig)
+        pos = np.arange(len(values))[::-1]
+        ax.axvline(reference, color=PALETTE["grey"], linestyle=(0, (4, 3)), linewidth=0.8)
+        for y_pos, (_, centre, low, high) in zip(pos, values):
+            clear = low is not None and (low > reference or high < reference)
+            if low is not None:
+                ax.plot([low, high], [y_pos, y_pos], color=PALETTE["teal"], linewidth=1.3)
+            ax.plot(centre, y_pos, marker="o" if clear else "s", markersize=4,
+                    color=PALETTE["teal"] if clear else "white", markeredgecolor=PALETTE["ink"], linestyle="none")
+        ax.set_yticks(pos, [short_label(v[0]) for v in values])
+        ax.set_ylim(-0.7, len(values) - 0.3)
+        ax.grid(axis="y", visible=False)
+        if log:
+            ax.set_xscale("log")
+        ax.set_xlabel(xlabel)
+        return _svg(fig)
+
+
+def score_distribution_svg(y, p, *, cutoff=None) -> bytes:
+    """Distributions of predicted probability for events and non-events on the test part."""
+    y, p = np.asarray(y), np.asarray(p, dtype=float)
+    edges = np.linspace(0.0, 1.0, 41)
+    with rc_context(STYLE):
+        fig = _figure(HALF, 2.9)
+        ax = fig.add_subplot()
+        styles = ((0, "no event", PALETTE["teal"], "-", "////"), (1, "event", PALETTE["ochre"], (0, (3, 1.5)), None))
+        for value, label, colour, line, hatch in styles:
+            part = p[y == value]
+            if part.size:
+                ax.hist(part, bins=edges, density=True, histtype="stepfilled" if hatch else "step",
+                        facecolor="none", edgecolor=colour, hatch=hatch, linestyle=line, linewidth=1.2,
+                        label=f"{label} (n = {part.size:,})")
+        if cutoff is not None:
+            ax.axvline(cutoff, color=PALETTE["ink"], linewidth=1.0, label=f"adopted cut-off {cutoff:.4f}")
+        upper = min(1.0, float(np.quantile(p, 0.999)) * 1.1) if p.size else 1.0
+        ax.set(xlim=(0, max(upper, (cutoff or 0) * 1.1, 0.05)), xlabel="predicted probability",
+               ylabel="density", title="Predicted probabilities by outcome")
+        ax.legend(loc="upper right")
+        return _svg(fig)
+
+
+def subgroups_svg(attributes: dict) -> bytes:
+    """Adverse-impact ratio of each group against the 4/5 line, one panel per attribute.
+
+    Bars below 4/5 are flagged by the evaluate stage (``adverse_impact_flag``) and drawn
+    hatched and dark; groups too small to assess are listed but not drawn.
+    """
+    names = list(attributes)
+    heights = [max(1, len(attributes[n]["rows"])) for n in names] or [1]
+    with rc_context(STYLE):
+        fig = _figure(WIDE, 0.75 + 0.2 * sum(heights) + 0.3 * len(heights))
+        if not names:
+            ax = fig.add_subplot()
+            ax.text(0.5, 0.5, "no attributes assessed", ha="center", va="center", transform=ax.transAxes)
+            ax.set_axis_off()
+            return _svg(fig)
+        axes = fig.subplots(len(names), 1, squeeze=False, height_ratios=heights)[:, 0]
+        for ax, name in zip(axes, names):
+            _subgroup_panel(ax, name, attributes[name])
+        axes[-1].set_xlabel("adverse-impact ratio: group's rate of not being flagged ÷ most favoured group's rate")
+        return _svg(fig)
+
+
+def _subgroup_panel(ax, name: str, attribute: dict) -> None:
+    rows = attribute["rows"]
+    pos = np.arange(len(rows))[::-1]
+    ratios = [r.get("adverse_impact_ratio") for r in rows if not r.get("too_small")]
+    label_x = max([1.0, *(r for r in ratios if r is not None)]) + 0.04
+    labels = []
+    for y_pos, row in zip(pos, rows):
+        ratio = row.get("adverse_impact_ratio")
+        small = row.get("too_small") or ratio is None
+        labels.append(short_label(row["group"], limit=28) + (" (too small)" if small else ""))
+        if small:
+            continue
+        flagged = bool(row.get("adverse_impact_flag"))
+        ax.barh(y_pos, ratio, height=0.62, color=PALETTE["ochre"] if flagged else PALETTE["mist"],
+                edgecolor=PALETTE["ink"], linewidth=0.5, hatch="xxx" if flagged else None)
+        ax.text(label_x, y_pos, f"{ratio:.3f}{'  below 4/5' if flagged else ''}  (flag rate {row['flag_rate'] * 100:.1f}%)",
+                va="center", fontsize=6.5, color=PALETTE["ink"])
+    ax.axvline(0.8, color=PALETTE["plum"], linestyle=(0, (4, 2)), linewidth=1.0)
+    ax.text(0.8, pos[0] + 0.5 if len(pos) else 0.5, " 4/5", color=PALETTE["plum"], fontsize=6.5, va="bottom")
+    ax.set_yticks(pos, labels)
+    ax.set_xlim(0, math.ceil(label_x * 10) / 10 + 0.55)
+    ax.set_ylim(-0.6, len(rows) - 0.2)
+    ax.grid(axis="y", visible=False)
+    ax.set_title(f"{short_label(name)} ({attribute.get('kind', '')})", fontsize=7.5)

@@ -1,0 +1,71 @@
+# The card's figures (SVG) and the model card itself (HTML + PDF + card.sha256).
+# Order: evaluate → figures → manifest → card; the card prints the manifest's SHA-256.
+from glob import glob
+
+FIGURES = ["roc", "reliability", "cost_curve", "coefficients", "score_distribution", "subgroups"]
+
+
+rule figures:
+    input:
+        predictions="results/{run}/evaluation/predictions.parquet",
+        metrics="results/{run}/evaluation/metrics.json",
+        subgroups="results/{run}/evaluation/subgroups.json",
+        choice="results/{run}/threshold/choice.json",
+        curve="results/{run}/threshold/cost_curve.parquet",
+        selected="results/{run}/comparison/selected.json",
+        models=expand("results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES),
+    output:
+        roc="results/{run}/figures/roc.svg",
+        reliability="results/{run}/figures/reliability.svg",
+        cost_curve="results/{run}/figures/cost_curve.svg",
+        coefficients="results/{run}/figures/coefficients.svg",
+        score_distribution="results/{run}/figures/score_distribution.svg",
+        subgroups="results/{run}/figures/subgroups.svg",
+        stamp="results/{run}/provenance/figures.json",
+    params:
+        candidates=CANDIDATES,
+        figures=FIGURES,
+        code=code("stages/figures", "plots", script="scripts/figures.py"),
+    log:
+        "logs/{run}/figures.log",
+    benchmark:
+        "benchmarks/{run}/figures.tsv"
+    threads: 1
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
+    script:
+        "../scripts/figures.py"
+
+
+rule card:
+    input:
+        manifest="results/{run}/manifest.json",
+        report="results/{run}/validated/report.json",
+        split="results/{run}/split/summary.json",
+        recipe="results/{run}/features/recipe.json",
+        diagnostics="results/{run}/features/diagnostics.json",
+        models=expand("results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES),
+        table="results/{run}/comparison/table.json",
+        selected="results/{run}/comparison/selected.json",
+        choice="results/{run}/threshold/choice.json",
+        metrics="results/{run}/evaluation/metrics.json",
+        subgroups="results/{run}/evaluation/subgroups.json",
+        figures=expand("results/{{run}}/figures/{figure}.svg", figure=FIGURES),
+    output:
+        html="results/{run}/card/model_card.html",
+        pdf="results/{run}/card/model_card.pdf",
+        sha256="results/{run}/card/card.sha256",
+    params:
+        code=code("stages/card", "card", script="scripts/card.py"),
+        templates=code_fingerprint((), extra_files=sorted(glob("reports/*"))),
+    log:
+        "logs/{run}/card.log",
+    benchmark:
+        "benchmarks/{run}/card.tsv"
+    threads: 1
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
+    script:
+        "../scripts/card.py"
