@@ -14,7 +14,7 @@ rule threshold:
         "logs/{run}/threshold.log",
     benchmark:
         "benchmarks/{run}/threshold.tsv"
-    threads: 1
+    threads: RES["threads"]
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
@@ -56,7 +56,7 @@ rule evaluate:
         "logs/{run}/evaluate.log",
     benchmark:
         "benchmarks/{run}/evaluate.tsv"
-    threads: 1
+    threads: RES["threads"]
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],

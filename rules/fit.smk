@@ -17,7 +17,7 @@ rule fit:
         "logs/{run}/fit/{candidate}.log",
     benchmark:
         "benchmarks/{run}/fit/{candidate}.tsv"
-    threads: 1
+    threads: RES["threads"]
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
@@ -41,7 +41,7 @@ rule compare:
         "logs/{run}/compare.log",
     benchmark:
         "benchmarks/{run}/compare.tsv"
-    threads: 1
+    threads: RES["threads"]
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],

@@ -15,7 +15,7 @@ rule split:
         "logs/{run}/split.log",
     benchmark:
         "benchmarks/{run}/split.tsv"
-    threads: 1
+    threads: RES["threads"]
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
@@ -41,7 +41,7 @@ rule features:
         "logs/{run}/features.log",
     benchmark:
         "benchmarks/{run}/features.tsv"
-    threads: 1
+    threads: RES["threads"]
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],

@@ -16,7 +16,7 @@ rule validate:
         "logs/{run}/validate.log",
     benchmark:
         "benchmarks/{run}/validate.tsv"
-    threads: 1
+    threads: RES["threads"]
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
