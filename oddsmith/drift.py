@@ -6,8 +6,9 @@ Population stability index
     scipy.stats.entropy(e, a)`` (the symmetrised Kullback-Leibler divergence).
 Bins
     Numeric columns and the score: the development deciles (``numpy.quantile`` at 0.1 ...
-    0.9, linear interpolation; repeated edges merged, so a column with many ties gets fewer
-    bins), intervals closed on the right, ``(-inf, q1], (q1, q2], ..., (q9, inf)``.
+    0.9, method ``inverted_cdf``, so every edge is an observed development value; repeated
+    edges merged, so a column with many ties gets fewer bins), intervals closed on the
+    right, ``(-inf, q1], (q1, q2], ..., (q9, inf)``.
     Categorical columns: one bin per level seen in either sample (text form). Missing values
     form their own bin, ``(missing)``, whenever either sample has one.
 Empty bins
@@ -98,7 +99,7 @@ def decile_edges(values) -> np.ndarray:
     x = x[~np.isnan(x)]
     if x.size == 0:
         return np.array([])
-    return np.unique(np.quantile(x, DECILES))
+    return np.unique(np.quantile(x, DECILES, method="inverted_cdf"))
 
 
 def _numeric_counts(x: np.ndarray, edges: np.ndarray, with_missing: bool) -> np.ndarray:
@@ -280,15 +281,15 @@ def pdf_bytes(html: str, *, folder) -> bytes:
     """
     import weasyprint
 
+    from weasyprint.urls import FatalURLFetchingError
+
     fetcher = output_folder_fetcher(folder)
     _route_weasyprint_warnings()
     try:
-        document = weasyprint.HTML(string=html, base_url=str(Path(folder).resolve()) + "/", url_fetcher=fetcher)
+        document = weasyprint.HTML(string=html, base_url=Path(folder).resolve().as_uri() + "/", url_fetcher=fetcher)
         data = document.write_pdf(pdf_identifier=True)
-    except Exception as exc:  # WeasyPrint wraps fetch errors; report the refusal itself
-        if fetcher.refused:
-            raise RefusedFetch(f"the drift page asked for {fetcher.refused}; refused") from exc
-        raise
+    except FatalURLFetchingError:
+        raise RefusedFetch(f"the drift page asked for {fetcher.refused}; refused") from None
     if fetcher.refused:
         raise RefusedFetch(f"the drift page asked for {fetcher.refused}; refused")
     return data
