@@ -44,6 +44,15 @@ from oddsmith import diff as _diff, release as _release, verify as _verify  # no
 _REGISTRARS += [_verify.register, _release.register, _diff.register]
 
 
+def _register_scoring(sub) -> None:
+    from oddsmith.stages.score import register_commands
+
+    register_commands(sub)
+
+
+_REGISTRARS.append(_register_scoring)
+
+
 def main(argv=None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
