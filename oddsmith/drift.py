@@ -25,7 +25,6 @@ from __future__ import annotations
 
 import logging
 from pathlib import Path
-from urllib.parse import unquote, urlsplit
 
 import numpy as np
 import pandas as pd
@@ -237,53 +236,22 @@ def render_html(drift: dict, summary: dict, *, template_path, batch_name: str, s
 
 
 class RefusedFetch(OddsmithError):
-    """A resource outside the output folder was requested while rendering."""
-
-
-def _fetcher_class():
-    from weasyprint.urls import FatalURLFetchingError, URLFetcher
-
-    class OutputFolderFetcher(URLFetcher):
-        """Fetch only ``file:`` URLs inside one folder; anything else stops the render."""
-
-        def __init__(self, folder, **kwargs):
-            super().__init__(allowed_protocols=("file",), **kwargs)
-            self.folder = Path(folder).resolve()
-            self.refused: list[str] = []
-
-        def fetch(self, url, headers=None):
-            if not self._inside(url):
-                self.refused.append(url)
-                raise FatalURLFetchingError(f"refused to fetch {url!r}: only files inside {self.folder} may be read")
-            return super().fetch(url, headers)
-
-        def _inside(self, url: str) -> bool:
-            parsed = urlsplit(url)
-            if parsed.scheme != "file" or parsed.netloc not in ("", "localhost"):
-                return False
-            path = Path(unquote(parsed.path)).resolve()
-            return path.is_file() and self.folder in path.parents
-
-    return OutputFolderFetcher
-
-
-def output_folder_fetcher(folder):
-    """A WeasyPrint URL fetcher that reads only files inside ``folder`` and refuses the rest."""
-    return _fetcher_class()(folder)
+    """The drift page asked for a resource outside its output folder."""
 
 
 def pdf_bytes(html: str, *, folder) -> bytes:
     """Render the page to PDF bytes; deterministic for the same HTML and library versions.
 
-    The base URL is ``folder`` and the fetcher refuses every resource outside it; a refused
-    fetch fails the render (``RefusedFetch``). WeasyPrint's warnings go to the
-    ``oddsmith.drift`` logger.
+    The base URL is ``folder``; the model card's fetcher (``oddsmith.card.RunFolderFetcher``)
+    serves only ``data:`` URLs and files inside it, and a refused fetch fails the render
+    (``RefusedFetch``). WeasyPrint's warnings go to stderr (the rule's log).
     """
     import weasyprint
-
     from weasyprint.urls import FatalURLFetchingError
 
-    fetcher = output_folder_fetcher(folder)
+    from oddsmith.card import RunFolderFetcher
+
+    fetcher = RunFolderFetcher(folder)
     _route_weasyprint_warnings()
     try:
         document = weasyprint.HTML(string=html, base_url=Path(folder).resolve().as_uri() + "/", url_fetcher=fetcher)
