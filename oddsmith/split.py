@@ -36,19 +36,15 @@ The assignment has one row per input row, in input order, with columns
 from __future__ import annotations
 
 import math
-import os
-import tempfile
 import warnings
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
-import pyarrow as pa
-import pyarrow.parquet as pq
 from scipy import stats
 from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold, train_test_split
 
 from oddsmith.errors import EventsPerVariableWarning, SplitError
+from oddsmith.io import write_parquet
 
 METHODS = ("stratified", "out_of_time", "grouped")
 # Peduzzi et al., J. Clinical Epidemiology 49 (1996): fewer than 10 events per parameter.
@@ -136,16 +132,7 @@ def write_assignment(assignment: pd.DataFrame, path) -> None:
     No pandas index is stored and compression is zstd. The file is written to a temporary
     name in the same folder and renamed, so a failure never leaves a partial file.
     """
-    path = Path(path)
-    table = pa.Table.from_pandas(assignment, preserve_index=False)
-    handle, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    os.close(handle)
-    try:
-        pq.write_table(table, tmp, compression="zstd")
-        os.replace(tmp, path)
-    finally:
-        if os.path.exists(tmp):
-            os.remove(tmp)
+    write_parquet(path, assignment)
 
 
 # ---------------------------------------------------------------------------- checks
