@@ -57,7 +57,7 @@ rule card:
         pdf="results/{run}/card/model_card.pdf",
         sha256="results/{run}/card/card.sha256",
     params:
-        code=code("stages/card", "card", script="scripts/card.py"),
+        code=code("stages/card", "card", "plots", script="scripts/card.py"),
         templates=code_fingerprint((), extra_files=sorted(glob("reports/*"))),
     log:
         "logs/{run}/card.log",

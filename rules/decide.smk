@@ -9,7 +9,9 @@ rule threshold:
     params:
         candidates=CANDIDATES,
         costs=CONFIG["costs"],
-        code=code("stages/threshold", "threshold", script="scripts/threshold.py"),
+        code=code(
+            "stages/threshold", "threshold", "metrics", script="scripts/threshold.py"
+        ),
     log:
         "logs/{run}/threshold.log",
     benchmark:

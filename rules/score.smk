@@ -69,6 +69,8 @@ if SCORING["data"]:
                 "models",
                 "recipe",
                 "contract",
+                "card",
+                "plots",
                 script="scripts/score.py",
             ),
         script:
