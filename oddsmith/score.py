@@ -49,13 +49,14 @@ CSV output
 
 from __future__ import annotations
 
-import csv
 import io
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.csv as pa_csv
 import yaml
 
 from oddsmith.contract import CONTRACT_FORMAT, read_raw, validate_frame
@@ -424,7 +425,8 @@ def contributions(sm: ScoringModel, X: pd.DataFrame, reference: dict) -> np.ndar
     """Per-row, per-feature contributions ``s_f - r_f`` on the link scale (rows x features)."""
     names, W = feature_weights(sm.recipe, sm.model["design_columns"])
     ref = np.array([reference["partial"][n] for n in names], dtype=np.float64)
-    return (X[sm.model["design_columns"]].to_numpy() * _coefficients(sm)) @ W - ref
+    # sum_j x_j * beta_j * w_jf as one product with the (columns x features) matrix beta * W
+    return X[sm.model["design_columns"]].to_numpy() @ (_coefficients(sm)[:, None] * W) - ref
 
 
 def top_reasons(contrib: np.ndarray, names: list[str], *, top_k: int) -> tuple[np.ndarray, np.ndarray]:
@@ -438,20 +440,26 @@ def top_reasons(contrib: np.ndarray, names: list[str], *, top_k: int) -> tuple[n
     >>> n.tolist(), v.tolist()
     ([['b', 'a'], ['c', None]], [[0.5, 0.2], [0.4, nan]])
     """
+    codes, values = _top_reason_codes(contrib, top_k=top_k)
+    labels = np.asarray(list(names) + [None], dtype=object)[codes]  # code -1 picks the None
+    return labels, values
+
+
+def _top_reason_codes(contrib: np.ndarray, *, top_k: int) -> tuple[np.ndarray, np.ndarray]:
+    """Feature index (-1: no reason) and contribution of each row's top_k reasons."""
     if top_k < 1:
         raise ValueError(f"top_k must be >= 1, got {top_k}")
     n_rows, width = contrib.shape
     k = min(top_k, width)
     order = np.argsort(-contrib, axis=1, kind="stable")[:, :k]
     values = np.take_along_axis(contrib, order, axis=1)
-    labels = np.asarray(names, dtype=object)[order] if width else np.empty((n_rows, 0), dtype=object)
     keep = values > 0
-    labels = np.where(keep, labels, None)
+    codes = np.where(keep, order, -1)
     values = np.where(keep, values, np.nan)
     if k < top_k:  # fewer features than reasons asked for
-        labels = np.hstack([labels, np.full((n_rows, top_k - k), None, dtype=object)])
+        codes = np.hstack([codes, np.full((n_rows, top_k - k), -1)])
         values = np.hstack([values, np.full((n_rows, top_k - k), np.nan)])
-    return labels, values
+    return codes, values
 
 
 # ---------------------------------------------------------------------------- scoring
@@ -486,12 +494,14 @@ def score_frame(sm: ScoringModel, df: pd.DataFrame, *, top_k: int = DEFAULT_TOP_
     eta = linear_predictor(sm.model, X)
     p = inverse_link(sm.link, eta)
     names, _ = feature_weights(sm.recipe, sm.model["design_columns"])
-    labels, values = top_reasons(contributions(sm, X, reference), names, top_k=top_k)
-    out = {"id": df[sm.id_column].astype(str).to_numpy()}
+    codes, values = _top_reason_codes(contributions(sm, X, reference), top_k=top_k)
+    # Text columns with few distinct values are categoricals (dictionary-encoded in Parquet).
+    decision = pd.Categorical.from_codes(flagged(p, sm.cutoff).astype(np.int8), categories=["pass", "flag"])
+    out = {"id": df[sm.id_column].astype("str").to_numpy()}
     out |= {c: df[c].to_numpy() for c in carry_columns}
-    out |= {"probability": p, "decision": np.where(flagged(p, sm.cutoff), "flag", "pass"), "linear_predictor": eta}
+    out |= {"probability": p, "decision": decision, "linear_predictor": eta}
     for i in range(top_k):
-        out[f"reason_{i + 1}"] = labels[:, i]
+        out[f"reason_{i + 1}"] = pd.Categorical.from_codes(codes[:, i], categories=names)
         out[f"reason_{i + 1}_contribution"] = values[:, i]
     frame = pd.DataFrame(out)
     for column in flags.columns:
@@ -554,28 +564,29 @@ def neutralise_text(values: pd.Series) -> pd.Series:
     Examples
     --------
     >>> neutralise_text(pd.Series(["=1+1", "ok", None, "-x", "@A1"])).tolist()
-    ["'=1+1", 'ok', None, "'-x", "'@A1"]
+    ["'=1+1", 'ok', nan, "'-x", "'@A1"]
     """
-    text = values.astype(object)
-    present = text.notna()
-    risky = present & text.where(present, "").astype(str).str.startswith(FORMULA_PREFIXES)
-    return text.mask(risky, NEUTRALISER + text.where(risky, "").astype(str))
+    text = values.astype("str")
+    risky = text.str.startswith(FORMULA_PREFIXES).fillna(False).astype(bool)
+    return text.mask(risky, NEUTRALISER + text)
 
 
 def csv_bytes(frame: pd.DataFrame) -> bytes:
     """The scored frame as UTF-8 CSV (``\\n`` line ends), text cells neutralised.
 
-    Every text cell is quoted (so a carriage return inside one cannot split the row) and
-    numbers are not; numbers use Python's shortest round-trip form; a missing cell is ``""``.
+    Written by Arrow's CSV writer: every text cell is quoted (so a carriage return inside
+    one cannot split the row), numbers are not and use the shortest form that reads back
+    exactly, booleans are ``true``/``false``, a missing cell is empty.
     """
     out = frame.copy()
     for column in out.columns:
         if out[column].dtype == object or pd.api.types.is_string_dtype(out[column]):
             out[column] = neutralise_text(out[column])
     out.columns = neutralise_text(pd.Series(list(out.columns), dtype=object)).tolist()
-    buf = io.StringIO()
-    out.to_csv(buf, index=False, lineterminator="\n", quoting=csv.QUOTE_NONNUMERIC)
-    return buf.getvalue().encode("utf-8")
+    buf = io.BytesIO()
+    pa_csv.write_csv(pa.Table.from_pandas(out, preserve_index=False), buf,
+                     pa_csv.WriteOptions(quoting_style="needed"))
+    return buf.getvalue()
 
 
 def file_source(path) -> dict:
