@@ -136,9 +136,8 @@ def categorical_drift(development, batch) -> dict:
     new = pd.Series(batch, dtype=object)
     dev_text = dev.where(dev.isna(), dev.astype(str)).fillna(MISSING_BIN)
     new_text = new.where(new.isna(), new.astype(str)).fillna(MISSING_BIN)
-    levels = sorted(set(dev_text.unique().tolist()) | set(new_text.unique().tolist()) - {MISSING_BIN})
-    if MISSING_BIN in set(dev_text) | set(new_text):
-        levels = [lv for lv in levels if lv != MISSING_BIN] + [MISSING_BIN]
+    seen_anywhere = set(dev_text.unique().tolist()) | set(new_text.unique().tolist())
+    levels = sorted(seen_anywhere - {MISSING_BIN}) + ([MISSING_BIN] if MISSING_BIN in seen_anywhere else [])
     e = dev_text.value_counts().reindex(levels, fill_value=0).to_numpy()
     a = new_text.value_counts().reindex(levels, fill_value=0).to_numpy()
     result = _result("categorical", levels, e, a)

@@ -369,3 +369,17 @@ def test_cli_refuses_a_tampered_folder_and_writes_nothing(verified_demo, tmp_pat
     assert not out.exists()
     with pytest.raises(ArtifactError, match="inside the results folder"):
         score_folder(verified_demo, BATCH, verified_demo / "scoring-again")
+
+
+def test_carried_text_from_the_batch_is_neutralised_in_csv_only():
+    sm = toy_model()
+    raw = raw_rows(("R1", "1", "1", "x"), ("=R2", "2", "1", "y")).assign(note=["@SUM(A1:A9)", "fine"])
+    typed, _ = check_batch(sm, raw)
+    scored = score_frame(sm, typed, carry_columns=["note"])
+    assert list(scored.columns[:2]) == ["id", "note"] and scored["note"].tolist() == ["@SUM(A1:A9)", "fine"]
+    rows = list(csv.reader(io.StringIO(csv_bytes(scored).decode("utf-8"))))
+    assert [r[:2] for r in rows[1:]] == [["R1", "'@SUM(A1:A9)"], ["'=R2", "fine"]]
+    from oddsmith.stages.score import _settings
+
+    with pytest.raises(ConfigError, match="'y' is not a contract column other than the id and target"):
+        _settings(sm, {"carry_columns": ["y"]})
