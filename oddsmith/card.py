@@ -82,17 +82,6 @@ SECTIONS = (
     ("appendix", "Appendix. Artifacts and their hashes"),
 )
 
-#: Printed verbatim on every card (DEVELOPERS.md, "Cautions carried by every card").
-CAUTIONS = (
-    "This model card supports, and does not replace, independent model validation. Using a "
-    "model to decide about people is subject to fair-lending, anti-discrimination, consumer "
-    "protection and, in clinical settings, clinical-governance rules, and to local law; those "
-    "duties remain with the people who deploy the model and with licensed professional "
-    "judgement. Subgroup figures are screening evidence for human review: passing the "
-    "four-fifths screen is not proof of fairness, and a flagged group calls for investigation. "
-    "The model is valid only for the population, period and decision described here."
-)
-
 NUMBER_FORMATS = (
     "AUC, Gini, KS, calibration intercept and slope, adverse-impact ratios: 3 decimals",
     "log loss and Brier score: 4 decimals",
@@ -244,7 +233,7 @@ def clip_html(text, limit: int = NAME_LIMIT) -> Markup:
 
 FILTERS = {
     "fixed": fmt_fixed, "sig": fmt_sig, "pct": fmt_pct, "count": fmt_count, "p": fmt_p, "short": fmt_hash,
-    "clip": clip_html, "cutoff": lambda x: fmt_fixed(x, 4) if x is not None else "none (flag no case)",
+    "clip": clip_html, "plain": clip, "cutoff": lambda x: fmt_fixed(x, 4) if x is not None else "none (flag no case)",
     "cost": lambda x: fmt_fixed(x, 0), "metric": lambda x: fmt_fixed(x, 3), "loss": lambda x: fmt_fixed(x, 4),
 }
 
@@ -562,7 +551,7 @@ def build_context(run: dict, *, release: dict | None) -> dict:
         "figures": {name: "data:image/svg+xml;base64," + base64.b64encode(svg).decode("ascii")
                     for name, svg in run["figures"].items()},
         "slope_band": CALIBRATION_SLOPE_BAND, "min_epv": MIN_EVENTS_PER_PARAMETER, "hl_alpha": HL_ALPHA,
-        "cautions": CAUTIONS, "number_formats": NUMBER_FORMATS, "text_limit": TEXT_LIMIT, "name_limit": NAME_LIMIT,
+        "number_formats": NUMBER_FORMATS, "text_limit": TEXT_LIMIT, "name_limit": NAME_LIMIT,
         "is_logit": bool(model.get("coef_table")) and model["coef_table"][0].get("odds_ratio") is not None,
     }
 

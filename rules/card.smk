@@ -2,7 +2,14 @@
 # Order: evaluate → figures → manifest → card; the card prints the manifest's SHA-256.
 from glob import glob
 
-FIGURES = ["roc", "reliability", "cost_curve", "coefficients", "score_distribution", "subgroups"]
+FIGURES = [
+    "roc",
+    "reliability",
+    "cost_curve",
+    "coefficients",
+    "score_distribution",
+    "subgroups",
+]
 
 
 rule figures:
@@ -13,7 +20,9 @@ rule figures:
         choice="results/{run}/threshold/choice.json",
         curve="results/{run}/threshold/cost_curve.parquet",
         selected="results/{run}/comparison/selected.json",
-        models=expand("results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES),
+        models=expand(
+            "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
+        ),
     output:
         roc="results/{run}/figures/roc.svg",
         reliability="results/{run}/figures/reliability.svg",
@@ -22,10 +31,6 @@ rule figures:
         score_distribution="results/{run}/figures/score_distribution.svg",
         subgroups="results/{run}/figures/subgroups.svg",
         stamp="results/{run}/provenance/figures.json",
-    params:
-        candidates=CANDIDATES,
-        figures=FIGURES,
-        code=code("stages/figures", "plots", script="scripts/figures.py"),
     log:
         "logs/{run}/figures.log",
     benchmark:
@@ -34,6 +39,10 @@ rule figures:
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
+    params:
+        candidates=CANDIDATES,
+        figures=FIGURES,
+        code=code("stages/figures", "plots", script="scripts/figures.py"),
     script:
         "../scripts/figures.py"
 
@@ -45,7 +54,9 @@ rule card:
         split="results/{run}/split/summary.json",
         recipe="results/{run}/features/recipe.json",
         diagnostics="results/{run}/features/diagnostics.json",
-        models=expand("results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES),
+        models=expand(
+            "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
+        ),
         table="results/{run}/comparison/table.json",
         selected="results/{run}/comparison/selected.json",
         choice="results/{run}/threshold/choice.json",
@@ -56,9 +67,6 @@ rule card:
         html="results/{run}/card/model_card.html",
         pdf="results/{run}/card/model_card.pdf",
         sha256="results/{run}/card/card.sha256",
-    params:
-        code=code("stages/card", "card", "plots", script="scripts/card.py"),
-        templates=code_fingerprint((), extra_files=sorted(glob("reports/*"))),
     log:
         "logs/{run}/card.log",
     benchmark:
@@ -67,5 +75,8 @@ rule card:
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
+    params:
+        code=code("stages/card", "card", "plots", script="scripts/card.py"),
+        templates=code_fingerprint((), extra_files=sorted(glob("reports/*"))),
     script:
         "../scripts/card.py"

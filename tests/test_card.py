@@ -1,0 +1,330 @@
+"""The model card: numbers exactly as in the artifacts, byte-identical rerenders, escaped and
+laid-out hostile text, a fetcher that refuses everything outside the run folder, clear
+errors for missing artifacts, every section and the cautions present."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import os
+import re
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+import yaml
+from pypdf import PdfReader
+
+from oddsmith import card
+from oddsmith.card import (CardError, RunFolderFetcher, clip, fmt_count, fmt_fixed, fmt_p, fmt_pct, fmt_sig,
+                           render_card, render_pdf)
+from oddsmith.errors import ArtifactError
+
+ROOT = Path(__file__).resolve().parent.parent
+RUN = Path("results") / "lease_demo"
+
+
+def _pdf_text(path) -> str:
+    # pypdf interleaves NUL bytes when a font subset needs two-byte codes (many glyphs)
+    return "\n".join(page.extract_text().replace("\x00", "") for page in PdfReader(str(path)).pages)
+
+
+def _squash(text: str) -> str:
+    """Text without whitespace, so line breaks chosen by the layout do not matter."""
+    return "".join(text.split())
+
+
+def _cautions() -> str:
+    """The caution paragraph of DEVELOPERS.md, section "Cautions carried by every card"."""
+    section = (ROOT / "DEVELOPERS.md").read_text(encoding="utf-8").split("## Cautions carried by every card")[1]
+    return " ".join(line[2:] for line in section.splitlines() if line.startswith("> "))
+
+
+# ---------------------------------------------------------------------------------------------
+# number formats and small parts (no build needed)
+
+
+def test_number_formats():
+    assert fmt_fixed(0.7382910627, 3) == "0.738"
+    assert fmt_fixed(-0.0242, 3) == "−0.024"
+    assert fmt_fixed(-0.0001, 3) == "0.000"  # no negative zero
+    assert fmt_fixed(667462.6865, 0) == "667,463"
+    assert fmt_fixed(None) == "—" and fmt_fixed(float("nan")) == "—"
+    assert fmt_sig(-0.007672288832) == "−0.007672"
+    assert fmt_sig(1.41048932) == "1.410"
+    assert fmt_sig(1544.13246) == "1,544"
+    assert fmt_sig(3.2e-9) == "3.200e−09"
+    assert fmt_pct(0.39054726) == "39.1%"
+    assert fmt_count(12000) == "12,000"
+    assert fmt_p(3.3e-41) == "< 0.001" and fmt_p(0.50575) == "0.506"
+
+
+def test_clip_says_how_long_the_text_was():
+    assert clip("short") == "short"
+    long = "y" * 500
+    out = clip(long, 50)
+    assert len(out) < 100 and "[shortened; 500 characters in full]" in out
+    assert str(card.clip_html("<b>" + "z" * 40, 60)).startswith('<span class="long">&lt;b&gt;')
+
+
+def test_fetcher_allows_only_data_urls_and_files_inside_the_run(tmp_path):
+    run = tmp_path / "run"
+    (run / "figures").mkdir(parents=True)
+    inside = run / "figures" / "a.svg"
+    inside.write_text("<svg/>")
+    outside = tmp_path / "secret.txt"
+    outside.write_text("secret")
+    (run / "link.txt").symlink_to(outside)
+    fetcher = RunFolderFetcher(run)
+    assert fetcher.allows("data:image/svg+xml;base64,PHN2Zy8+")
+    assert fetcher.allows(inside.as_uri())
+    for url in ("http://example.invalid/x.png", "https://example.invalid/", "ftp://example.invalid/f",
+                "file:///etc/passwd", outside.as_uri(), (run / "link.txt").as_uri(),
+                (run / "figures" / ".." / ".." / "secret.txt").as_uri(), "file://otherhost" + str(inside),
+                (run / "missing.svg").as_uri(), "javascript:alert(1)"):
+        assert not fetcher.allows(url), url
+        with pytest.raises(card.RefusedFetch, match="refused"):
+            fetcher.fetch(url)
+    assert len(fetcher.refused) == 10
+
+
+@pytest.mark.parametrize("url", ["http://example.invalid/x.png", "file:///etc/passwd"])
+def test_a_refused_fetch_stops_the_render(tmp_path, url):
+    html = f'<html><body><p>x</p><img src="{url}"></body></html>'
+    with pytest.raises(CardError, match="refused"):
+        render_pdf(html, run_dir=tmp_path, epoch=0)
+
+
+def test_weasyprint_warnings_reach_the_log(tmp_path, caplog):
+    html = "<html><head><style>p { colour: red; } p { margin: banana; }</style></head><body><p>x</p></body></html>"
+    with caplog.at_level(logging.WARNING, logger="oddsmith.card"):
+        pdf = render_pdf(html, run_dir=tmp_path, epoch=0)
+    assert pdf.startswith(b"%PDF")
+    assert any(r.name == "oddsmith.card" and "weasyprint:" in r.getMessage() for r in caplog.records)
+
+
+def test_bad_release_is_refused():
+    for bad in ({"version": "1.0"}, {"released_at": "2026-01-01"}, {"version": "1", "released_at": "soon"}, "1.0"):
+        with pytest.raises(CardError, match="release"):
+            card._check_release(bad)
+    assert card._check_release(None) is None
+
+
+def test_code_state_in_plain_words():
+    assert "uncommitted changes" in card.code_state({"commit": "a" * 40, "dirty": True})
+    assert "was committed, with no uncommitted changes" in card.code_state({"commit": "a" * 40, "dirty": False})
+    assert "not built from a git checkout" in card.code_state(None)
+
+
+def test_template_carries_the_cautions_verbatim():
+    template = (ROOT / "reports" / card.TEMPLATE).read_text(encoding="utf-8")
+    assert _squash(_cautions()) in _squash(template)
+
+
+# ---------------------------------------------------------------------------------------------
+# the demo card (end to end)
+
+
+@pytest.fixture(scope="session")
+def demo_run(demo_build) -> Path:
+    return demo_build / RUN
+
+
+@pytest.fixture(scope="session")
+def demo_text(demo_run) -> str:
+    return _pdf_text(demo_run / "card" / "model_card.pdf")
+
+
+def _load(run: Path, rel: str):
+    return json.loads((run / rel).read_text(encoding="utf-8"))
+
+
+@pytest.mark.e2e
+def test_card_files_and_sha256_list(demo_run):
+    lines = (demo_run / "card" / "card.sha256").read_text().splitlines()
+    assert [line.split("  ")[1] for line in lines] == ["manifest.json", "card/model_card.html", "card/model_card.pdf"]
+    for line in lines:
+        digest, rel = line.split("  ")
+        assert hashlib.sha256((demo_run / rel).read_bytes()).hexdigest() == digest, rel
+    assert (demo_run / "card" / "model_card.pdf").read_bytes().startswith(b"%PDF")
+    log = (demo_run.parent.parent / "logs" / "lease_demo" / "card.log").read_text()
+    assert "weasyprint:" not in log, "WeasyPrint warned while rendering the demo card:\n" + log
+
+
+@pytest.mark.e2e
+def test_pdf_shows_key_numbers_exactly_as_formatted_from_the_artifacts(demo_run, demo_text):
+    metrics = _load(demo_run, "evaluation/metrics.json")
+    selected = _load(demo_run, "comparison/selected.json")["candidate"]
+    model = _load(demo_run, f"candidates/{selected}/model.json")
+    text = _squash(demo_text)
+    expected = [
+        fmt_fixed(metrics["auc_ci"]["auc"], 3),
+        f"{fmt_fixed(metrics['auc_ci']['lower'], 3)}–{fmt_fixed(metrics['auc_ci']['upper'], 3)}",
+        fmt_fixed(metrics["cutoff"], 4),
+        *(fmt_count(metrics["confusion"][k]) for k in ("tp", "fp", "tn", "fn")),
+        fmt_pct(metrics["confusion"]["flag_rate"]),
+        fmt_fixed(metrics["cost_per_1000"], 0),
+        fmt_fixed(metrics["overall"]["calibration_slope"], 3),
+    ]
+    row = next(r for r in model["coef_table"] if r["term"] == "credit_score")
+    expected += [fmt_sig(row["estimate"]), fmt_sig(row["std_error"])]
+    for value in expected:
+        assert _squash(value) in text, value
+    # the coefficient sits on the credit_score row of the coefficient table
+    assert _squash(f"credit_score {fmt_sig(row['estimate'])} {fmt_sig(row['std_error'])}") in text
+
+
+@pytest.mark.e2e
+def test_pdf_has_every_section_the_cautions_and_the_fingerprint(demo_run, demo_text):
+    text = _squash(demo_text)
+    for _, heading in card.SECTIONS:
+        assert _squash(heading) in text, heading
+    assert _squash(_cautions()) in text
+    fingerprint = hashlib.sha256((demo_run / "manifest.json").read_bytes()).hexdigest()
+    assert fingerprint[:12] in text
+    assert "Mitchelletal." in text
+    assert "Workingdraft" in text and "Release" not in demo_text.split("Working draft")[0]
+
+
+@pytest.mark.e2e
+def test_rerender_is_byte_identical_in_another_folder_time_and_hash_seed(demo_run, tmp_path):
+    """Render again in a fresh interpreter (another PYTHONHASHSEED, another clock time, an
+    unrelated SOURCE_DATE_EPOCH in the environment) from a copy of the run in another
+    folder: HTML and PDF bytes equal the workflow's."""
+    copy = tmp_path / "elsewhere" / "lease_demo"
+    shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
+    env = dict(os.environ, PYTHONHASHSEED="987", SOURCE_DATE_EPOCH="86400")
+    script = f"from oddsmith.card import render_card; render_card({str(copy)!r})"
+    subprocess.run([sys.executable, "-c", script], check=True, cwd=tmp_path, env=env, capture_output=True)
+    for name in ("model_card.html", "model_card.pdf", "card.sha256"):
+        assert (copy / "card" / name).read_bytes() == (demo_run / "card" / name).read_bytes(), name
+
+
+@pytest.mark.e2e
+def test_release_copy_says_release_and_keeps_the_draft_untouched(demo_run, tmp_path):
+    before = (demo_run / "card" / "model_card.pdf").read_bytes()
+    out = tmp_path / "release"
+    hashes = render_card(demo_run, out_dir=out, release={"version": "1.0.0", "released_at": "2026-02-01"})
+    text = _pdf_text(out / "model_card.pdf")
+    assert "Release 1.0.0" in text and "released 2026-02-01" in text
+    assert "Working draft" not in text
+    assert (demo_run / "card" / "model_card.pdf").read_bytes() == before
+    assert set(hashes) == {"manifest.json", os.path.relpath(out / "model_card.html", demo_run),
+                           os.path.relpath(out / "model_card.pdf", demo_run)}
+
+
+@pytest.mark.e2e
+def test_missing_artifacts_are_named_and_nothing_is_written(demo_run, tmp_path):
+    copy = tmp_path / "lease_demo"
+    shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
+    (copy / "evaluation" / "metrics.json").unlink()
+    (copy / "figures" / "roc.svg").unlink()
+    with pytest.raises(ArtifactError) as info:
+        render_card(copy)
+    message = str(info.value)
+    assert "evaluation/metrics.json" in message and "figures/roc.svg" in message
+    assert not (copy / "card").exists()
+
+
+# ---------------------------------------------------------------------------------------------
+# hostile text
+
+
+HOSTILE = {
+    "script": "<script>alert('x')</script>",
+    "image": '<img src="http://example.invalid/track.png">',
+    "file": '<a href="file:///etc/passwd">file:///etc/passwd</a>',
+    "css": '<style>@import url("http://example.invalid/x.css");</style>',
+    "long": "L" * 5000,
+    "rtl": "ملف الاختبار שלום עולם",
+    "cjk": "设备租赁违约模型 日本語のテキスト",
+}
+
+
+def _poison(run: Path) -> None:
+    """Write hostile text into the config (via the manifest), labels, names and paths."""
+    def edit(rel, change):
+        path = run / rel
+        data = json.loads(path.read_text(encoding="utf-8"))
+        change(data)
+        path.write_text(json.dumps(data, ensure_ascii=False), encoding="utf-8")
+
+    def manifest(m):
+        c = m["config"]["card"]
+        c["title"] = HOSTILE["script"] + " " + HOSTILE["cjk"]
+        c["owner"] = HOSTILE["rtl"] + " " + HOSTILE["image"]
+        c["intended_use"] = HOSTILE["file"] + " " + HOSTILE["long"]
+        c["out_of_scope"] = [HOSTILE["css"], HOSTILE["long"], HOSTILE["rtl"]]
+        c["version"] = HOSTILE["image"]
+        m["files"][HOSTILE["script"] + "/" + HOSTILE["long"]] = {"sha256": "0" * 64, "size": 1, "rule": HOSTILE["image"]}
+
+    def subgroups(s):
+        block = s["attributes"].pop("owner_age_band")
+        for row, label in zip(block["rows"], (HOSTILE["script"], HOSTILE["image"], HOSTILE["long"], HOSTILE["cjk"])):
+            row["group"] = label
+            row["reference_group"] = HOSTILE["rtl"]
+        s["attributes"][HOSTILE["file"]] = block
+
+    def model(m):
+        m["coef_table"][1]["term"] = HOSTILE["image"]
+        m["coef_table"][2]["term"] = HOSTILE["long"]
+        m["warnings"] = [HOSTILE["script"]]
+
+    def diagnostics(d):
+        d["leakage"]["features"][0]["feature"] = HOSTILE["css"]
+        d["vif"]["values"][0]["column"] = HOSTILE["long"]
+        d["correlations"]["pairs"][:0] = [{"a": HOSTILE["image"], "b": HOSTILE["long"], "r": 0.9}]
+
+    def report(r):
+        r["source"]["path"] = "file:///etc/passwd/" + HOSTILE["long"]
+        r["warnings"] = [HOSTILE["image"]]
+
+    edit("manifest.json", manifest)
+    edit("evaluation/subgroups.json", subgroups)
+    edit(f"candidates/{json.loads((run / 'comparison/selected.json').read_text())['candidate']}/model.json", model)
+    edit("features/diagnostics.json", diagnostics)
+    edit("validated/report.json", report)
+    contract_path = run / "validated" / "contract.yaml"
+    contract = yaml.safe_load(contract_path.read_text(encoding="utf-8"))
+    contract["columns"][HOSTILE["script"] + HOSTILE["long"]] = {"type": "category", "levels": [HOSTILE["image"]],
+                                                                "description": HOSTILE["rtl"]}
+    contract_path.write_text(yaml.safe_dump(contract, allow_unicode=True), encoding="utf-8")
+
+
+@pytest.mark.e2e
+def test_hostile_text_is_escaped_laid_out_and_never_fetched(demo_run, tmp_path, monkeypatch):
+    copy = tmp_path / "lease_demo"
+    shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
+    _poison(copy)
+    seen = []
+    original = RunFolderFetcher.fetch
+
+    def spy(self, url, headers=None):
+        seen.append(url)
+        return original(self, url, headers)
+
+    monkeypatch.setattr(RunFolderFetcher, "fetch", spy)
+    render_card(copy)
+    html = (copy / "card" / "model_card.html").read_text(encoding="utf-8")
+    assert all(url.startswith("data:image/svg+xml;base64,") for url in seen), [u[:80] for u in seen]
+    body = html.split("</style>", 1)[1]
+    assert "<script" not in body and "<img src=\"http" not in body and "<a href" not in body
+    assert "@import" not in html.split("</style>", 1)[0]
+    assert "&lt;script&gt;" in body and "&lt;img src=&#34;http://example.invalid/track.png&#34;&gt;" in body
+    assert "[shortened; 5,000 characters in full]" in body
+    assert HOSTILE["rtl"] in body and HOSTILE["cjk"] in body
+    assert "L" * 1300 not in body, "very long text is shortened"
+    head = html.split("<body>", 1)[0]
+    assert head.count("<meta ") == 5 and "<span" not in head, "attributes stay intact"
+    text = _pdf_text(copy / "card" / "model_card.pdf")
+    assert "<script>alert('x')</script>" in text, "hostile text is printed as text"
+    reader = PdfReader(str(copy / "card" / "model_card.pdf"))
+    assert len(reader.pages) < 20
+    for page in reader.pages:  # nothing is laid out beyond the page edge
+        width = float(page.mediabox.width)
+        boxes = []
+        page.extract_text(visitor_text=lambda t, cm, tm, fd, fs: boxes.append((tm[4] * cm[0] + cm[4], t)))
+        assert all(x <= width + 1 for x, t in boxes if t.strip()), [t for x, t in boxes if x > width + 1][:3]

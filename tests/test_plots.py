@@ -1,0 +1,152 @@
+"""Figures of the model card: deterministic SVG bytes, hostile labels, every model shape,
+and the ROC points against scikit-learn (the reference library)."""
+
+from __future__ import annotations
+
+import os
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn.metrics import roc_curve
+
+from oddsmith import plots
+
+HOSTILE = [
+    "<script>alert(1)</script>",
+    '<img src="http://example.invalid/x.png">',
+    "file:///etc/passwd",
+    "$\\frac{a}{$ unbalanced mathtext",
+    "--><script>alert(1)</script><!--",
+    "x" * 300,
+    "مجموعة عربية",
+    "קבוצה",
+    "中文组别",
+]
+
+
+@pytest.fixture()
+def scores():
+    rng = np.random.default_rng(20261202)
+    y = rng.integers(0, 2, 400)
+    p = np.clip(rng.normal(0.25 + 0.2 * y, 0.12), 0.001, 0.999).round(2)  # rounding creates ties
+    return y, p
+
+
+def _no_external_reference(svg: bytes) -> None:
+    text = svg.decode("utf-8")
+    assert "<image" not in text and "<script" not in text and "<img" not in text
+    # Labels are echoed in XML comments (escaped by matplotlib); only markup can reference.
+    markup = re.sub(r"<!--.*?-->", "", text, flags=re.S)
+    assert "-->" not in markup
+    urls = set(re.findall(r"(?:href|src)=\"([^\"]+)\"", markup))
+    assert all(u.startswith("#") for u in urls), urls
+
+
+def test_roc_points_match_scikit_learn_with_ties(scores):
+    # scikit-learn's roc_curve is the reference implementation (REFERENCES.md).
+    y, p = scores
+    fpr, tpr = plots.roc_points(y, p)
+    ref_fpr, ref_tpr, _ = roc_curve(y, p, drop_intermediate=False)
+    np.testing.assert_allclose(fpr, ref_fpr, atol=1e-12)
+    np.testing.assert_allclose(tpr, ref_tpr, atol=1e-12)
+
+
+def test_roc_points_hand_computed():
+    fpr, tpr = plots.roc_points([0, 1, 0, 1], [0.2, 0.2, 0.1, 0.9])
+    assert fpr.tolist() == [0.0, 0.0, 0.5, 1.0]
+    assert tpr.tolist() == [0.0, 0.5, 1.0, 1.0]
+
+
+def test_every_figure_is_deterministic_svg_without_external_references(scores):
+    y, p = scores
+    curve = pd.DataFrame({"cutoff": np.linspace(0.01, 0.99, 50), "expected_cost_per_case": np.linspace(900, 700, 50)})
+    bins = [{"mean_predicted": m, "observed_rate": m * 1.1, "ci_low": m * 0.8, "ci_high": m * 1.3, "n": 40}
+            for m in (0.1, 0.2, 0.3, 0.4)]
+    makers = {
+        "roc": lambda: plots.roc_svg(y, p, auc=0.74, auc_low=0.7, auc_high=0.78, cutoff=0.3,
+                                     operating_point=(0.3, 0.7)),
+        "reliability": lambda: plots.reliability_svg(bins),
+        "cost_curve": lambda: plots.cost_curve_svg(curve, adopted=0.3, bayes=0.25, interval=(0.2, 0.35),
+                                                   flag_none=1040, flag_all=990),
+        "score_distribution": lambda: plots.score_distribution_svg(y, p, cutoff=0.3),
+    }
+    for name, make in makers.items():
+        first, second = make(), make()
+        assert first == second, name
+        assert first.startswith(b"<?xml"), name
+        assert b"<dc:date>" not in first, name
+        _no_external_reference(first)
+
+
+def test_series_differ_by_line_style_not_only_colour():
+    curve = pd.DataFrame({"cutoff": [0.1, 0.5, 0.9], "expected_cost_per_case": [900.0, 700.0, 950.0]})
+    svg = plots.cost_curve_svg(curve, adopted=0.5, bayes=0.4, interval=(0.45, 0.55), flag_none=1000, flag_all=990)
+    dashes = set(re.findall(rb"stroke-dasharray: ([0-9., ]+)", svg))
+    assert len(dashes) >= 3, dashes  # flag none, flag all and Bayes each have their own dash pattern
+    assert b"<pattern" in svg  # the bootstrap interval is hatched
+
+
+def _coef_row(term, estimate, *, logit):
+    row = {"term": term, "estimate": estimate, "ci_low": estimate - 0.2, "ci_high": estimate + 0.2,
+           "std_error": 0.1, "z": estimate / 0.1, "p_value": 0.05, "ame": None, "ame_std_error": None,
+           "odds_ratio": None, "or_ci_low": None, "or_ci_high": None}
+    if logit:
+        row |= {"odds_ratio": np.exp(estimate), "or_ci_low": np.exp(estimate - 0.2), "or_ci_high": np.exp(estimate + 0.2)}
+    return row
+
+
+@pytest.mark.parametrize("shape", ["logit", "cloglog", "penalised", "baseline"])
+def test_coefficient_chart_handles_every_model_shape(shape):
+    terms = ["intercept", *HOSTILE]
+    model = {"candidate": "<b>cand</b>", "kind": shape, "link": "logit" if shape != "cloglog" else "cloglog",
+             "coef_table": [], "coefficients": {}}
+    if shape in ("logit", "cloglog"):
+        model["coef_table"] = [_coef_row(t, 0.1 * i, logit=shape == "logit") for i, t in enumerate(terms)]
+    elif shape == "penalised":
+        model["coefficients"] = {t: 0.1 * i for i, t in enumerate(HOSTILE)}
+    svg = plots.coefficients_svg(model)
+    assert svg == plots.coefficients_svg(model)
+    _no_external_reference(svg)
+
+
+def test_subgroup_chart_with_hostile_labels_small_groups_and_no_attributes():
+    rows = [{"group": g, "adverse_impact_ratio": r, "adverse_impact_flag": r < 0.8, "flag_rate": 0.3, "too_small": False}
+            for g, r in zip(HOSTILE, (0.5, 0.79, 0.8, 0.95, 1.0, 0.9, 0.85, 0.7))]
+    rows.append({"group": "tiny", "adverse_impact_ratio": None, "adverse_impact_flag": None, "flag_rate": None,
+                 "too_small": True})
+    svg = plots.subgroups_svg({"<script>": {"kind": "sensitive", "rows": rows}})
+    _no_external_reference(svg)
+    assert plots.subgroups_svg({}).startswith(b"<?xml")
+
+
+def test_short_label_marks_the_cut():
+    assert plots.short_label("a" * 100).endswith("…")
+    assert len(plots.short_label("a" * 100)) == plots.LABEL_LIMIT
+    assert plots.short_label("  spaced\nlabel ") == "spaced label"
+
+
+@pytest.mark.e2e
+def test_figures_rebuild_byte_identical_in_another_process(demo_build, tmp_path):
+    """The figures stage, rerun in a fresh interpreter with another hash seed into another
+    folder, writes the same bytes as the workflow's figures rule."""
+    run = demo_build / "results" / "lease_demo"
+    candidates = sorted(p.name for p in (run / "candidates").iterdir())
+    script = f"""
+from oddsmith.stages.figures import run_figures
+run = {str(run)!r}
+run_figures(predictions_path=run + "/evaluation/predictions.parquet", metrics_path=run + "/evaluation/metrics.json",
+            subgroups_path=run + "/evaluation/subgroups.json", choice_path=run + "/threshold/choice.json",
+            curve_path=run + "/threshold/cost_curve.parquet", selected_path=run + "/comparison/selected.json",
+            model_paths={{c: run + "/candidates/" + c + "/model.json" for c in {candidates!r}}},
+            out={{n: {str(tmp_path)!r} + "/" + n + ".svg" for n in {list(plots.FIGURE_NAMES)!r}}})
+"""
+    env = dict(os.environ, PYTHONHASHSEED="4242", SOURCE_DATE_EPOCH="1")
+    subprocess.run([sys.executable, "-c", script], check=True, cwd=tmp_path, env=env, capture_output=True)
+    for name in plots.FIGURE_NAMES:
+        assert (tmp_path / f"{name}.svg").read_bytes() == (run / "figures" / f"{name}.svg").read_bytes(), name
+    assert not list(Path(run / "figures").glob("*.part")), "no partial writes left"
