@@ -383,3 +383,24 @@ def test_carried_text_from_the_batch_is_neutralised_in_csv_only():
 
     with pytest.raises(ConfigError, match="'y' is not a contract column other than the id and target"):
         _settings(sm, {"carry_columns": ["y"]})
+
+
+@pytest.mark.e2e
+def test_contributions_add_up_for_every_candidate_kind(demo_build, tmp_path):
+    # Standardised (penalised), subset, probit, cloglog and intercept-only models alike:
+    # the contributions of a row sum to eta - eta_ref (training_mean reference).
+    paths = _paths(demo_build)
+    batch = None
+    for name in paths["model_paths"]:
+        selected = tmp_path / f"{name}.json"
+        selected.write_text(json.dumps({"candidate": name}))
+        sm = load_artifacts(**(paths | {"selected_path": selected}), id_column="application_id",
+                            target="serious_delinquency")
+        if batch is None:
+            batch, _ = check_batch(sm, pd.read_csv(BATCH, dtype=str, keep_default_na=False, na_values=[""]))
+        reference = reason_reference(sm)
+        X, _ = design_matrix(sm, batch)
+        scored = score_frame(sm, batch, reference=reference)
+        total = contributions(sm, X, reference).sum(axis=1)
+        np.testing.assert_allclose(total, scored["linear_predictor"] - reference["eta"], rtol=0, atol=1e-9,
+                                   err_msg=name)
