@@ -204,19 +204,6 @@ def test_rerender_is_byte_identical_in_another_folder_time_and_hash_seed(demo_ru
 
 
 @pytest.mark.e2e
-def test_release_copy_says_release_and_keeps_the_draft_untouched(demo_run, tmp_path):
-    before = (demo_run / "card" / "model_card.pdf").read_bytes()
-    out = tmp_path / "release"
-    hashes = render_card(demo_run, out_dir=out, release={"version": "1.0.0", "released_at": "2026-02-01"})
-    text = _pdf_text(out / "model_card.pdf")
-    assert "Release 1.0.0" in text and "released 2026-02-01" in text
-    assert "Working draft" not in text
-    assert (demo_run / "card" / "model_card.pdf").read_bytes() == before
-    assert set(hashes) == {"manifest.json", os.path.relpath(out / "model_card.html", demo_run),
-                           os.path.relpath(out / "model_card.pdf", demo_run)}
-
-
-@pytest.mark.e2e
 def test_missing_artifacts_are_named_and_nothing_is_written(demo_run, tmp_path):
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
@@ -295,7 +282,7 @@ def _poison(run: Path) -> None:
 
 
 @pytest.mark.e2e
-def test_hostile_text_is_escaped_laid_out_and_never_fetched(demo_run, tmp_path, monkeypatch):
+def test_hostile_text_is_escaped_laid_out_and_never_fetched_in_a_release_copy(demo_run, tmp_path, monkeypatch):
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
     _poison(copy)
@@ -307,8 +294,11 @@ def test_hostile_text_is_escaped_laid_out_and_never_fetched(demo_run, tmp_path, 
         return original(self, url, headers)
 
     monkeypatch.setattr(RunFolderFetcher, "fetch", spy)
-    render_card(copy)
-    html = (copy / "card" / "model_card.html").read_text(encoding="utf-8")
+    out = tmp_path / "release"  # a release copy outside the run folder, as a release tool writes it
+    hashes = render_card(copy, out_dir=out, release={"version": "2.0<b>", "released_at": "2026-02-01"})
+    assert list(hashes) == ["manifest.json", "../release/model_card.html", "../release/model_card.pdf"]
+    assert not (copy / "card").exists()
+    html = (out / "model_card.html").read_text(encoding="utf-8")
     assert all(url.startswith("data:image/svg+xml;base64,") for url in seen), [u[:80] for u in seen]
     body = html.split("</style>", 1)[1]
     assert "<script" not in body and "<img src=\"http" not in body and "<a href" not in body
@@ -319,9 +309,10 @@ def test_hostile_text_is_escaped_laid_out_and_never_fetched(demo_run, tmp_path, 
     assert "L" * 1300 not in body, "very long text is shortened"
     head = html.split("<body>", 1)[0]
     assert head.count("<meta ") == 5 and "<span" not in head, "attributes stay intact"
-    text = _pdf_text(copy / "card" / "model_card.pdf")
+    text = _pdf_text(out / "model_card.pdf")
     assert "<script>alert('x')</script>" in text, "hostile text is printed as text"
-    reader = PdfReader(str(copy / "card" / "model_card.pdf"))
+    assert "Release 2.0<b>" in text and "released 2026-02-01" in text and "Working draft" not in text
+    reader = PdfReader(str(out / "model_card.pdf"))
     assert len(reader.pages) < 20
     for page in reader.pages:  # nothing is laid out beyond the page edge
         width = float(page.mediabox.width)
