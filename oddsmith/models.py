@@ -771,6 +771,10 @@ def _fit_penalised(values: np.ndarray, outcome: np.ndarray, names: list[str], *,
                    grid: list[float], inner_folds: int, l1_ratio: float, max_iter: int,
                    seed: int) -> FittedModel:
     notes = _penalised_notes(values, outcome, names)
+    if l1_ratio > 0.0:
+        # One C-ordered copy serves the proximal Newton passes and saga (which would
+        # otherwise make its own).
+        values = np.ascontiguousarray(values)
     losses, converged = _inner_cv_log_loss(values, outcome, grid=grid, inner_folds=inner_folds,
                                            l1_ratio=l1_ratio, max_iter=max_iter, seed=seed)
     chosen = _choose_C(grid, losses, converged, kind=kind, max_iter=max_iter)
@@ -904,28 +908,24 @@ _NEWTON_TOL = 1e-9
 
 
 def _blocks(values: np.ndarray, outcome: np.ndarray | None, rows: np.ndarray | None):
-    """Yield (design block with a leading column of ones, outcome block) over the rows."""
+    """Yield (rows of ``values``, matching outcome) block by block; slices are views."""
     n = values.shape[0] if rows is None else rows.size
     for start in range(0, n, _ROW_BLOCK):
         index = slice(start, start + _ROW_BLOCK) if rows is None else rows[start:start + _ROW_BLOCK]
-        block = values[index]
-        design = np.empty((block.shape[0], block.shape[1] + 1))
-        design[:, 0] = 1.0
-        design[:, 1:] = block
-        yield design, (None if outcome is None else outcome[index])
+        yield values[index], (None if outcome is None else outcome[index])
 
 
 def _blocked_linear_predictor(values: np.ndarray, rows: np.ndarray | None,
                               coef: np.ndarray) -> np.ndarray:
     """``coef[0] + values[rows] @ coef[1:]`` without copying ``values[rows]`` whole."""
-    return np.concatenate([design @ coef for design, _ in _blocks(values, None, rows)])
+    return np.concatenate([coef[0] + block @ coef[1:] for block, _ in _blocks(values, None, rows)])
 
 
 def _penalised_objective(values, outcome, rows, coef, *, C: float, l1_ratio: float) -> float:
     """``C * sum(log loss) + l1_ratio * |w|_1 + (1 - l1_ratio)/2 * |w|^2`` (w: no intercept)."""
     loss = 0.0
-    for design, y in _blocks(values, outcome, rows):
-        eta = design @ coef
+    for block, y in _blocks(values, outcome, rows):
+        eta = coef[0] + block @ coef[1:]
         loss += float(np.sum(np.logaddexp(0.0, eta) - y * eta))
     return C * loss + _penalty_value(coef, l1_ratio)
 
@@ -939,10 +939,15 @@ def _gradient_hessian(values, outcome, rows, coef, *, C: float):
     """Gradient and Hessian of ``C * sum(log loss)`` at ``coef`` (intercept first)."""
     size = coef.size
     gradient, hessian = np.zeros(size), np.zeros((size, size))
-    for design, y in _blocks(values, outcome, rows):
-        p = scipy.special.expit(design @ coef)
-        gradient += design.T @ (p - y)
-        hessian += design.T @ (design * (p * (1.0 - p))[:, None])
+    for block, y in _blocks(values, outcome, rows):
+        p = scipy.special.expit(coef[0] + block @ coef[1:])
+        weight = p * (1.0 - p)
+        gradient[0] += np.sum(p - y)
+        gradient[1:] += block.T @ (p - y)
+        hessian[0, 0] += np.sum(weight)
+        hessian[0, 1:] += block.T @ weight
+        hessian[1:, 1:] += block.T @ (block * weight[:, None])
+    hessian[1:, 0] = hessian[0, 1:]
     return C * gradient, C * hessian
 
 
@@ -1015,6 +1020,8 @@ def _proximal_newton_path(values, outcome, grid: list[float], *, rows, l1_ratio:
     Returns one ``(coef, converged)`` per C, ``coef`` = [intercept, coefficients...].
     """
     outcome = outcome.astype(float)
+    # Row blocks of a C-ordered matrix are contiguous (views, or fast gathers by row).
+    values = np.ascontiguousarray(values)
     coef = np.zeros(values.shape[1] + 1)
     fits = []
     for c in grid:
