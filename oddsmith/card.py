@@ -233,7 +233,7 @@ def clip_html(text, limit: int = NAME_LIMIT) -> Markup:
 
 FILTERS = {
     "fixed": fmt_fixed, "sig": fmt_sig, "pct": fmt_pct, "count": fmt_count, "p": fmt_p, "short": fmt_hash,
-    "clip": clip_html, "plain": clip, "cutoff": lambda x: fmt_fixed(x, 4) if x is not None else "none (flag no case)",
+    "clip": clip_html, "plain": clip, "g": lambda x: MISSING if _bad(x) else _minus(f"{x:g}"), "cutoff": lambda x: fmt_fixed(x, 4) if x is not None else "none (flag no case)",
     "cost": lambda x: fmt_fixed(x, 0), "metric": lambda x: fmt_fixed(x, 3), "loss": lambda x: fmt_fixed(x, 4),
 }
 

@@ -77,6 +77,8 @@ rule card:
         runtime=RES["runtime"],
     params:
         code=code("stages/card", "card", "plots", script="scripts/card.py"),
-        templates=code_fingerprint((), extra_files=sorted(glob("reports/*"))),
+        templates=code_fingerprint(
+            (), extra_files=sorted(glob("reports/*.j2") + glob("reports/*.css"))
+        ),
     script:
         "../scripts/card.py"

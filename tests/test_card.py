@@ -16,6 +16,7 @@ from pathlib import Path
 
 import pytest
 import yaml
+from markupsafe import escape
 from pypdf import PdfReader
 
 from oddsmith import card
@@ -319,3 +320,42 @@ def test_hostile_text_is_escaped_laid_out_and_never_fetched_in_a_release_copy(de
         boxes = []
         page.extract_text(visitor_text=lambda t, cm, tm, fd, fs: boxes.append((tm[4] * cm[0] + cm[4], t)))
         assert all(x <= width + 1 for x, t in boxes if t.strip()), [t for x, t in boxes if x > width + 1][:3]
+
+
+@pytest.mark.e2e
+def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
+    copy = tmp_path / "lease_demo"
+    shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
+    run = card.load_run(copy)
+    run["diagnostics"]["events_per_parameter"] = 6.5  # Peduzzi et al. (1996): below 10
+    run["metrics"]["overall"]["calibration_slope"] = 0.71  # outside [0.8, 1.2]
+    run["table"]["rows"][0] |= {"status": "failed", "reason": "quasi-complete separation on <x>"}
+    run["diagnostics"]["leakage"]["suspected"] = [{"feature": "days_past_due_at_review", "auc": 0.99}]
+    run["diagnostics"]["vif"]["flagged"] = [{"column": "credit_score", "vif": 14.2}]
+    run["split"]["base_rate_test"]["p_value"] = 0.0004
+    run["manifest"]["git"] = {"commit": "f" * 40, "dirty": True}
+    attention = {f["check"]: f for f in card.findings(run) if f["status"] == "attention"}
+    assert "6.5" in attention["Events per parameter (training)"]["found"]
+    assert attention["Calibration slope (test)"]["found"] == "0.710"
+    assert "quasi-complete separation" in attention["Candidates that could not be fitted"]["found"]
+    assert "days_past_due_at_review" in attention["Suspected leaks"]["found"]
+    assert "credit_score" in attention["Variance inflation"]["found"]
+    assert "< 0.001" in attention["Base-rate drift between training and test"]["found"]
+    assert "uncommitted changes" in attention["Code state"]["found"]
+    assert "18-34 (0.642)" in attention["Groups below the four-fifths screen"]["found"]
+    assert all(f["advice"] for f in attention.values())
+    html = card.render_html(card.build_context(run, release=None))
+    for f in attention.values():
+        assert str(escape(f["advice"])) in html
+
+
+@pytest.mark.e2e
+def test_a_penalised_selection_shows_its_penalty_instead_of_wald_intervals(demo_run, tmp_path):
+    copy = tmp_path / "lease_demo"
+    shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
+    (copy / "comparison" / "selected.json").write_text(json.dumps({"candidate": "lasso", "reason": "test"}))
+    run = card.load_run(copy)
+    html = card.render_html(card.build_context(run, release=None))
+    penalty = run["model"]["penalty"]
+    assert f"C = {penalty['C']:g} chosen from" in html and "Standardised coefficient" in html
+    assert "Odds ratio" not in html
