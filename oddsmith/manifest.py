@@ -214,20 +214,27 @@ def _file_entries(run: str, run_dir: Path, stamps: list[str | Path]) -> tuple[di
     return entries, recorded
 
 
-def raw_input_entries(paths, *, project_dir: str | Path = ".") -> dict:
-    """``{project-relative path: {"sha256", "size"}}`` of the raw data, contract and config files."""
+def raw_input_entries(roles: dict, *, project_dir: str | Path = ".") -> dict:
+    """``{project-relative path: {"sha256", "size", "role"}}`` of the raw inputs.
+
+    ``roles`` maps each path the build read from outside the results folder to what it is
+    (``data``, ``contract``, ``config``, ``scoring batch``).
+    """
     project_dir = Path(project_dir).resolve()
     entries = {}
-    for path in paths:
+    for path, role in roles.items():
         full = (project_dir / path).resolve()
         rel = Path(os.path.relpath(full, project_dir)).as_posix()
-        entries[rel] = {"sha256": sha256_file(full), "size": full.stat().st_size}
+        entries[rel] = {"sha256": sha256_file(full), "size": full.stat().st_size, "role": role}
     return dict(sorted(entries.items()))
 
 
 def build_manifest(*, run: str, run_dir: str | Path, stamps, raw_inputs, config: dict, build: dict,
                    card_rule: dict | None = None, project_dir: str | Path = ".") -> dict:
     """Assemble the manifest of ``run_dir`` (``results/<run>``) from the job stamps.
+
+    ``raw_inputs`` maps each raw input path (data, contract, config files, a scoring batch) to
+    its role.
 
     Every regular file in the folder (outside ``card/``) must be claimed by a stamp of this
     build; a file no stamp claims (a leftover of an earlier configuration) is an error, so a

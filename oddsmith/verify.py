@@ -161,7 +161,7 @@ def _check_structure(manifest: dict, raw: bytes, problems: list[str]) -> dict:
     if git is not None and not (isinstance(git, dict) and isinstance(git.get("dirty"), bool)):
         problems.append(f"manifest git must be null or {{commit, dirty}}, found {git!r}")
     for key, entry in _mapping(manifest, "raw_inputs", problems).items():
-        if not isinstance(entry, dict) or not is_hex_digest(entry.get("sha256")):
+        if not isinstance(entry, dict) or not is_hex_digest(entry.get("sha256")) or not isinstance(entry.get("role"), str):
             problems.append(f"raw input {key!r}: malformed entry {entry!r}")
     entries = {}
     for path, entry in _mapping(manifest, "files", problems).items():
@@ -463,10 +463,8 @@ def _run_rebuild(manifest: dict, run_dir: Path, work: Path, *, cores: int) -> li
 
 
 def _config_files(manifest: dict) -> list[str]:
-    """The recorded raw inputs that are config files (neither the data nor its contract)."""
-    data = manifest.get("config", {}).get("data", {})
-    not_config = {posixpath.normpath(str(data.get("path"))), posixpath.normpath(str(data.get("contract")))}
-    return [p for p in sorted(manifest.get("raw_inputs", {})) if posixpath.normpath(p) not in not_config]
+    """The recorded raw inputs that are configuration files."""
+    return [p for p, entry in sorted(manifest.get("raw_inputs", {}).items()) if entry.get("role") == "config"]
 
 
 def _compare_runs(recorded_dir: Path, rebuilt_dir: Path) -> list[str]:

@@ -71,6 +71,12 @@ def config_files():
     return list(dict.fromkeys(rel))
 
 
+def scoring_batches():
+    """The later batch the score rule reads, when the config names one (a raw input)."""
+    batch = (CONFIG.get("scoring") or {}).get("data")
+    return [batch] if batch else []
+
+
 def rule_fingerprint(name):
     """Params hash and code fingerprint of the named rule, or None when it is not defined.
 

@@ -4,6 +4,7 @@ rule manifest:
         data=CONFIG["data"]["path"],
         contract=CONFIG["data"]["contract"],
         configs=config_files(),
+        batches=scoring_batches(),
     output:
         manifest="results/{run}/manifest.json",
     log:

@@ -6,6 +6,8 @@ from oddsmith.runner import stage
 from oddsmith.stages.manifest import run_manifest
 
 sm = snakemake  # noqa: F821 (provided by Snakemake)
+raw_inputs = {sm.input.data: "data", sm.input.contract: "contract"} | {p: "config" for p in sm.input.configs} \
+    | {p: "scoring batch" for p in sm.input.batches}
 stage(sm, run_manifest, run=sm.wildcards.run, run_dir=os.path.dirname(sm.output.manifest), stamps=list(sm.input.stamps),
-      raw_inputs=[sm.input.data, sm.input.contract, *sm.input.configs], config=sm.params.config,
+      raw_inputs=raw_inputs, config=sm.params.config,
       build=sm.params.build, card_rule=sm.params.card_rule, out_manifest=sm.output.manifest)

@@ -54,7 +54,8 @@ def _build(project: Path, stamps) -> dict:
     os.chdir(project)
     try:
         return build_manifest(run=RUN, run_dir=f"results/{RUN}", stamps=[Path(s).relative_to(project) for s in stamps],
-                              raw_inputs=["data/raw.csv", "config.yaml"], config={"run": RUN}, build=BUILD)
+                              raw_inputs={"data/raw.csv": "data", "config.yaml": "config"}, config={"run": RUN},
+                              build=BUILD)
     finally:
         os.chdir(old)
 
@@ -71,7 +72,8 @@ def test_every_file_is_joined_with_the_stamp_of_its_job(tmp_path):
     assert model["sha256"] == sha256_bytes(b'{"b": 1}\n') and model["size"] == 9
     assert model["inputs"] == {f"results/{RUN}/validated/data.txt": sha256_bytes(b"typed rows\n")}
     assert model["code_sha256"] == sha256_bytes(b"code fit")
-    assert manifest["raw_inputs"]["data/raw.csv"] == {"sha256": sha256_file(project / "data/raw.csv"), "size": 13}
+    assert manifest["raw_inputs"]["data/raw.csv"] == {"sha256": sha256_file(project / "data/raw.csv"), "size": 13,
+                                                      "role": "data"}
     assert list(manifest["raw_inputs"]) == ["config.yaml", "data/raw.csv"]
     assert manifest["release"] is None and manifest["git"] is None and manifest["source_date_epoch"] == 1767225600
 
@@ -217,8 +219,13 @@ def test_demo_manifest_covers_every_artifact(demo_run, demo_build):
         assert entry["sha256"] == sha256_file(demo_run / rel), rel
         assert entry["rule"] and entry["stamp"].startswith("provenance/"), rel
     assert manifest["files"]["candidates/lasso/model.json"]["stamp"] == "provenance/fit-lasso.json"
-    assert set(manifest["raw_inputs"]) == {"data_demo/lease_applications.csv", "config/config.yaml",
-                                           "schemas/contracts/lease_applications.yaml"}
+    roles = {"data_demo/lease_applications.csv": "data", "config/config.yaml": "config",
+             "schemas/contracts/lease_applications.yaml": "contract"}
+    if manifest["config"].get("scoring", {}).get("data"):
+        roles[manifest["config"]["scoring"]["data"]] = "scoring batch"
+    assert {path: entry["role"] for path, entry in manifest["raw_inputs"].items()} == roles
+    for path, entry in manifest["raw_inputs"].items():
+        assert entry["sha256"] == sha256_file(demo_build / path), path
     resolved = check_config(read_config_file(demo_build / "config" / "config.yaml"), project_dir=demo_build)
     assert manifest["config"] == json.loads(canonical_json(resolved))
     assert manifest["source_date_epoch"] == 1767225600 and manifest["git"] is None

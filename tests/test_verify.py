@@ -63,7 +63,7 @@ def small_run(tmp_path) -> Path:
     try:
         manifest = build_manifest(run=RUN, run_dir=f"results/{RUN}",
                                   stamps=[f"results/{RUN}/provenance/validate.json", f"results/{RUN}/provenance/fit-a.json"],
-                                  raw_inputs=["data/raw.csv"], config={"run": RUN, "card": {"version": "1.0.0"}},
+                                  raw_inputs={"data/raw.csv": "data"}, config={"run": RUN, "card": {"version": "1.0.0"}},
                                   build={"source_date_epoch": 0, "git": None})
     finally:
         os.chdir(old)

@@ -11,7 +11,7 @@ from oddsmith.manifest import build_manifest
 log = logging.getLogger("oddsmith.manifest")
 
 
-def run_manifest(*, run: str, run_dir: str, stamps: list[str], raw_inputs: list[str], config: dict,
+def run_manifest(*, run: str, run_dir: str, stamps: list[str], raw_inputs: dict[str, str], config: dict,
                  build: dict, card_rule: dict | None, out_manifest: str) -> dict:
     """Build the manifest of ``run_dir`` from its stamps and write it (canonical JSON)."""
     manifest = build_manifest(run=run, run_dir=run_dir, stamps=stamps, raw_inputs=raw_inputs, config=config,

@@ -1,0 +1,221 @@
+"""Precise reruns (design principle 1): after one change to a finished demo build, Snakemake
+plans exactly the jobs that change touches — read from its dry-run, job by job.
+
+Each case works on a copy of the shared demo build (results, logs and Snakemake's metadata,
+modification times kept). The copy is first brought up to date, so that edits other people
+made to the package since the shared build cannot leak into the planned set. For edits of
+package modules the copy carries its own ``oddsmith/`` and runs with PYTHONPATH pointing at it
+(the installed package is an editable install of the main checkout)."""
+
+from __future__ import annotations
+
+import ast
+import re
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from conftest import ROOT, run_snakemake
+
+RUN = "results/lease_demo"
+CANDIDATES = {"logit_main", "probit_main", "cloglog_main", "lasso", "ridge", "logit_compact", "baseline"}
+#: Every rule this matrix knows; a new rule fails the test until its row is added here.
+KNOWN = {"validate", "split", "features", "fit", "compare", "threshold", "evaluate", "figures", "score",
+         "manifest", "card"}
+#: Rules after evaluate, present or not depending on the workflow and the config.
+TAIL = {"figures", "score", "manifest", "card"}
+
+
+_TARGETS: dict[str, tuple[str, ...]] = {}
+
+
+def targets(project: Path) -> tuple[str, ...]:
+    """The default target plus the manifest and card (asked by name in case `all` stops earlier)."""
+    key = "".join(p.read_text() for p in [project / "Snakefile", *sorted((project / "rules").glob("*.smk"))])
+    if key not in _TARGETS:
+        rules = run_snakemake(project, "--list-rules").stdout.split()
+        _TARGETS[key] = ("all", f"{RUN}/manifest.json") + ((f"{RUN}/card/card.sha256",) if "card" in rules else ())
+    return _TARGETS[key]
+
+
+def planned(project: Path, *args, env=None) -> set[str]:
+    """The jobs of a dry run: rule names, ``fit[<candidate>]`` for per-candidate jobs."""
+    out = run_snakemake(project, "--dry-run", *args, env=env).stdout
+    jobs, current = set(), None
+    for line in out.splitlines() + ["rule end:"]:
+        match = re.match(r"^(?:local)?rule (\w+):$", line)
+        if match:
+            if current and current != "all":
+                jobs.add(current)
+            current = match.group(1)
+        elif current and line.strip().startswith("wildcards:"):
+            wildcards = dict(part.split("=", 1) for part in line.split(":", 1)[1].strip().split(", "))
+            if "candidate" in wildcards:
+                current = f"{current}[{wildcards['candidate']}]"
+    return jobs
+
+
+@pytest.fixture(scope="module")
+def built(demo_build) -> Path:
+    run_snakemake(demo_build, *targets(demo_build))
+    return demo_build
+
+
+@pytest.fixture(scope="module")
+def every_job(built) -> set[str]:
+    jobs = planned(built, *targets(built), "--forceall")
+    assert {re.sub(r"\[.*\]$", "", j) for j in jobs} <= KNOWN, f"extend the rerun matrix for {jobs}"
+    assert {f"fit[{c}]" for c in CANDIDATES} <= jobs
+    return jobs
+
+
+def _copy(built: Path, dest: Path, *, with_package: bool = False) -> tuple[Path, dict]:
+    shutil.copytree(built, dest, symlinks=True, ignore=shutil.ignore_patterns("__pycache__"))
+    env = {}
+    if with_package:
+        shutil.copytree(ROOT / "oddsmith", dest / "oddsmith", ignore=shutil.ignore_patterns("__pycache__"))
+        env = {"PYTHONPATH": str(dest)}
+        found = subprocess.run([sys.executable, "-c", "import oddsmith; print(oddsmith.__file__)"], cwd=dest / "config",
+                               env={"PYTHONPATH": str(dest)}, capture_output=True, text=True).stdout.strip()
+        assert Path(found) == dest / "oddsmith" / "__init__.py", f"the copy's package is not the one imported: {found}"
+    run_snakemake(dest, *targets(dest), env=env)  # bring up to date (absorbs concurrent edits of the checkout)
+    assert planned(dest, *targets(dest), env=env) == set()
+    return dest, env
+
+
+def _tail(every_job: set[str], *rules: str) -> set[str]:
+    return set(rules) | (TAIL & every_job)
+
+
+@pytest.mark.e2e
+def test_nothing_changed_plans_nothing(built):
+    assert planned(built, *targets(built)) == set()
+
+
+@pytest.mark.e2e
+def test_costs_rerun_threshold_and_what_follows(built, every_job, tmp_path):
+    project, env = _copy(built, tmp_path / "costs")
+    config = project / "config" / "config.yaml"
+    text = config.read_text()
+    assert "false_positive: 1200" in text
+    config.write_text(text.replace("false_positive: 1200", "false_positive: 1500"))
+    assert planned(project, *targets(project), env=env) == _tail(every_job, "threshold", "evaluate")
+
+
+@pytest.mark.e2e
+def test_one_candidates_grid_reruns_that_candidate_and_downstream(built, every_job, tmp_path):
+    project, env = _copy(built, tmp_path / "grid")
+    config = project / "config" / "config.yaml"
+    text = config.read_text()
+    old = "{name: lasso, kind: l1, grid: [0.003, 0.01, 0.03, 0.1, 0.3, 1.0]}"
+    assert old in text
+    config.write_text(text.replace(old, "{name: lasso, kind: l1, grid: [0.003, 0.01, 0.03, 0.1, 0.3, 1.0, 3.0]}"))
+    assert planned(project, *targets(project), env=env) == _tail(every_job, "fit[lasso]", "compare", "threshold", "evaluate")
+
+
+@pytest.mark.e2e
+def test_a_template_only_the_card_uses_reruns_card_and_manifest(built, every_job, tmp_path):
+    """The manifest records the card rule's params and code hashes (the card writes no stamp),
+    so it reruns too; nothing upstream does."""
+    if "card" not in every_job:
+        pytest.skip("this workflow renders no card")
+    project, env = _copy(built, tmp_path / "card_template")
+    with open(project / "reports" / "macros.html.j2", "a", encoding="utf-8") as handle:
+        handle.write("{# an edit that changes the template's bytes #}\n")
+    assert planned(project, *targets(project), env=env) == {"card", "manifest"}
+
+
+@pytest.mark.e2e
+def test_the_card_module_reruns_card_manifest_and_the_drift_page(built, every_job, tmp_path):
+    """oddsmith/card.py runs in the card rule and, through the drift page's URL fetcher, in the
+    score rule: exactly those two and the manifest rerun."""
+    if "card" not in every_job:
+        pytest.skip("this workflow renders no card")
+    project, env = _copy(built, tmp_path / "card_module", with_package=True)
+    with open(project / "oddsmith" / "card.py", "a", encoding="utf-8") as handle:
+        handle.write("\n# an edit that changes the card module's bytes\n")
+    assert planned(project, *targets(project), env=env) == {"card", "manifest"} | ({"score"} & every_job)
+
+
+@pytest.mark.e2e
+def test_the_manifest_module_reruns_manifest_and_card(built, every_job, tmp_path):
+    project, env = _copy(built, tmp_path / "manifest_module", with_package=True)
+    with open(project / "oddsmith" / "manifest.py", "a", encoding="utf-8") as handle:
+        handle.write("\n# an edit that changes the manifest module's bytes\n")
+    assert planned(project, *targets(project), env=env) == {"manifest"} | ({"card"} & every_job)
+
+
+@pytest.mark.e2e
+def test_the_metrics_module_reruns_from_fit_on_but_not_the_data_stages(built, every_job, tmp_path):
+    project, env = _copy(built, tmp_path / "metrics_module", with_package=True)
+    with open(project / "oddsmith" / "metrics.py", "a", encoding="utf-8") as handle:
+        handle.write("\n# an edit that changes the metrics module's bytes\n")
+    assert planned(project, *targets(project), env=env) == every_job - {"validate", "split", "features"}
+
+
+@pytest.mark.e2e
+def test_one_changed_data_value_reruns_everything(built, every_job, tmp_path):
+    project, env = _copy(built, tmp_path / "data")
+    data = project / "data_demo" / "lease_applications.csv"
+    lines = data.read_text().split("\n")
+    header = lines[0].split(",")
+    column = header.index("credit_score")
+    row = lines[10].split(",")
+    row[column] = str(int(row[column]) - 1 if int(row[column]) > 300 else int(row[column]) + 1)
+    lines[10] = ",".join(row)
+    data.write_text("\n".join(lines))
+    assert planned(project, *targets(project), env=env) == every_job
+
+
+# ---- every module a rule runs is in its code fingerprint (static check, no workflow run) ----
+
+#: Imports reached only from command-line entry points of a rule's modules, never by the rule.
+CLI_ONLY = {"score": {"verify", "manifest", "whatif"}}
+
+
+def _imports(path: Path) -> set[str]:
+    found = set()
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
+            if node.module == "oddsmith":
+                found |= {alias.name for alias in node.names}
+            elif node.module.startswith("oddsmith."):
+                found.add(node.module.removeprefix("oddsmith.").replace(".", "/"))
+        elif isinstance(node, ast.Import):
+            found |= {a.name.removeprefix("oddsmith.").replace(".", "/") for a in node.names if a.name.startswith("oddsmith.")}
+    return found
+
+
+def _closure(script: str) -> set[str]:
+    """Package modules a script imports, directly or through other package modules (lazy imports too)."""
+    todo, seen = list(_imports(ROOT / script)), set()
+    while todo:
+        module = todo.pop()
+        if module not in seen:
+            seen.add(module)
+            source = ROOT / "oddsmith" / f"{module}.py"
+            todo += list(_imports(source)) if source.is_file() else []
+    return seen
+
+
+def _fingerprinted_modules() -> dict[str, tuple[set[str], str]]:
+    """Per rule: the modules named in its ``code=code(...)`` param and the script."""
+    out = {}
+    for smk in sorted((ROOT / "rules").glob("*.smk")):
+        for block in re.split(r"(?m)^\s*rule ", smk.read_text(encoding="utf-8"))[1:]:
+            match = re.search(r'code=code\((.*?)script="([^"]+)"', block, re.S)
+            if match:
+                out[block.split(":", 1)[0].strip()] = (set(re.findall(r'"([^"]+)"', match.group(1))), match.group(2))
+    return out
+
+
+def test_every_package_module_a_rule_runs_is_in_its_fingerprint():
+    rules = _fingerprinted_modules()
+    assert {"validate", "fit", "threshold", "evaluate", "manifest"} <= set(rules)
+    base = {"runner", "io", "errors"}
+    missing = {rule: sorted(_closure(script) - modules - base - CLI_ONLY.get(rule, set()))
+               for rule, (modules, script) in rules.items()}
+    assert {rule: m for rule, m in missing.items() if m} == {}
