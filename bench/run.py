@@ -1,0 +1,317 @@
+"""Measure an oddsmith build against the plain serial script, and write bench/results.md.
+
+For each N (default 100,000 then 1,000,000 rows) in ``bench/work/n<N>/`` (a copy of the
+project's workflow files plus generated data and config):
+
+1. full build from scratch (``snakemake --cores 2``), wall time, the jobs that ran;
+2. no-op rebuild (three runs, median reported);
+3. cost-only rebuild: ``costs.false_negative`` changed, wall time and the jobs that re-ran;
+4. the serial script (bench/serial.py), once with one BLAS thread and once with the BLAS
+   default (both cores); the faster of the two is the yardstick;
+5. peak memory per job (``max_rss`` of Snakemake's ``benchmark:`` files) against the
+   in-memory size of the validated data, and the resident size of a process that has only
+   imported what a fit job imports.
+
+Builds and serial runs never overlap. Before each size of 1,000,000 rows or more the runner
+waits (up to 20 minutes, checking every 60 s) for the 1-minute load to fall to 1.5 or
+below, and records the load either way. Measurements are kept in ``bench/work/n<N>/
+measure.json``; ``--report-only`` rewrites results.md from them.
+
+Usage::
+
+    .venv/bin/python bench/run.py                 # 100k then 1M
+    .venv/bin/python bench/run.py --rows 100000   # one size
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import json
+import os
+import platform
+import re
+import shutil
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import yaml
+
+BENCH = Path(__file__).resolve().parent
+ROOT = BENCH.parent
+WORK = BENCH / "work"
+BIN = Path(sys.executable).parent
+# The package is copied too and put first on PYTHONPATH, so that the rules, scripts and
+# package a build runs all come from one moment of a tree others may be editing.
+PROJECT_PARTS = ("Snakefile", "rules", "scripts", "schemas", "reports", "oddsmith")
+LOAD_LIMIT, LOAD_WAIT_S, LOAD_WAIT_MAX_S = 1.5, 60, 20 * 60
+# bench/work/ sits inside the project's git repository; the manifest records the commit, so
+# another developer's commit during a measurement would re-run manifest and card. Git must
+# not look above the work folder.
+ENV = {"SOURCE_DATE_EPOCH": "1767225600", "PYTHONHASHSEED": "0", "GIT_CEILING_DIRECTORIES": str(WORK)}
+# What a fit job imports before it reads any data (the per-job fixed cost in memory).
+IMPORTS = ("import snakemake.script, pandas, pyarrow.parquet, sklearn.linear_model, "
+           "statsmodels.api, oddsmith.stages.fit, oddsmith.runner")
+
+sys.path.insert(0, str(BENCH))
+import generate  # noqa: E402
+
+
+# ---------------------------------------------------------------------------------------
+# Running things
+# ---------------------------------------------------------------------------------------
+
+
+def timed(cmd: list[str], *, cwd: Path, env: dict | None = None) -> dict:
+    """Run ``cmd``; return wall seconds, peak RSS of the process tree (MB), output, code."""
+    full_env = dict(os.environ) | ENV | (env or {})
+    full_env["PYTHONPATH"] = str(cwd if (cwd / "oddsmith").is_dir() else ROOT)
+    started = time.perf_counter()
+    proc = subprocess.Popen(cmd, cwd=cwd, env=full_env, stdout=subprocess.PIPE,
+                            stderr=subprocess.STDOUT, text=True)
+    output = proc.stdout.read()
+    _, status, usage = os.wait4(proc.pid, 0)
+    wall = time.perf_counter() - started
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    return {"seconds": wall, "cpu_seconds": usage.ru_utime + usage.ru_stime,
+            "max_rss_mb": usage.ru_maxrss / 1024, "output": output, "returncode": proc.returncode}
+
+
+def snakemake(work: Path) -> dict:
+    result = timed([str(BIN / "snakemake"), "--cores", "2", "--nocolor"], cwd=work)
+    if result["returncode"] != 0:
+        raise SystemExit(f"build failed in {work}:\n{result['output'][-5000:]}")
+    result["jobs"] = re.findall(r"Finished jobid: \d+ \(Rule: (\w+)\)", result["output"])
+    return result
+
+
+def load() -> float:
+    return os.getloadavg()[0]
+
+
+def wait_for_quiet_machine(log) -> dict:
+    waited, first = 0, load()
+    while load() > LOAD_LIMIT and waited < LOAD_WAIT_MAX_S:
+        log(f"1-minute load {load():.2f} > {LOAD_LIMIT}; waiting {LOAD_WAIT_S} s")
+        time.sleep(LOAD_WAIT_S)
+        waited += LOAD_WAIT_S
+    return {"load_first_check": first, "waited_s": waited, "load_at_start": load()}
+
+
+# ---------------------------------------------------------------------------------------
+# One size
+# ---------------------------------------------------------------------------------------
+
+
+def prepare(work: Path, rows: int) -> dict:
+    """A fresh project copy with generated data and config (not timed)."""
+    if work.exists():
+        shutil.rmtree(work)
+    work.mkdir(parents=True)
+    for part in PROJECT_PARTS:
+        src = ROOT / part
+        if src.is_dir():
+            shutil.copytree(src, work / part, ignore=shutil.ignore_patterns("__pycache__"))
+        elif src.exists():
+            shutil.copy2(src, work / part)
+    started = time.perf_counter()
+    paths = generate.write(work, rows)
+    return {"generate_seconds": time.perf_counter() - started,
+            "csv_mb": paths["data"].stat().st_size / 2**20}
+
+
+def job_records(work: Path, run: str) -> list[dict]:
+    """One record per job from Snakemake's benchmark files (wall s, max_rss MB)."""
+    records = []
+    base = work / "benchmarks" / run
+    for path in sorted(base.rglob("*.tsv")):
+        with path.open() as handle:
+            row = next(csv.DictReader(handle, delimiter="\t"))
+        records.append({"job": str(path.relative_to(base).with_suffix("")), "seconds": float(row["s"]),
+                        "max_rss_mb": float(row["max_rss"]) if row["max_rss"] not in ("", "NA") else None})
+    return records
+
+
+def data_in_memory_mb(work: Path, run: str) -> float:
+    import pandas as pd
+
+    frame = pd.read_parquet(work / "results" / run / "validated" / "data.parquet")
+    return float(frame.memory_usage(deep=True).sum()) / 2**20
+
+
+def import_baseline_mb(work: Path) -> float:
+    result = timed([sys.executable, "-c", IMPORTS], cwd=work)
+    return result["max_rss_mb"]
+
+
+def set_cost(work: Path, false_negative: float) -> None:
+    path = work / "config" / "config.yaml"
+    config = yaml.safe_load(path.read_text())
+    config["costs"]["false_negative"] = false_negative
+    path.write_text(yaml.safe_dump(config, sort_keys=False))
+
+
+def measure(rows: int, log) -> dict:
+    work = WORK / f"n{rows}"
+    run = f"bench_{rows}"
+    record = {"rows": rows, "run": run}
+    log(f"[{rows}] preparing {work}")
+    record |= prepare(work, rows)
+    record["machine_load"] = wait_for_quiet_machine(log) if rows >= 1_000_000 else {
+        "load_at_start": load(), "waited_s": 0}
+    log(f"[{rows}] full build (load {load():.2f})")
+    full = snakemake(work)
+    record["full"] = {"seconds": full["seconds"], "cpu_seconds": full["cpu_seconds"], "jobs": full["jobs"],
+                      "load_after": load()}
+    record["job_records"] = job_records(work, run)
+    log(f"[{rows}] full build {full['seconds']:.1f} s; no-op rebuilds")
+    noop = [snakemake(work) for _ in range(3)]
+    record["noop"] = {"seconds": sorted(r["seconds"] for r in noop), "jobs": [r["jobs"] for r in noop],
+                      "cpu_seconds": sorted(r["cpu_seconds"] for r in noop)}
+    log(f"[{rows}] no-op {record['noop']['seconds']}; cost-only rebuild")
+    set_cost(work, generate.config(rows)["costs"]["false_negative"] * 1.1)
+    cost = snakemake(work)
+    record["cost_only"] = {"seconds": cost["seconds"], "cpu_seconds": cost["cpu_seconds"], "jobs": cost["jobs"]}
+    set_cost(work, generate.config(rows)["costs"]["false_negative"])
+    snakemake(work)  # back to the measured configuration (not timed)
+    record["data_in_memory_mb"] = data_in_memory_mb(work, run)
+    record["import_baseline_mb"] = import_baseline_mb(work)
+    record["serial"] = {}
+    for label, env in (("blas_1", {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1"}), ("blas_default", {})):
+        log(f"[{rows}] serial script, {label} (load {load():.2f})")
+        result = timed([sys.executable, str(BENCH / "serial.py"), "--project", str(work),
+                        "--out", str(work / f"serial_{label}.json")], cwd=work, env=env)
+        if result["returncode"] != 0:
+            raise SystemExit(f"serial script failed:\n{result['output'][-5000:]}")
+        record["serial"][label] = {"seconds": result["seconds"], "cpu_seconds": result["cpu_seconds"],
+                                   "max_rss_mb": result["max_rss_mb"],
+                                   "load_after": load()}
+        log(f"[{rows}] serial {label}: {result['seconds']:.1f} s")
+    (work / "measure.json").write_text(json.dumps(record, indent=1))
+    return record
+
+
+# ---------------------------------------------------------------------------------------
+# Report
+# ---------------------------------------------------------------------------------------
+
+
+def machine() -> dict:
+    lscpu = subprocess.run(["lscpu"], capture_output=True, text=True).stdout.splitlines()[:10]
+    meminfo = Path("/proc/meminfo").read_text().splitlines()[0]
+    versions = {}
+    for name in ("snakemake", "numpy", "scipy", "pandas", "scikit-learn", "statsmodels", "pyarrow"):
+        from importlib.metadata import version
+
+        versions[name] = version(name)
+    return {"nproc": os.cpu_count(), "lscpu": lscpu, "memory": meminfo, "python": platform.python_version(),
+            "platform": platform.platform(), "versions": versions}
+
+
+def _fmt(x, digits=1):
+    return "—" if x is None else f"{x:,.{digits}f}"
+
+
+def _status(ok: bool) -> str:
+    return "met" if ok else "**not met**"
+
+
+def _load_text(r: dict) -> str:
+    load_ = r["machine_load"]
+    text = f"1-minute load at the start of the build {load_['load_at_start']:.2f}"
+    if "load_first_check" in load_:
+        text += f" (first check {load_['load_first_check']:.2f}, waited {load_['waited_s']} s)"
+    serial = ", ".join(f"{k} {v['load_after']:.2f}" for k, v in r["serial"].items())
+    return text + f"; after the build {r['full']['load_after']:.2f}; after the serial runs: {serial}."
+
+
+def report(records: list[dict]) -> str:
+    m = machine()
+    lines = ["# Benchmark results", "",
+             "Written by `bench/run.py` (see `bench/README.md` for what is measured and how). "
+             "All times are wall-clock seconds on the machine below, shared with other users "
+             "while measuring; the 1-minute load is recorded beside each size.", "",
+             "## Machine", "", f"- `nproc`: {m['nproc']}; {m['memory'].split(':')[1].strip()} memory "
+             f"({m['memory'].split(':')[0]})", f"- Python {m['python']} on {m['platform']}",
+             "- " + ", ".join(f"{k} {v}" for k, v in m["versions"].items()), "", "```", *m["lscpu"], "```", ""]
+    lines += ["## Summary", "",
+              "| rows | full build s | serial s (1 BLAS thread / default) | build ÷ serial | no-op s | "
+              "cost-only s (share of full) | largest job max_rss MB | data in memory MB | max_rss ÷ data | load at start |",
+              "|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|"]
+    for r in records:
+        serial = min(v["seconds"] for v in r["serial"].values())
+        peak = max((j for j in r["job_records"] if j["max_rss_mb"]), key=lambda j: j["max_rss_mb"])
+        lines.append(
+            f"| {r['rows']:,} | {_fmt(r['full']['seconds'])} | {_fmt(r['serial']['blas_1']['seconds'])} / "
+            f"{_fmt(r['serial']['blas_default']['seconds'])} | {r['full']['seconds'] / serial:.2f} | "
+            f"{_fmt(r['noop']['seconds'][1], 2)} | {_fmt(r['cost_only']['seconds'])} "
+            f"({100 * r['cost_only']['seconds'] / r['full']['seconds']:.1f}%) | {_fmt(peak['max_rss_mb'], 0)} "
+            f"({peak['job']}) | {_fmt(r['data_in_memory_mb'], 0)} | {peak['max_rss_mb'] / r['data_in_memory_mb']:.2f} | "
+            f"{r['machine_load']['load_at_start']:.2f} |")
+    lines += ["", "## Targets", ""]
+    by_rows = {r["rows"]: r for r in records}
+    big = by_rows.get(1_000_000)
+    small = by_rows.get(100_000)
+    if big:
+        serial = min(v["seconds"] for v in big["serial"].values())
+        ratio = big["full"]["seconds"] / serial
+        lines.append(f"- Full build ≤ 0.8 × serial at 1M rows: {ratio:.2f} — {_status(ratio <= 0.8)}")
+    for r in records:
+        noop = r["noop"]["seconds"][1]
+        share = r["cost_only"]["seconds"] / r["full"]["seconds"]
+        peak = max(j["max_rss_mb"] for j in r["job_records"] if j["max_rss_mb"])
+        mem = peak / r["data_in_memory_mb"]
+        lines += [f"- {r['rows']:,} rows: no-op ≤ 2 s: {noop:.2f} s — {_status(noop <= 2)}; cost-only ≤ 5% of full: "
+                  f"{100 * share:.1f}% — {_status(share <= 0.05)}; every job's peak memory ≤ 2.5 × data: {mem:.2f} × — "
+                  f"{_status(mem <= 2.5)}"]
+    if big and small:
+        scale = big["full"]["seconds"] / small["full"]["seconds"]
+        lines.append(f"- time(1M) ÷ time(100k) ≤ 11: {scale:.2f} — {_status(scale <= 11)} "
+                     f"(serial script: {min(v['seconds'] for v in big['serial'].values()) / min(v['seconds'] for v in small['serial'].values()):.2f})")
+    for r in records:
+        lines += ["", f"## {r['rows']:,} rows: every job", "",
+                  f"CSV {r['csv_mb']:.0f} MB; validated data in memory (pandas, deep) {r['data_in_memory_mb']:.0f} MB; "
+                  f"a process that has only imported what a fit job imports: {r['import_baseline_mb']:.0f} MB. "
+                  + _load_text(r), "",
+                  f"Full build ran {len(r['full']['jobs'])} jobs: "
+                  + ", ".join(f"{name} ×{r['full']['jobs'].count(name)}" for name in dict.fromkeys(r["full"]["jobs"])) + ".",
+                  f"No-op runs: wall {', '.join(f'{s:.2f}' for s in r['noop']['seconds'])} s, CPU "
+                  f"{', '.join(f'{s:.2f}' for s in r['noop']['cpu_seconds'])} s; jobs run: "
+                  f"{sum(len(j) for j in r['noop']['jobs'])}.",
+                  f"CPU time (all processes): full build {r['full']['cpu_seconds']:.1f} s, serial "
+                  + ", ".join(f"{k} {v['cpu_seconds']:.1f} s" for k, v in r["serial"].items()) + ".",
+                  f"Cost-only rebuild re-ran: {', '.join(r['cost_only']['jobs'])}.", "",
+                  "| job | wall s | max_rss MB | max_rss ÷ data | (max_rss − imports) ÷ data |", "|---|---:|---:|---:|---:|"]
+        for j in sorted(r["job_records"], key=lambda j: -j["seconds"]):
+            rss, data, base = j["max_rss_mb"], r["data_in_memory_mb"], r["import_baseline_mb"]
+            share = "—" if rss is None else f"{rss / data:.2f}"
+            above = "—" if rss is None else f"{(rss - base) / data:.2f}"
+            lines.append(f"| {j['job']} | {j['seconds']:.1f} | {_fmt(rss, 0)} | {share} | {above} |")
+        total = sum(j["seconds"] for j in r["job_records"])
+        lines += ["", f"Sum of job wall times {total:.1f} s (two cores: a lower bound of {total / 2:.1f} s for the build "
+                  f"if the jobs could be packed perfectly); measured build {r['full']['seconds']:.1f} s. "
+                  f"Serial script peak RSS {r['serial']['blas_1']['max_rss_mb']:.0f} MB."]
+    return "\n".join(lines) + "\n"
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--rows", type=int, nargs="+", default=[100_000, 1_000_000])
+    parser.add_argument("--report-only", action="store_true")
+    args = parser.parse_args()
+
+    def log(message):
+        print(time.strftime("%H:%M:%S"), message, flush=True)
+
+    records = []
+    for rows in args.rows:
+        saved = WORK / f"n{rows}" / "measure.json"
+        records.append(json.loads(saved.read_text()) if args.report_only else measure(rows, log))
+    (BENCH / "results.md").write_text(report(records))
+    log("wrote bench/results.md")
+
+
+if __name__ == "__main__":
+    main()

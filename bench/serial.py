@@ -1,0 +1,218 @@
+"""The plain serial script: the statistical work of an oddsmith build, written by hand.
+
+This is the yardstick of the benchmark: what an analyst would write in one file without a
+workflow. Read the CSV with pandas, split 75/25 stratified, assign five stratified folds on
+the training part, fit the baseline and the five candidates of the benchmark config on the
+same folds (same libraries, solvers, tolerances, grids, inner folds and seeds as oddsmith),
+refit each on the whole training part, pick one by the one-standard-error rule on log
+loss, choose the cost-minimising cut-off on its out-of-fold predictions with a 300-resample
+stratified bootstrap, and score the test part once (overall and per segment).
+
+Not done here, because a hand-written script usually skips them: data-contract checks beyond
+a few asserts, design diagnostics (VIF, leakage screen), DeLong and corrected t-tests,
+Hosmer-Lemeshow, per-fold calibration by GLM, provenance stamps, hashing, figures, card.
+So the comparison is conservative: the pipeline does more work than this script.
+
+The only oddsmith import is the proximal Newton path used for the L1 candidate's inner
+cross-validation: scikit-learn has no equivalent, and timing a slower solver here would
+flatter the pipeline (see bench/README.md).
+
+Usage::
+
+    python bench/serial.py --project bench/work/n100000 --out bench/work/n100000/serial.json
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import scipy.special
+import statsmodels.api as sm
+import yaml
+from sklearn.linear_model import LogisticRegression
+from sklearn.metrics import brier_score_loss, log_loss, roc_auc_score, roc_curve
+from sklearn.model_selection import StratifiedKFold, train_test_split
+
+from oddsmith.models import _proximal_newton_path  # the L1 inner-CV solver (see docstring)
+
+
+def design(df: pd.DataFrame, features: list[dict]) -> pd.DataFrame:
+    """Numeric columns as they are; categoricals as 0/1 columns without the reference level."""
+    parts = []
+    for f in features:
+        if f["type"] == "numeric":
+            parts.append(df[[f["name"]]].astype(float))
+        else:
+            dummies = pd.get_dummies(df[f["name"]], prefix=f["name"], prefix_sep="=", dtype=float)
+            parts.append(dummies.drop(columns=f"{f['name']}={f['reference']}"))
+    return pd.concat(parts, axis=1)
+
+
+def fit_ml(kind: str, X: np.ndarray, y: np.ndarray):
+    exog = sm.add_constant(X, has_constant="add")
+    if kind == "logit":
+        model = sm.Logit(y, exog)
+    elif kind == "probit":
+        model = sm.Probit(y, exog)
+    else:
+        model = sm.GLM(y, exog, family=sm.families.Binomial(link=sm.families.links.CLogLog()))
+    options = {} if kind == "cloglog" else {"disp": 0}
+    result = model.fit(method="newton", maxiter=100, **options)
+    _ = result.bse, result.conf_int(), result.pvalues  # the coefficient table
+    return lambda Z: result.predict(sm.add_constant(Z, has_constant="add"))
+
+
+def _estimator(C: float, l1_ratio: float, seed: int) -> LogisticRegression:
+    if l1_ratio == 0.0:
+        return LogisticRegression(C=C, l1_ratio=0.0, solver="newton-cholesky", tol=1e-8,
+                                  max_iter=1000, random_state=seed, warm_start=True)
+    return LogisticRegression(C=C, l1_ratio=l1_ratio, solver="saga", max_iter=1000,
+                              random_state=seed, warm_start=True)
+
+
+def fit_penalised(X: np.ndarray, y: np.ndarray, *, grid: list[float], inner_folds: int,
+                  l1_ratio: float, seed: int):
+    """Inner stratified CV over the grid (warm starts), then refit at the chosen C."""
+    grid = sorted(grid)
+    losses = np.zeros((inner_folds, len(grid)))
+    inner = StratifiedKFold(n_splits=inner_folds, shuffle=True, random_state=seed)
+    for f, (tr, va) in enumerate(inner.split(X, y)):
+        if l1_ratio > 0.0:
+            path = _proximal_newton_path(X, y, grid, rows=tr, l1_ratio=l1_ratio, max_iter=1000)
+            for k, (coef, _) in enumerate(path):
+                losses[f, k] = log_loss(y[va], scipy.special.expit(coef[0] + X[va] @ coef[1:]))
+            continue
+        est = _estimator(grid[0], l1_ratio, seed)
+        for k, c in enumerate(grid):
+            est.set_params(C=c).fit(X[tr], y[tr])
+            losses[f, k] = log_loss(y[va], est.predict_proba(X[va])[:, 1])
+    chosen = grid[int(np.argmin(losses.mean(axis=0)))]
+    est = _estimator(grid[0], l1_ratio, seed)
+    if l1_ratio > 0.0:
+        coef, _ = _proximal_newton_path(X, y, grid[: grid.index(chosen) + 1], rows=None,
+                                        l1_ratio=l1_ratio, max_iter=1000)[-1]
+        est.coef_, est.intercept_ = coef[None, 1:].copy(), coef[:1].copy()
+        est.set_params(C=chosen).fit(X, y)
+    else:
+        for c in grid[: grid.index(chosen) + 1]:
+            est.set_params(C=c).fit(X, y)
+    return lambda Z: est.predict_proba(Z)[:, 1]
+
+
+def fit(candidate: dict, X: np.ndarray, y: np.ndarray, seed: int):
+    kind = candidate["kind"]
+    if kind == "baseline":
+        rate = y.mean()
+        return lambda Z: np.full(len(Z), rate)
+    if kind in ("logit", "probit", "cloglog"):
+        return fit_ml(kind, X, y)
+    return fit_penalised(X, y, grid=candidate["grid"], inner_folds=candidate.get("inner_folds", 3),
+                         l1_ratio=1.0 if kind == "l1" else 0.0, seed=seed)
+
+
+def fold_metrics(y: np.ndarray, p: np.ndarray) -> dict:
+    p = np.clip(p, 1e-15, 1 - 1e-15)
+    fpr, tpr, _ = roc_curve(y, p)
+    slope = None  # undefined for a constant prediction (the baseline)
+    if np.ptp(p) > 0:
+        slope = float(sm.Logit(y, sm.add_constant(scipy.special.logit(p))).fit(disp=0).params[1])
+    return {"log_loss": log_loss(y, p), "brier": brier_score_loss(y, p), "auc": roc_auc_score(y, p),
+            "ks": float(np.max(tpr - fpr)), "calibration_slope": slope}
+
+
+def cost_cutoff(y: np.ndarray, p: np.ndarray, cost_fp: float, cost_fn: float) -> tuple[float, float]:
+    """Cut-off (flag p >= cut-off) with the lowest total cost, and that cost."""
+    order = np.argsort(-p, kind="stable")
+    ps, ys = p[order], y[order]
+    last = np.r_[np.flatnonzero(np.diff(ps) != 0), ps.size - 1]  # end of each tie block
+    tp, fp = np.cumsum(ys)[last], np.cumsum(1 - ys)[last]
+    cost = np.r_[cost_fn * ys.sum(), cost_fp * fp + cost_fn * (ys.sum() - tp)]
+    cutoffs = np.r_[np.inf, ps[last]]
+    best = int(np.argmin(cost))
+    return float(cutoffs[best]), float(cost[best])
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--project", type=Path, required=True)
+    parser.add_argument("--out", type=Path, required=True)
+    args = parser.parse_args()
+    started = time.perf_counter()
+    cfg = yaml.safe_load((args.project / "config/config.yaml").read_text())
+    data, features = cfg["data"], cfg["features"]
+    df = pd.read_csv(args.project / data["path"], dtype={data["id_column"]: str, data["target"]: str})
+    assert df[data["id_column"]].is_unique and not df.isna().any().any()
+    y = (df[data["target"]] == data["positive_label"]).to_numpy().astype(int)
+    X_all = design(df, features)
+    rows = np.arange(len(df))
+    train, test = train_test_split(rows, test_size=cfg["split"]["test_fraction"], stratify=y,
+                                   random_state=cfg["split"]["seed"])
+    train, test = np.sort(train), np.sort(test)
+    X_raw = X_all.to_numpy()
+    mean, sd = X_raw[train].mean(axis=0), X_raw[train].std(axis=0)
+    X_std = (X_raw - mean) / sd
+    y_train = y[train]
+    cv = cfg["cross_validation"]
+    folds = np.empty(train.size, dtype=int)
+    splitter = StratifiedKFold(n_splits=cv["folds"], shuffle=True, random_state=cv["seed"])
+    for k, (_, va) in enumerate(splitter.split(train, y_train)):
+        folds[va] = k
+    candidates = cfg["candidates"] + [{"name": "baseline", "kind": "baseline"}]
+    results, finals = {}, {}
+    for cand in candidates:
+        X = (X_std if cand["kind"] in ("l1", "l2") else X_raw)[train]
+        oof, per_fold = np.empty(train.size), []
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            for k in range(cv["folds"]):
+                va = folds == k
+                predict = fit(cand, X[~va], y_train[~va], seed=cv["seed"] + k)
+                oof[va] = predict(X[va])
+                per_fold.append(fold_metrics(y_train[va], oof[va]))
+            finals[cand["name"]] = fit(cand, X, y_train, seed=cv["seed"])
+        losses = np.array([f["log_loss"] for f in per_fold])
+        results[cand["name"]] = {"oof": oof, "mean": losses.mean(), "se": losses.std(ddof=1) / np.sqrt(losses.size),
+                                 "n_parameters": X.shape[1] + 1 if cand["kind"] != "baseline" else 1,
+                                 "folds": per_fold}
+    best = min(results, key=lambda n: results[n]["mean"])
+    within = [n for n in results if results[n]["mean"] <= results[best]["mean"] + results[best]["se"]]
+    selected = min(within, key=lambda n: (results[n]["n_parameters"], results[n]["mean"], n))
+    costs = cfg["costs"]
+    oof = results[selected]["oof"]
+    cutoff, _ = cost_cutoff(y_train, oof, costs["false_positive"], costs["false_negative"])
+    rng = np.random.default_rng(costs["seed"])
+    pos, neg = np.flatnonzero(y_train == 1), np.flatnonzero(y_train == 0)
+    boot = []
+    for _ in range(costs["bootstrap"]):
+        b = np.r_[pos[rng.integers(0, pos.size, pos.size)], neg[rng.integers(0, neg.size, neg.size)]]
+        boot.append(cost_cutoff(y_train[b], oof[b], costs["false_positive"], costs["false_negative"])[0])
+    selected_kind = next(c["kind"] for c in candidates if c["name"] == selected)
+    X_test = (X_std if selected_kind in ("l1", "l2") else X_raw)[test]
+    p_test = finals[selected](X_test)
+    flag = p_test >= cutoff
+    y_test = y[test]
+    fp, fn = int(np.sum(flag & (y_test == 0))), int(np.sum(~flag & (y_test == 1)))
+    summary = {"selected": selected, "cutoff": cutoff,
+               "cutoff_interval": [float(np.quantile(boot, 0.025)), float(np.quantile(boot, 0.975))],
+               "test": fold_metrics(y_test, p_test) | {"flag_rate": float(flag.mean()),
+                                                       "cost_per_1000": 1000 * (costs["false_positive"] * fp + costs["false_negative"] * fn) / y_test.size},
+               "segments": {}, "cv": {n: {"log_loss_mean": r["mean"], "se": r["se"]} for n, r in results.items()}}
+    for name in cfg["fairness"]["segments"]:
+        groups = df[name].to_numpy()[test]
+        summary["segments"][name] = {str(g): {"n": int(np.sum(groups == g)), "flag_rate": float(flag[groups == g].mean()),
+                                              "auc": float(roc_auc_score(y_test[groups == g], p_test[groups == g]))}
+                                     for g in sorted(set(groups))}
+    summary["seconds"] = time.perf_counter() - started
+    args.out.write_text(json.dumps(summary, indent=1, default=float))
+    print(f"selected {selected}, cut-off {cutoff:.4f}, test AUC {summary['test']['auc']:.4f}, "
+          f"{summary['seconds']:.1f} s")
+
+
+if __name__ == "__main__":
+    main()
