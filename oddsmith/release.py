@@ -146,6 +146,10 @@ def register(sub) -> None:
 def _cmd_release(args) -> int:
     target, message = release(args.results, releases_dir=args.releases_dir, date=args.date)
     print(message)
+    git = read_json(target / MANIFEST_NAME).get("git")
+    if git is None or git.get("dirty"):
+        print("note: the release was built from code that was not committed"
+              + (" (uncommitted changes in the work tree)" if git else " (no git repository)") + "; its card says so")
     if not (target / CARD_DIR).is_dir():
         print(f"note: {target} has no card (the results folder had none, or this oddsmith cannot render one)")
     return 0

@@ -82,7 +82,6 @@ def _copy(built: Path, dest: Path, *, with_package: bool = False) -> tuple[Path,
                                env={"PYTHONPATH": str(dest)}, capture_output=True, text=True).stdout.strip()
         assert Path(found) == dest / "oddsmith" / "__init__.py", f"the copy's package is not the one imported: {found}"
     run_snakemake(dest, *targets(dest), env=env)  # bring up to date (absorbs concurrent edits of the checkout)
-    assert planned(dest, *targets(dest), env=env) == set()
     return dest, env
 
 
