@@ -26,7 +26,6 @@ import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from oddsmith.errors import ManifestError
 from oddsmith.io import canonical_json, sha256_file
 from oddsmith.manifest import (CARD_DIR, FORMAT_NAME, FORMAT_VERSION, GIT_OVERRIDE_ENV, MANIFEST_NAME,
                                PARTIAL_WRITE, config_sha256, git_state, is_hex_digest, run_files,

@@ -15,7 +15,7 @@ from pathlib import Path
 import pytest
 
 import oddsmith.verify as verify_module
-from oddsmith.io import canonical_json, sha256_bytes, sha256_file, write_json
+from oddsmith.io import sha256_bytes, sha256_file, write_json
 from oddsmith.manifest import build_manifest
 from oddsmith.verify import check_results, verify_results
 
