@@ -1,17 +1,13 @@
 rule threshold:
     input:
         selected="results/{run}/comparison/selected.json",
-        oof=expand("results/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES),
+        oof=expand(
+            "results/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
+        ),
     output:
         choice="results/{run}/threshold/choice.json",
         curve="results/{run}/threshold/cost_curve.parquet",
         stamp="results/{run}/provenance/threshold.json",
-    params:
-        candidates=CANDIDATES,
-        costs=CONFIG["costs"],
-        code=code(
-            "stages/threshold", "threshold", "metrics", script="scripts/threshold.py"
-        ),
     log:
         "logs/{run}/threshold.log",
     benchmark:
@@ -20,6 +16,12 @@ rule threshold:
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
+    params:
+        candidates=CANDIDATES,
+        costs=CONFIG["costs"],
+        code=code(
+            "stages/threshold", "threshold", "metrics", script="scripts/threshold.py"
+        ),
     script:
         "../scripts/threshold.py"
 
@@ -30,13 +32,23 @@ rule evaluate:
         assignment="results/{run}/split/assignment.parquet",
         recipe="results/{run}/features/recipe.json",
         selected="results/{run}/comparison/selected.json",
-        models=expand("results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES),
+        models=expand(
+            "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
+        ),
         choice="results/{run}/threshold/choice.json",
     output:
         metrics="results/{run}/evaluation/metrics.json",
         subgroups="results/{run}/evaluation/subgroups.json",
         predictions="results/{run}/evaluation/predictions.parquet",
         stamp="results/{run}/provenance/evaluate.json",
+    log:
+        "logs/{run}/evaluate.log",
+    benchmark:
+        "benchmarks/{run}/evaluate.tsv"
+    threads: RES["threads"]
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
     params:
         candidates=CANDIDATES,
         data={k: CONFIG["data"][k] for k in ("id_column", "target", "date_column")},
@@ -54,13 +66,5 @@ rule evaluate:
             "threshold",
             script="scripts/evaluate.py",
         ),
-    log:
-        "logs/{run}/evaluate.log",
-    benchmark:
-        "benchmarks/{run}/evaluate.tsv"
-    threads: RES["threads"]
-    resources:
-        mem_mb=RES["mem_mb"],
-        runtime=RES["runtime"],
     script:
         "../scripts/evaluate.py"

@@ -8,11 +8,6 @@ rule fit:
         cv="results/{run}/candidates/{candidate}/cv.json",
         oof="results/{run}/candidates/{candidate}/oof.parquet",
         stamp="results/{run}/provenance/fit-{candidate}.json",
-    params:
-        candidate=lambda wc: candidate_settings(wc.candidate),
-        target=CONFIG["data"]["target"],
-        seed=CONFIG["cross_validation"]["seed"],
-        code=code("stages/fit", "models", "metrics", "recipe", "split", script="scripts/fit.py"),
     log:
         "logs/{run}/fit/{candidate}.log",
     benchmark:
@@ -21,22 +16,34 @@ rule fit:
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
+    params:
+        candidate=lambda wc: candidate_settings(wc.candidate),
+        target=CONFIG["data"]["target"],
+        seed=CONFIG["cross_validation"]["seed"],
+        code=code(
+            "stages/fit",
+            "models",
+            "metrics",
+            "recipe",
+            "split",
+            script="scripts/fit.py",
+        ),
     script:
         "../scripts/fit.py"
 
 
 rule compare:
     input:
-        cv=expand("results/{{run}}/candidates/{candidate}/cv.json", candidate=CANDIDATES),
-        oof=expand("results/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES),
+        cv=expand(
+            "results/{{run}}/candidates/{candidate}/cv.json", candidate=CANDIDATES
+        ),
+        oof=expand(
+            "results/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
+        ),
     output:
         table="results/{run}/comparison/table.json",
         selected="results/{run}/comparison/selected.json",
         stamp="results/{run}/provenance/compare.json",
-    params:
-        candidates=CANDIDATES,
-        selection=CONFIG["selection"],
-        code=code("stages/compare", "metrics", script="scripts/compare.py"),
     log:
         "logs/{run}/compare.log",
     benchmark:
@@ -45,5 +52,9 @@ rule compare:
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
+    params:
+        candidates=CANDIDATES,
+        selection=CONFIG["selection"],
+        code=code("stages/compare", "metrics", script="scripts/compare.py"),
     script:
         "../scripts/compare.py"

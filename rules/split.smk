@@ -6,11 +6,6 @@ rule split:
         assignment="results/{run}/split/assignment.parquet",
         summary="results/{run}/split/summary.json",
         stamp="results/{run}/provenance/split.json",
-    params:
-        data={k: CONFIG["data"][k] for k in ("id_column", "target", "date_column")},
-        split=CONFIG["split"],
-        cross_validation=CONFIG["cross_validation"],
-        code=code("stages/split", "split", script="scripts/split.py"),
     log:
         "logs/{run}/split.log",
     benchmark:
@@ -19,6 +14,11 @@ rule split:
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
+    params:
+        data={k: CONFIG["data"][k] for k in ("id_column", "target", "date_column")},
+        split=CONFIG["split"],
+        cross_validation=CONFIG["cross_validation"],
+        code=code("stages/split", "split", script="scripts/split.py"),
     script:
         "../scripts/split.py"
 
@@ -31,12 +31,6 @@ rule features:
         recipe="results/{run}/features/recipe.json",
         diagnostics="results/{run}/features/diagnostics.json",
         stamp="results/{run}/provenance/features.json",
-    params:
-        features=CONFIG["features"],
-        interactions=CONFIG["interactions"],
-        target=CONFIG["data"]["target"],
-        diagnostics=CONFIG["diagnostics"],
-        code=code("stages/features", "recipe", "diagnostics", script="scripts/features.py"),
     log:
         "logs/{run}/features.log",
     benchmark:
@@ -45,5 +39,13 @@ rule features:
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
+    params:
+        features=CONFIG["features"],
+        interactions=CONFIG["interactions"],
+        target=CONFIG["data"]["target"],
+        diagnostics=CONFIG["diagnostics"],
+        code=code(
+            "stages/features", "recipe", "diagnostics", script="scripts/features.py"
+        ),
     script:
         "../scripts/features.py"

@@ -8,10 +8,6 @@ rule validate:
         summary="results/{run}/validated/summary.txt",
         contract="results/{run}/validated/contract.yaml",
         stamp="results/{run}/provenance/validate.json",
-    params:
-        config={k: CONFIG[k] for k in ("data", "features", "interactions", "fairness")}
-        | {"split": {"group_column": CONFIG["split"]["group_column"]}},
-        code=code("validate", "contract", "config", script="scripts/validate.py"),
     log:
         "logs/{run}/validate.log",
     benchmark:
@@ -20,5 +16,9 @@ rule validate:
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
+    params:
+        config={k: CONFIG[k] for k in ("data", "features", "interactions", "fairness")}
+        | {"split": {"group_column": CONFIG["split"]["group_column"]}},
+        code=code("validate", "contract", "config", script="scripts/validate.py"),
     script:
         "../scripts/validate.py"
