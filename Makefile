@@ -3,7 +3,7 @@ PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
 CORES ?= 2
-SNAKEMAKE := $(BIN)/snakemake --cores $(CORES) --printshellcmds
+SNAKEMAKE := $(BIN)/snakemake --cores $(CORES) --rerun-incomplete
 
 .PHONY: demo test setup check-system lint lock clean
 
