@@ -55,8 +55,9 @@ ENV = {"SOURCE_DATE_EPOCH": "1767225600", "PYTHONHASHSEED": "0", "GIT_CEILING_DI
 IMPORTS = ("import snakemake.script, pandas, pyarrow.parquet, sklearn.linear_model, "
            "statsmodels.api, oddsmith.stages.fit, oddsmith.runner")
 
-sys.path.insert(0, str(BENCH))
-import generate  # noqa: E402
+# The runner itself imports nothing heavy and never holds the data: a child's ru_maxrss
+# includes the peak of the memory it shared with its parent before exec, so a large runner
+# would inflate every peak it measures. Data generation runs in a child process too.
 
 
 # ---------------------------------------------------------------------------------------
@@ -117,9 +118,10 @@ def prepare(work: Path, rows: int) -> dict:
         elif src.exists():
             shutil.copy2(src, work / part)
     started = time.perf_counter()
-    paths = generate.write(work, rows)
+    subprocess.run([sys.executable, str(BENCH / "generate.py"), "--rows", str(rows), "--out", str(work)],
+                   check=True, capture_output=True)
     return {"generate_seconds": time.perf_counter() - started,
-            "csv_mb": paths["data"].stat().st_size / 2**20}
+            "csv_mb": (work / "data" / "portfolio.csv").stat().st_size / 2**20}
 
 
 def job_records(work: Path, run: str) -> list[dict]:
@@ -135,10 +137,13 @@ def job_records(work: Path, run: str) -> list[dict]:
 
 
 def data_in_memory_mb(work: Path, run: str) -> float:
-    import pandas as pd
-
-    frame = pd.read_parquet(work / "results" / run / "validated" / "data.parquet")
-    return float(frame.memory_usage(deep=True).sum()) / 2**20
+    # In a child process: the runner must stay small, because a child's ru_maxrss counts
+    # the pages it shares with its parent between fork and exec.
+    code = ("import pandas, sys; f = pandas.read_parquet(sys.argv[1]); "
+            "print(f.memory_usage(deep=True).sum() / 2**20)")
+    path = work / "results" / run / "validated" / "data.parquet"
+    return float(subprocess.run([sys.executable, "-c", code, str(path)], capture_output=True, text=True,
+                                check=True).stdout)
 
 
 def import_baseline_mb(work: Path) -> float:
@@ -146,11 +151,14 @@ def import_baseline_mb(work: Path) -> float:
     return result["max_rss_mb"]
 
 
-def set_cost(work: Path, false_negative: float) -> None:
+def change_cost(work: Path) -> str:
+    """Raise costs.false_negative by 10%; return the original config text."""
     path = work / "config" / "config.yaml"
-    config = yaml.safe_load(path.read_text())
-    config["costs"]["false_negative"] = false_negative
+    original = path.read_text()
+    config = yaml.safe_load(original)
+    config["costs"]["false_negative"] *= 1.1
     path.write_text(yaml.safe_dump(config, sort_keys=False))
+    return original
 
 
 def measure(rows: int, log) -> dict:
@@ -171,10 +179,10 @@ def measure(rows: int, log) -> dict:
     record["noop"] = {"seconds": sorted(r["seconds"] for r in noop), "jobs": [r["jobs"] for r in noop],
                       "cpu_seconds": sorted(r["cpu_seconds"] for r in noop)}
     log(f"[{rows}] no-op {record['noop']['seconds']}; cost-only rebuild")
-    set_cost(work, generate.config(rows)["costs"]["false_negative"] * 1.1)
+    original = change_cost(work)
     cost = snakemake(work)
     record["cost_only"] = {"seconds": cost["seconds"], "cpu_seconds": cost["cpu_seconds"], "jobs": cost["jobs"]}
-    set_cost(work, generate.config(rows)["costs"]["false_negative"])
+    (work / "config" / "config.yaml").write_text(original)
     snakemake(work)  # back to the measured configuration (not timed)
     record["data_in_memory_mb"] = data_in_memory_mb(work, run)
     record["import_baseline_mb"] = import_baseline_mb(work)
@@ -185,8 +193,9 @@ def measure(rows: int, log) -> dict:
                         "--out", str(work / f"serial_{label}.json")], cwd=work, env=env)
         if result["returncode"] != 0:
             raise SystemExit(f"serial script failed:\n{result['output'][-5000:]}")
+        steps = json.loads((work / f"serial_{label}.json").read_text()).get("seconds_by_step")
         record["serial"][label] = {"seconds": result["seconds"], "cpu_seconds": result["cpu_seconds"],
-                                   "max_rss_mb": result["max_rss_mb"],
+                                   "max_rss_mb": result["max_rss_mb"], "seconds_by_step": steps,
                                    "load_after": load()}
         log(f"[{rows}] serial {label}: {result['seconds']:.1f} s")
     (work / "measure.json").write_text(json.dumps(record, indent=1))
@@ -216,6 +225,16 @@ def _fmt(x, digits=1):
 
 def _status(ok: bool) -> str:
     return "met" if ok else "**not met**"
+
+
+def _serial_steps(r: dict) -> str:
+    parts = []
+    for label, serial in r["serial"].items():
+        steps = serial.get("seconds_by_step")
+        if steps:
+            parts.append(f"{label}: " + ", ".join(f"{k} {v:.1f}" for k, v in steps.items()))
+    return ("Serial script by step (s; each candidate = 5 folds + refit + fold metrics): "
+            + "; ".join(parts) + ".") if parts else ""
 
 
 def _load_text(r: dict) -> str:
@@ -282,6 +301,7 @@ def report(records: list[dict]) -> str:
                   f"{sum(len(j) for j in r['noop']['jobs'])}.",
                   f"CPU time (all processes): full build {r['full']['cpu_seconds']:.1f} s, serial "
                   + ", ".join(f"{k} {v['cpu_seconds']:.1f} s" for k, v in r["serial"].items()) + ".",
+                  _serial_steps(r),
                   f"Cost-only rebuild re-ran: {', '.join(r['cost_only']['jobs'])}.", "",
                   "| job | wall s | max_rss MB | max_rss ÷ data | (max_rss − imports) ÷ data |", "|---|---:|---:|---:|---:|"]
         for j in sorted(r["job_records"], key=lambda j: -j["seconds"]):

@@ -164,8 +164,9 @@ def main() -> None:
     for k, (_, va) in enumerate(splitter.split(train, y_train)):
         folds[va] = k
     candidates = cfg["candidates"] + [{"name": "baseline", "kind": "baseline"}]
-    results, finals = {}, {}
+    results, finals, seconds = {}, {}, {"read_and_split": time.perf_counter() - started}
     for cand in candidates:
+        candidate_started = time.perf_counter()
         X = (X_std if cand["kind"] in ("l1", "l2") else X_raw)[train]
         oof, per_fold = np.empty(train.size), []
         with warnings.catch_warnings():
@@ -180,6 +181,7 @@ def main() -> None:
         results[cand["name"]] = {"oof": oof, "mean": losses.mean(), "se": losses.std(ddof=1) / np.sqrt(losses.size),
                                  "n_parameters": X.shape[1] + 1 if cand["kind"] != "baseline" else 1,
                                  "folds": per_fold}
+        seconds[cand["name"]] = time.perf_counter() - candidate_started
     best = min(results, key=lambda n: results[n]["mean"])
     within = [n for n in results if results[n]["mean"] <= results[best]["mean"] + results[best]["se"]]
     selected = min(within, key=lambda n: (results[n]["n_parameters"], results[n]["mean"], n))
@@ -209,6 +211,7 @@ def main() -> None:
                                               "auc": float(roc_auc_score(y_test[groups == g], p_test[groups == g]))}
                                      for g in sorted(set(groups))}
     summary["seconds"] = time.perf_counter() - started
+    summary["seconds_by_step"] = seconds
     args.out.write_text(json.dumps(summary, indent=1, default=float))
     print(f"selected {selected}, cut-off {cutoff:.4f}, test AUC {summary['test']['auc']:.4f}, "
           f"{summary['seconds']:.1f} s")
