@@ -15,6 +15,7 @@ import jsonschema
 import yaml
 
 from oddsmith.errors import ConfigError
+from oddsmith.io import read_yaml
 
 SCHEMA_PATH = Path(__file__).resolve().parent.parent / "schemas" / "config.schema.yaml"
 PENALISED_KINDS = ("l1", "l2", "elastic_net")
@@ -43,13 +44,7 @@ def load_schema() -> dict:
 
 def read_config_file(path: str | Path) -> dict:
     """Read a YAML configuration file, with a clear error if it is missing or not YAML."""
-    path = Path(path)
-    if not path.is_file():
-        raise ConfigError(f"configuration file not found: {path}")
-    try:
-        loaded = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except yaml.YAMLError as exc:
-        raise ConfigError(f"configuration file {path} is not valid YAML: {exc}") from None
+    loaded = read_yaml(path, what="configuration file", error=ConfigError)
     if not isinstance(loaded, dict):
         raise ConfigError(f"configuration file {path} must hold a mapping of keys, found {type(loaded).__name__}")
     return loaded

@@ -15,9 +15,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pandera.pandas as pa
-import yaml
 
 from oddsmith.errors import ContractError
+from oddsmith.io import read_yaml
 
 CONTRACT_FORMAT = "oddsmith-contract/1"
 COLUMN_TYPES = ("string", "integer", "float", "date", "category")
@@ -27,13 +27,7 @@ EXAMPLES = 3
 
 def load_contract(path: str | Path) -> dict:
     """Read and check a contract file; raise ContractError listing every problem in it."""
-    path = Path(path)
-    if not path.is_file():
-        raise ContractError(f"data contract not found: {path}")
-    try:
-        doc = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except yaml.YAMLError as exc:
-        raise ContractError(f"data contract {path} is not valid YAML: {exc}") from None
+    doc = read_yaml(path, what="data contract", error=ContractError)
     problems = _contract_problems(doc)
     if problems:
         raise ContractError(f"data contract {path} is malformed", problems)

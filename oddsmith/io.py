@@ -15,6 +15,7 @@ from pathlib import Path
 
 import pyarrow as pa
 import pyarrow.parquet as pq
+import yaml
 
 from oddsmith.errors import ArtifactError
 
@@ -110,3 +111,14 @@ def read_parquet(path: str | Path, columns=None):
     if not path.is_file():
         raise ArtifactError(f"required artifact not found: {path}")
     return pq.read_table(path, columns=columns).to_pandas()
+
+
+def read_yaml(path: str | Path, *, what: str, error=ArtifactError):
+    """Read a YAML file; a missing or malformed file raises ``error`` naming ``what`` and the path."""
+    path = Path(path)
+    if not path.is_file():
+        raise error(f"{what} not found: {path}")
+    try:
+        return yaml.safe_load(path.read_text(encoding="utf-8"))
+    except yaml.YAMLError as exc:
+        raise error(f"{what} {path} is not valid YAML: {exc}") from None

@@ -57,11 +57,10 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.csv as pa_csv
-import yaml
 
 from oddsmith.contract import CONTRACT_FORMAT, read_raw, validate_frame
 from oddsmith.errors import ArtifactError, ContractError, ManifestError
-from oddsmith.io import read_json, read_parquet, sha256_file
+from oddsmith.io import read_json, read_parquet, read_yaml, sha256_file
 from oddsmith.models import MODEL_FORMAT, inverse_link, linear_predictor
 from oddsmith.predict import model_design
 from oddsmith.recipe import FORMAT as RECIPE_FORMAT
@@ -234,13 +233,7 @@ def _verify(folder: Path) -> None:
 
 
 def _read_contract(path) -> dict:
-    path = Path(path)
-    if not path.is_file():
-        raise ArtifactError(f"required artifact not found: {path}")
-    try:
-        contract = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except yaml.YAMLError as exc:
-        raise ArtifactError(f"{path} is not valid YAML: {exc}") from None
+    contract = read_yaml(path, what="required artifact")
     if not isinstance(contract, dict) or not isinstance(contract.get("columns"), dict):
         raise ArtifactError(f"{path} is not a data contract (no 'columns' mapping)")
     for spec in contract["columns"].values():
