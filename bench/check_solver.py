@@ -2,7 +2,9 @@
 tight tolerance, for L1 and elastic-net logistic regression on invented data.
 
 Prints, per data set and C, the largest absolute coefficient difference and the objective
-difference. Not a unit test (it takes a minute: saga at tol=1e-10 is slow); run it after
+difference. Where every slope is 0 (the strongest penalties) saga's intercept converges
+slowly and stops above the optimum; proximal Newton returns the closed form, the log-odds of
+the event rate, there. Not a unit test (it takes a minute: saga at tol=1e-10 is slow); run it after
 changing the solver::
 
     .venv/bin/python bench/check_solver.py
@@ -31,7 +33,7 @@ def invented(n: int, p: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
 
 
 def main() -> None:
-    worst = 0.0
+    worst, saga_short = 0.0, []
     for seed, (n, p) in enumerate([(2000, 8), (5000, 20), (3000, 36)]):
         X, y = invented(n, p, seed)
         for l1_ratio in (1.0, 0.5):
@@ -44,13 +46,19 @@ def main() -> None:
                     reference.fit(X, y)
                 ref = np.r_[reference.intercept_, reference.coef_[0]]
                 diff = float(np.max(np.abs(coef - ref)))
-                worst = max(worst, diff)
                 gap = (_penalised_objective(X, y.astype(float), None, coef, C=C, l1_ratio=l1_ratio)
                        - _penalised_objective(X, y.astype(float), None, ref, C=C, l1_ratio=l1_ratio))
+                if gap > -1e-9:  # saga at least as good: a fair comparison
+                    worst = max(worst, diff)
+                else:  # saga stopped short (its intercept moves slowly when every slope is 0)
+                    saga_short.append((n, p, l1_ratio, C, diff, gap))
                 print(f"n={n} p={p} l1_ratio={l1_ratio} C={C:g}: converged={converged} "
                       f"max|coef diff|={diff:.1e} objective(PN) - objective(saga)={gap:.1e} "
                       f"zeros PN/saga={int(np.sum(coef[1:] == 0))}/{int(np.sum(ref[1:] == 0))}")
-    print(f"largest coefficient difference: {worst:.1e}")
+    print(f"largest coefficient difference where saga reached an objective as low: {worst:.1e}")
+    for n, p, l1_ratio, C, diff, gap in saga_short:
+        print(f"saga stopped above the optimum: n={n} p={p} l1_ratio={l1_ratio} C={C:g} "
+              f"(objective {-gap:.1e} higher, coefficients {diff:.1e} apart)")
 
 
 if __name__ == "__main__":

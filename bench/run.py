@@ -251,7 +251,8 @@ def report(records: list[dict]) -> str:
     lines = ["# Benchmark results", "",
              "Written by `bench/run.py` (see `bench/README.md` for what is measured and how). "
              "All times are wall-clock seconds on the machine below, shared with other users "
-             "while measuring; the 1-minute load is recorded beside each size.", "",
+             "while measuring; the 1-minute load is recorded beside each size. Where the time and "
+             "memory go, and what would meet the targets not met: `bench/README.md`, section Findings.", "",
              "## Machine", "", f"- `nproc`: {m['nproc']}; {m['memory'].split(':')[1].strip()} memory "
              f"({m['memory'].split(':')[0]})", f"- Python {m['python']} on {m['platform']}",
              "- " + ", ".join(f"{k} {v}" for k, v in m["versions"].items()), "", "```", *m["lscpu"], "```", ""]
