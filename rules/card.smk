@@ -35,7 +35,7 @@ rule figures:
         "logs/{run}/figures.log",
     benchmark:
         "benchmarks/{run}/figures.tsv"
-    threads: 1
+    threads: RES["threads"]
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
@@ -71,7 +71,7 @@ rule card:
         "logs/{run}/card.log",
     benchmark:
         "benchmarks/{run}/card.tsv"
-    threads: 1
+    threads: RES["threads"]
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],

@@ -11,7 +11,7 @@ rule manifest:
         "logs/{run}/manifest.log",
     benchmark:
         "benchmarks/{run}/manifest.tsv"
-    threads: 1
+    threads: RES["threads"]
     resources:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],

@@ -47,7 +47,7 @@ if SCORING["data"]:
             "logs/{run}/score.log",
         benchmark:
             "benchmarks/{run}/score.tsv"
-        threads: 1
+        threads: RES["threads"]
         resources:
             mem_mb=RES["mem_mb"],
             runtime=RES["runtime"],
