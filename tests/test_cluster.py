@@ -74,7 +74,7 @@ def test_artifacts_hold_no_absolute_path_of_the_project(cluster_build, demo_buil
 
 def test_rules_declare_resources_from_the_config(project):
     config = yaml.safe_load((project / "config/config.yaml").read_text())
-    config["resources"] = {"threads": 1, "mem_mb": 2345, "runtime": 17}
+    config["resources"] = {"threads": 2, "mem_mb": 2345, "runtime": 17}
     (project / "config/custom.yaml").write_text(yaml.safe_dump(config, sort_keys=False))
     result = run_snakemake(project, "--dry-run", "--configfile", "config/custom.yaml")
     jobs = _dry_run_jobs(result.stdout + result.stderr)
@@ -83,7 +83,7 @@ def test_rules_declare_resources_from_the_config(project):
         if rule == "all":
             continue
         assert resources.get("mem_mb") == "2345" and resources.get("runtime") == "17", (rule, resources)
-        assert threads == 1, (rule, threads)
+        assert threads == 2, (rule, threads)
 
 
 def test_set_threads_and_set_resources_override_one_rule(project):
