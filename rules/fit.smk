@@ -12,6 +12,7 @@ rule fit:
         "logs/{run}/fit/{candidate}.log",
     benchmark:
         "benchmarks/{run}/fit/{candidate}.tsv"
+    priority: lambda wc: fit_priority(wc.candidate)
     threads: RES["threads"]
     resources:
         mem_mb=RES["mem_mb"],
