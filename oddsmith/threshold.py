@@ -353,19 +353,32 @@ def _bootstrap(y, p, costs, empirical_cutoff, resamples, seed) -> dict | None:
         return None
     rng = np.random.default_rng(seed)
     pos, neg = np.flatnonzero(y == 1), np.flatnonzero(y == 0)
+    # Sort once; a resample is a vector of row counts over the sorted rows, so each resample
+    # costs O(n) instead of a new sort. Cut-offs absent from a resample tie in cost with the
+    # next present value above them, and ties go to the highest cut-off, so the choice is
+    # the same as re-sorting the resample itself.
+    order = np.argsort(-p, kind="stable")
+    p_desc, y_desc = p[order], y[order]
+    run_ends = np.flatnonzero(np.append(p_desc[1:] != p_desc[:-1], True))
+    cutoffs = np.append(p_desc[run_ends][::-1], np.inf)
+    rank = np.empty(p.shape[0], dtype=np.int64)
+    rank[order] = np.arange(p.shape[0])
+    fixed_rows = p_desc >= empirical_cutoff
     chosen, chosen_cost, fixed_cost = (np.empty(resamples) for _ in range(3))
     for b in range(resamples):
         rows = np.concatenate(
             [pos[rng.integers(0, pos.size, pos.size)], neg[rng.integers(0, neg.size, neg.size)]]
         )
-        y_b, p_b = y[rows], p[rows]
-        curve = _curve_dict(y_b, p_b, costs)
-        best = _lowest_cost_index(curve["total_cost"])
-        chosen[b] = curve["cutoff"][best]
-        chosen_cost[b] = curve["total_cost"][best]
-        flag = p_b >= empirical_cutoff
-        tp, fp = np.sum(flag & (y_b == 1)), np.sum(flag & (y_b == 0))
-        fixed_cost[b] = _total_cost(costs, tp, fp, neg.size - fp, pos.size - tp)
+        weight = np.bincount(rank[rows], minlength=p.shape[0])
+        cum_flagged, cum_tp = np.cumsum(weight), np.cumsum(weight * y_desc)
+        flagged = np.append(cum_flagged[run_ends][::-1], 0)
+        tp = np.append(cum_tp[run_ends][::-1], 0)
+        total = _total_cost(costs, tp, flagged - tp, neg.size - (flagged - tp), pos.size - tp)
+        best = _lowest_cost_index(total)
+        chosen[b], chosen_cost[b] = cutoffs[best], total[best]
+        tp_fixed = int(np.sum(weight[fixed_rows] * y_desc[fixed_rows]))
+        fp_fixed = int(np.sum(weight[fixed_rows])) - tp_fixed
+        fixed_cost[b] = _total_cost(costs, tp_fixed, fp_fixed, neg.size - fp_fixed, pos.size - tp_fixed)
     q = [(1 - _BOOTSTRAP_LEVEL) / 2, (1 + _BOOTSTRAP_LEVEL) / 2]
     cut_lo, cut_hi = np.quantile(chosen, q, method="inverted_cdf")
     scale = 1000.0 / y.shape[0]
