@@ -219,12 +219,20 @@ def _check_target(values: pd.Series, ids: pd.Series, positive_label) -> list[str
     return []
 
 
+def _absent_column(df: pd.DataFrame, column, *, role: str, method: str) -> list[str]:
+    """The problem when a split's ``<role>_column`` is unset or not in the data, else []."""
+    if column is None:
+        return [f"{method} split needs a {role}_column, got null"]
+    if column not in df.columns:
+        return [f"{role} column {column!r} is not a column of the data"]
+    return []
+
+
 def _check_dates(df: pd.DataFrame, ids: pd.Series, settings: dict) -> list[str]:
     column = settings["date_column"]
-    if column is None:
-        return ["out_of_time split needs a date_column, got null"]
-    if column not in df.columns:
-        return [f"date column {column!r} is not a column of the data"]
+    absent = _absent_column(df, column, role="date", method="out_of_time")
+    if absent:
+        return absent
     dates, problems = _parse_dates(df[column].reset_index(drop=True), ids, column)
     if problems:
         return problems
@@ -256,10 +264,9 @@ def _check_cutoff(dates: pd.Series, cutoff_text) -> list[str]:
 
 def _check_groups(df: pd.DataFrame, ids: pd.Series, settings: dict) -> list[str]:
     column = settings["group_column"]
-    if column is None:
-        return ["grouped split needs a group_column, got null"]
-    if column not in df.columns:
-        return [f"group column {column!r} is not a column of the data"]
+    absent = _absent_column(df, column, role="group", method="grouped")
+    if absent:
+        return absent
     missing = df[column].isna().to_numpy()
     if missing.any():
         return [f"group column {column!r} has {int(missing.sum())} missing values, e.g. ids {_examples(ids, missing)}"]
