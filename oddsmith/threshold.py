@@ -341,44 +341,163 @@ def _curve_dict(y: np.ndarray, p: np.ndarray, costs: dict) -> dict:
     return {"cutoff": cutoffs, "flagged": flagged, "tp": tp, "total_cost": total}
 
 
+class _BinnedRows:
+    """Rows grouped for the bootstrap: distinct values of ``p`` in decreasing order, their
+    counts of events and non-events, and consecutive bins of distinct values.
+
+    Distinct value ``d`` (0 = highest) as a cut-off flags every row of values ``0 .. d``. Bin
+    ``k`` holds values ``starts[k] .. starts[k + 1] - 1``; cutting at its lowest value (its
+    *edge*) flags bins ``0 .. k`` whole. Bins hold about equal numbers of rows, and the value
+    ``forced`` (when given) is the edge of its bin.
+    """
+
+    def __init__(self, y: np.ndarray, p: np.ndarray, bins: int, forced: float | None):
+        order = np.argsort(-p, kind="stable")
+        p_desc, y_desc = p[order], y[order]
+        run_starts = np.flatnonzero(np.append(True, p_desc[1:] != p_desc[:-1]))
+        self.values = p_desc[run_starts]
+        value_of_row = np.cumsum(np.append(False, p_desc[1:] != p_desc[:-1]))
+        n_values = self.values.size
+        rows = np.diff(np.append(run_starts, p.size))
+        self.pos = np.bincount(value_of_row, weights=y_desc, minlength=n_values).astype(np.int64)
+        self.neg = rows - self.pos
+        # distinct value of each event / non-event, in decreasing order of p
+        self.pos_value = value_of_row[y_desc == 1]
+        self.neg_value = value_of_row[y_desc == 0]
+        # bin k ends at the first value where the running row count reaches k+1 bins' worth
+        targets = p.size * np.arange(1, bins) / bins
+        ends = set(np.searchsorted(np.cumsum(rows), targets, side="left").tolist()) | {n_values - 1}
+        forced_value = None
+        if forced is not None and math.isfinite(forced):
+            forced_value = int(np.flatnonzero(self.values == forced)[0])
+            ends.add(forced_value)
+        ends = np.array(sorted(ends), dtype=np.int64)
+        self.starts = np.append(0, ends + 1)  # bin k: values starts[k] .. starts[k+1] - 1
+        cum_pos = np.append(0, np.cumsum(self.pos))
+        cum_neg = np.append(0, np.cumsum(self.neg))
+        # events (non-events) of bin k are pos_value[pos_from[k]:pos_from[k + 1]]
+        self.pos_from, self.neg_from = cum_pos[self.starts], cum_neg[self.starts]
+        self.bin_pos, self.bin_neg = np.diff(self.pos_from), np.diff(self.neg_from)
+        # the bin whose edge is the forced value (None: no value forced, e.g. flag none)
+        self.forced_bin = None if forced_value is None else int(np.flatnonzero(ends == forced_value)[0])
+
+    def counts_in(self, bins: np.ndarray, events: np.ndarray, non_events: np.ndarray, rng):
+        """Resampled counts per distinct value inside ``bins``, given each bin's resampled
+        events and non-events: each draw picks one of the bin's rows of that outcome with
+        equal probability, which is what resampling the whole outcome class does once the
+        bin's total is known.
+
+        Returns ``(events, non_events, lengths, base)``: counts per value, bin after bin in
+        decreasing order of ``p``; the number of values of each bin; and, per position, the
+        number to add to the position to get the distinct value's index.
+        """
+        lengths = self.starts[bins + 1] - self.starts[bins]
+        shift = self.starts[bins] - (np.cumsum(lengths) - lengths)
+        size = int(lengths.sum())
+        out = []
+        for value_of, first, drawn in ((self.pos_value, self.pos_from, events),
+                                       (self.neg_value, self.neg_from, non_events)):
+            low, high = np.repeat(first[bins], drawn), np.repeat(first[bins + 1], drawn)
+            picked = value_of[rng.integers(low, high)] if low.size else np.empty(0, dtype=np.int64)
+            out.append(np.bincount(picked - np.repeat(shift, drawn), minlength=size).astype(np.int64))
+        return out[0], out[1], lengths, np.repeat(shift, lengths)
+
+
+def _pruned_choice(rows: _BinnedRows, costs: dict, events: int, non_events: int, bin_pos: np.ndarray,
+                   bin_neg: np.ndarray, counts_in) -> tuple[int, float]:
+    """The empirical choice of one resample from its counts per bin: ``(distinct value, total
+    cost)``, value ``-1`` meaning flag none; the same choice as the full cost curve.
+
+    Every bin edge is costed. Inside bin ``k`` the total cost cannot fall below
+    ``max(C_before - a·(cost_fn - cost_tp), C_after - b·(cost_fp - cost_tn))`` (``a`` events,
+    ``b`` non-events in the bin, ``C_before``/``C_after`` the costs at the edges around it),
+    so only bins whose bound reaches the best edge (plus the tie tolerance, generously) can
+    hold the minimum or a tie with it; ``counts_in(bins)`` supplies the counts per distinct
+    value of those bins, and their values are costed one by one.
+    """
+    tp = np.append(0, np.cumsum(bin_pos))  # after flagging bins 0 .. k-1
+    fp = np.append(0, np.cumsum(bin_neg))
+    edge_cost = _total_cost(costs, tp, fp, non_events - fp, events - tp)
+    best_edge = float(edge_cost.min())
+    fn_regret, fp_regret = costs["cost_fn"] - costs["cost_tp"], costs["cost_fp"] - costs["cost_tn"]
+    bound = np.maximum(edge_cost[:-1] - bin_pos * fn_regret, edge_cost[1:] - bin_neg * fp_regret)
+    margin = 1e-9 * max(1.0, abs(best_edge))  # far wider than the tie tolerance and rounding
+    multi = np.diff(rows.starts) > 1
+    refine = np.flatnonzero(multi & (bound <= best_edge + margin))
+    # candidates: flag none (-1), each bin's edge, each value of the refined bins
+    value = np.append(-1, rows.starts[1:] - 1)
+    cost = edge_cost
+    if refine.size:
+        pos_counts, neg_counts, lengths, base = counts_in(refine)
+        segment = np.repeat(np.arange(refine.size), lengths)
+        first = np.cumsum(lengths) - lengths
+        cum_pos, cum_neg = np.cumsum(pos_counts), np.cumsum(neg_counts)
+        tp_in = tp[refine][segment] + cum_pos - (cum_pos[first] - pos_counts[first])[segment]
+        fp_in = fp[refine][segment] + cum_neg - (cum_neg[first] - neg_counts[first])[segment]
+        value = np.append(value, base + np.arange(lengths.sum()))
+        cost = np.append(cost, _total_cost(costs, tp_in, fp_in, non_events - fp_in, events - tp_in))
+    best = cost.min()
+    tied = cost <= best + _TIE_RTOL * max(1.0, abs(best))
+    # the highest cut-off among ties: the smallest distinct value index (flag none first)
+    pick = np.flatnonzero(tied)[np.argmin(value[tied])]
+    return int(value[pick]), float(cost[pick])
+
+
+def _bootstrap_bins(n_rows: int) -> int:
+    """Number of bins for the bootstrap, ``2·sqrt(n)``: drawing the bin totals costs O(bins)
+    per resample, costing the values of the bins near the minimum about O(n / bins). Any
+    number gives the same choices in distribution; only the time changes (measured on
+    750,000 rows: 1,000 to 2,000 bins were fastest)."""
+    return max(1, min(n_rows, round(2 * math.sqrt(n_rows))))
+
+
+def _bootstrap_draws(y, p, costs, empirical_cutoff, resamples, seed):
+    """Per resample: the cut-off chosen again (``inf`` = flag none), its total cost, and the
+    total cost of ``empirical_cutoff``. See :func:`_bootstrap` for the method."""
+    rng = np.random.default_rng(seed)
+    events = int(y.sum())
+    non_events = int(y.shape[0]) - events
+    rows = _BinnedRows(y, p, _bootstrap_bins(int(y.shape[0])), empirical_cutoff)
+    pos_share, neg_share = rows.bin_pos / events, rows.bin_neg / non_events
+    chosen, chosen_cost, fixed_cost = (np.empty(resamples) for _ in range(3))
+    for b in range(resamples):
+        bin_pos = rng.multinomial(events, pos_share)
+        bin_neg = rng.multinomial(non_events, neg_share)
+        value, chosen_cost[b] = _pruned_choice(
+            rows, costs, events, non_events, bin_pos, bin_neg,
+            lambda bins: rows.counts_in(bins, bin_pos[bins], bin_neg[bins], rng))
+        chosen[b] = math.inf if value < 0 else rows.values[value]
+        if rows.forced_bin is None:  # the cut-off chosen on all rows flags none
+            tp_fixed = fp_fixed = 0
+        else:
+            tp_fixed = int(bin_pos[: rows.forced_bin + 1].sum())
+            fp_fixed = int(bin_neg[: rows.forced_bin + 1].sum())
+        fixed_cost[b] = _total_cost(costs, tp_fixed, fp_fixed, non_events - fp_fixed, events - tp_fixed)
+    return chosen, chosen_cost, fixed_cost
+
+
 def _bootstrap(y, p, costs, empirical_cutoff, resamples, seed) -> dict | None:
     """Stratified percentile bootstrap of the empirical cut-off and its cost per 1,000.
 
-    Positives and negatives are resampled separately (their counts stay fixed). For each
-    resample the empirical cut-off is chosen again and its cost recorded; the cost of the
-    cut-off chosen on all rows is recorded too. Percentiles are order statistics (numpy
-    ``inverted_cdf``), so "flag none" (``inf``) can be an end point, reported as None.
+    Events and non-events are resampled separately, each with replacement and to its own
+    count. For each resample the empirical cut-off is chosen again among the distinct values
+    of ``p`` (plus flag none), with the same rule as on all rows, and its cost recorded; the
+    cost of the cut-off chosen on all rows is recorded too. Percentiles are order statistics
+    (numpy ``inverted_cdf``), so "flag none" (``inf``) can be an end point, reported as None.
+
+    A resample is drawn in two exact steps instead of row by row. Rows are grouped into
+    about ``2·sqrt(n)`` bins of consecutive distinct values (the cut-off chosen on all rows
+    ends a bin). The resampled events per bin are Multinomial(events, bin shares of the
+    events), and non-events likewise; given a bin's totals, its draws are uniform over its
+    rows of that outcome. The second step is taken only for bins that can hold the
+    resample's lowest cost (:func:`_pruned_choice`), so a resample costs far less than
+    ``n``; the resampled counts, and hence the choices, have exactly the distribution of
+    row-by-row resampling (the random numbers differ, so a seed gives other draws than a
+    row-by-row implementation would).
     """
     if resamples == 0:
         return None
-    rng = np.random.default_rng(seed)
-    pos, neg = np.flatnonzero(y == 1), np.flatnonzero(y == 0)
-    # Sort once; a resample is a vector of row counts over the sorted rows, so each resample
-    # costs O(n) instead of a new sort. Cut-offs absent from a resample tie in cost with the
-    # next present value above them, and ties go to the highest cut-off, so the choice is
-    # the same as re-sorting the resample itself.
-    order = np.argsort(-p, kind="stable")
-    p_desc, y_desc = p[order], y[order]
-    run_ends = np.flatnonzero(np.append(p_desc[1:] != p_desc[:-1], True))
-    cutoffs = np.append(p_desc[run_ends][::-1], np.inf)
-    rank = np.empty(p.shape[0], dtype=np.int64)
-    rank[order] = np.arange(p.shape[0])
-    fixed_rows = p_desc >= empirical_cutoff
-    chosen, chosen_cost, fixed_cost = (np.empty(resamples) for _ in range(3))
-    for b in range(resamples):
-        rows = np.concatenate(
-            [pos[rng.integers(0, pos.size, pos.size)], neg[rng.integers(0, neg.size, neg.size)]]
-        )
-        weight = np.bincount(rank[rows], minlength=p.shape[0])
-        cum_flagged, cum_tp = np.cumsum(weight), np.cumsum(weight * y_desc)
-        flagged = np.append(cum_flagged[run_ends][::-1], 0)
-        tp = np.append(cum_tp[run_ends][::-1], 0)
-        total = _total_cost(costs, tp, flagged - tp, neg.size - (flagged - tp), pos.size - tp)
-        best = _lowest_cost_index(total)
-        chosen[b], chosen_cost[b] = cutoffs[best], total[best]
-        tp_fixed = int(np.sum(weight[fixed_rows] * y_desc[fixed_rows]))
-        fp_fixed = int(np.sum(weight[fixed_rows])) - tp_fixed
-        fixed_cost[b] = _total_cost(costs, tp_fixed, fp_fixed, neg.size - fp_fixed, pos.size - tp_fixed)
+    chosen, chosen_cost, fixed_cost = _bootstrap_draws(y, p, costs, empirical_cutoff, resamples, seed)
     q = [(1 - _BOOTSTRAP_LEVEL) / 2, (1 + _BOOTSTRAP_LEVEL) / 2]
     cut_lo, cut_hi = np.quantile(chosen, q, method="inverted_cdf")
     scale = 1000.0 / y.shape[0]

@@ -7,6 +7,7 @@ import math
 
 import numpy as np
 import pytest
+from scipy import stats
 from sklearn.metrics import confusion_matrix
 
 from oddsmith import threshold
@@ -314,3 +315,93 @@ def test_bootstrap_is_deterministic_for_a_seed():
     assert boot["cost_per_1000_low"] <= boot["cost_per_1000_high"]
     # re-choosing the cut-off in each resample can only lower that resample's cost
     assert boot["cost_per_1000_low"] <= boot["fixed_cutoff_cost_per_1000_low"]
+
+
+# ------------------------------------------------------------------ bootstrap by bins
+
+
+def _row_by_row_draws(y, p, costs, empirical_cutoff, resamples, seed):
+    """The plain stratified bootstrap: resample rows, rebuild the whole cost curve."""
+    rng = np.random.default_rng(seed)
+    costs = threshold._resolve_costs(costs)
+    pos, neg = np.flatnonzero(y == 1), np.flatnonzero(y == 0)
+    chosen, chosen_cost, fixed_cost = [], [], []
+    for _ in range(resamples):
+        rows = np.concatenate([rng.choice(pos, pos.size), rng.choice(neg, neg.size)])
+        curve = threshold._curve_dict(y[rows], p[rows], costs)
+        best = threshold._lowest_cost_index(curve["total_cost"])
+        chosen.append(curve["cutoff"][best])
+        chosen_cost.append(curve["total_cost"][best])
+        flag = p[rows] >= empirical_cutoff
+        tp, fp = int(np.sum(flag & (y[rows] == 1))), int(np.sum(flag & (y[rows] == 0)))
+        fixed_cost.append(threshold._total_cost(costs, tp, fp, neg.size - fp, pos.size - tp))
+    return np.array(chosen), np.array(chosen_cost), np.array(fixed_cost)
+
+
+@pytest.mark.parametrize("decimals", [None, 2])
+def test_choice_from_bins_equals_the_choice_from_the_whole_cost_curve(decimals):
+    """Given the same resampled rows, costing only the bin edges and the bins that can hold
+    the minimum picks the same cut-off at the same cost as the whole curve (ties included)."""
+    rng = np.random.default_rng(5)
+    checked = 0
+    for case in range(40):
+        y, p = _calibrated_sample(case, int(rng.integers(20, 1500)), 2, 5)
+        p = p if decimals is None else np.round(p, decimals)
+        costs = threshold._resolve_costs({"cost_fp": float(rng.uniform(0.5, 3)), "cost_fn": float(rng.uniform(1, 8)),
+                                          "cost_tp": 0.25 * (case % 2)})
+        curve = threshold._curve_dict(y, p, costs)
+        rows = threshold._BinnedRows(y, p, int(rng.integers(1, 50)),
+                                     curve["cutoff"][threshold._lowest_cost_index(curve["total_cost"])])
+        pos, neg = np.flatnonzero(y == 1), np.flatnonzero(y == 0)
+        for _ in range(4):
+            drawn = np.concatenate([rng.choice(pos, pos.size), rng.choice(neg, neg.size)])
+            full = threshold._curve_dict(y[drawn], p[drawn], costs)
+            best = threshold._lowest_cost_index(full["total_cost"])
+            value = np.searchsorted(-rows.values, -p[drawn])  # distinct value of each drawn row
+            n_values = rows.values.size
+            pos_counts = np.bincount(value[y[drawn] == 1], minlength=n_values)
+            neg_counts = np.bincount(value[y[drawn] == 0], minlength=n_values)
+
+            def counts_in(bins, pos_counts=pos_counts, neg_counts=neg_counts):
+                lengths = rows.starts[bins + 1] - rows.starts[bins]
+                inside = np.concatenate([np.arange(rows.starts[k], rows.starts[k + 1]) for k in bins])
+                return pos_counts[inside], neg_counts[inside], lengths, inside - np.arange(inside.size)
+
+            got, cost = threshold._pruned_choice(
+                rows, costs, pos.size, neg.size, np.add.reduceat(pos_counts, rows.starts[:-1]),
+                np.add.reduceat(neg_counts, rows.starts[:-1]), counts_in)
+            assert (math.inf if got < 0 else rows.values[got]) == full["cutoff"][best]
+            assert cost == full["total_cost"][best]
+            checked += 1
+    assert checked == 160
+
+
+def _same_distribution(a, b):
+    """p-value of a chi-squared test that two samples of a discrete value share one law
+    (values seen fewer than 40 times in both samples together are pooled)."""
+    values, counts = np.unique(np.concatenate([a, b]), return_counts=True)
+    common = values[counts >= 40]
+    table = np.array([[np.sum(s == v) for v in common] + [np.sum(~np.isin(s, common))] for s in (a, b)])
+    table = table[:, table.sum(axis=0) > 0]
+    return stats.chi2_contingency(table).pvalue
+
+
+def test_bootstrap_by_bins_has_the_law_of_row_by_row_resampling():
+    """Same data, 4,000 resamples each way: the chosen cut-off (chi-squared test), its cost
+    and the cost of the fixed cut-off (two-sample Kolmogorov-Smirnov tests) have the same
+    distribution at the 0.001 level; the seeds are fixed, so the test is deterministic."""
+    y, p = _calibrated_sample(41, 500, 2, 5)
+    p = np.round(p, 2)
+    costs = threshold._resolve_costs(FP1_FN3)
+    empirical = threshold.choose_cutoff(y, p, costs=costs, bootstrap=0)["empirical"]["cutoff"]
+    chosen, chosen_cost, fixed_cost = threshold._bootstrap_draws(y, p, costs, empirical, 4000, 1)
+    plain_chosen, plain_cost, plain_fixed = _row_by_row_draws(y, p, costs, empirical, 4000, 2)
+    assert _same_distribution(chosen, plain_chosen) > 0.001
+    assert stats.ks_2samp(chosen_cost, plain_cost).pvalue > 0.001
+    assert stats.ks_2samp(fixed_cost, plain_fixed).pvalue > 0.001
+    # the fixed cut-off's cost is a sum of independent counts: its mean and spread are known
+    events, non_events = int(y.sum()), int(y.size - y.sum())
+    missed, false_alarms = np.mean(p[y == 1] < empirical), np.mean(p[y == 0] >= empirical)
+    assert np.mean(fixed_cost) == pytest.approx(3 * events * missed + non_events * false_alarms, rel=0.01)
+    variance = 9 * events * missed * (1 - missed) + non_events * false_alarms * (1 - false_alarms)
+    assert np.var(fixed_cost) == pytest.approx(variance, rel=0.1)
