@@ -17,7 +17,7 @@ import warnings
 import numpy as np
 from sklearn.linear_model import LogisticRegression
 
-from oddsmith.models import _penalised_objective, _proximal_newton_path
+from oddsmith.solvers import penalised_objective as _penalised_objective, proximal_newton_path as _proximal_newton_path
 
 GRID = [0.001, 0.01, 0.1, 1.0, 10.0]
 

@@ -37,10 +37,11 @@ def main() -> None:
     with tempfile.TemporaryDirectory() as out, threadpool_limits(limits=1):
         profile = cProfile.Profile()
         started = time.perf_counter()
-        profile.runcall(run_fit, data_path=str(run / "validated/data.parquet"),
+        profile.runcall(run_fit, design_path=str(run / "features/train_design.parquet"),
                         assignment_path=str(run / "split/assignment.parquet"),
                         recipe_path=str(run / "features/recipe.json"), candidate=candidate,
-                        target=config["data"]["target"], seed=config["cross_validation"]["seed"],
+                        id_column=config["data"]["id_column"], target=config["data"]["target"],
+                        seed=config["cross_validation"]["seed"],
                         out_model=f"{out}/model.json", out_cv=f"{out}/cv.json", out_oof=f"{out}/oof.parquet")
         wall = time.perf_counter() - started
     text = io.StringIO()

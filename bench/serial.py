@@ -13,9 +13,11 @@ a few asserts, design diagnostics (VIF, leakage screen), DeLong and corrected t-
 Hosmer-Lemeshow, per-fold calibration by GLM, provenance stamps, hashing, figures, card.
 So the comparison is conservative: the pipeline does more work than this script.
 
-The only oddsmith import is the proximal Newton path used for the L1 candidate's inner
-cross-validation: scikit-learn has no equivalent, and timing a slower solver here would
-flatter the pipeline (see bench/README.md).
+The ML candidates use statsmodels, as an analyst would (oddsmith's own blocked Newton solver
+reaches the same estimates, see tests/test_models.py). The only oddsmith import is the
+proximal Newton path used for the penalised candidates (inner cross-validation and refit),
+exactly as in the pipeline: scikit-learn has no warm-started path of that kind, and timing a
+slower solver here would flatter the pipeline (see bench/README.md).
 
 Usage::
 
@@ -35,11 +37,10 @@ import pandas as pd
 import scipy.special
 import statsmodels.api as sm
 import yaml
-from sklearn.linear_model import LogisticRegression
 from sklearn.metrics import brier_score_loss, log_loss, roc_auc_score, roc_curve
 from sklearn.model_selection import StratifiedKFold, train_test_split
 
-from oddsmith.models import _proximal_newton_path  # the L1 inner-CV solver (see docstring)
+from oddsmith.solvers import proximal_newton_path  # the penalised solver (see docstring)
 
 
 def design(df: pd.DataFrame, features: list[dict]) -> pd.DataFrame:
@@ -68,14 +69,6 @@ def fit_ml(kind: str, X: np.ndarray, y: np.ndarray):
     return lambda Z: result.predict(sm.add_constant(Z, has_constant="add"))
 
 
-def _estimator(C: float, l1_ratio: float, seed: int) -> LogisticRegression:
-    if l1_ratio == 0.0:
-        return LogisticRegression(C=C, l1_ratio=0.0, solver="newton-cholesky", tol=1e-8,
-                                  max_iter=1000, random_state=seed, warm_start=True)
-    return LogisticRegression(C=C, l1_ratio=l1_ratio, solver="saga", max_iter=1000,
-                              random_state=seed, warm_start=True)
-
-
 def fit_penalised(X: np.ndarray, y: np.ndarray, *, grid: list[float], inner_folds: int,
                   l1_ratio: float, seed: int):
     """Inner stratified CV over the grid (warm starts), then refit at the chosen C."""
@@ -83,26 +76,13 @@ def fit_penalised(X: np.ndarray, y: np.ndarray, *, grid: list[float], inner_fold
     losses = np.zeros((inner_folds, len(grid)))
     inner = StratifiedKFold(n_splits=inner_folds, shuffle=True, random_state=seed)
     for f, (tr, va) in enumerate(inner.split(X, y)):
-        if l1_ratio > 0.0:
-            path = _proximal_newton_path(X, y, grid, rows=tr, l1_ratio=l1_ratio, max_iter=1000)
-            for k, (coef, _) in enumerate(path):
-                losses[f, k] = log_loss(y[va], scipy.special.expit(coef[0] + X[va] @ coef[1:]))
-            continue
-        est = _estimator(grid[0], l1_ratio, seed)
-        for k, c in enumerate(grid):
-            est.set_params(C=c).fit(X[tr], y[tr])
-            losses[f, k] = log_loss(y[va], est.predict_proba(X[va])[:, 1])
+        path = proximal_newton_path(X, y, grid, rows=tr, l1_ratio=l1_ratio, max_iter=1000)
+        for k, (coef, _) in enumerate(path):
+            losses[f, k] = log_loss(y[va], scipy.special.expit(coef[0] + X[va] @ coef[1:]))
     chosen = grid[int(np.argmin(losses.mean(axis=0)))]
-    est = _estimator(grid[0], l1_ratio, seed)
-    if l1_ratio > 0.0:
-        coef, _ = _proximal_newton_path(X, y, grid[: grid.index(chosen) + 1], rows=None,
-                                        l1_ratio=l1_ratio, max_iter=1000)[-1]
-        est.coef_, est.intercept_ = coef[None, 1:].copy(), coef[:1].copy()
-        est.set_params(C=chosen).fit(X, y)
-    else:
-        for c in grid[: grid.index(chosen) + 1]:
-            est.set_params(C=c).fit(X, y)
-    return lambda Z: est.predict_proba(Z)[:, 1]
+    coef, _ = proximal_newton_path(X, y, grid[: grid.index(chosen) + 1], rows=None,
+                                   l1_ratio=l1_ratio, max_iter=1000)[-1]
+    return lambda Z: scipy.special.expit(coef[0] + Z @ coef[1:])
 
 
 def fit(candidate: dict, X: np.ndarray, y: np.ndarray, seed: int):

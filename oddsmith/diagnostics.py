@@ -75,7 +75,7 @@ def design_diagnostics(
     values = _design_values(X)
     constant = [c for c, v in zip(X.columns, values.T) if len(v) and v.max() == v.min()]
     varying = [i for i, c in enumerate(X.columns) if c not in constant]
-    corr = _correlation(values[:, varying])
+    corr = _correlation(values if len(varying) == values.shape[1] else values[:, varying])
     names = [str(X.columns[i]) for i in varying]
     report = _epv(y, X.shape[1] + 1)
     report["n_rows"] = int(len(X))
@@ -101,10 +101,11 @@ def _outcome(y_train, n_rows: int) -> np.ndarray:
 
 
 def _design_values(X: pd.DataFrame) -> np.ndarray:
-    values = X.to_numpy(dtype=np.float64)
-    bad = ~np.isfinite(values)
-    if bad.any():
-        columns = [str(c) for c in X.columns[bad.any(axis=0)]]
+    # A frame of float64 columns in one block gives a view here, not a copy.
+    values = X.to_numpy(dtype=np.float64, copy=False)
+    finite = np.array([np.isfinite(values[:, j]).all() for j in range(values.shape[1])], dtype=bool)
+    if not finite.all():
+        columns = [str(c) for c in X.columns[~finite]]
         raise ValueError(f"design matrix has non-finite values in columns {columns[:5]}")
     return values
 
@@ -130,10 +131,16 @@ def _epv(y: np.ndarray, n_parameters: int) -> dict:
 # ---------------------------------------------------------------------------- correlation and VIF
 
 
-def _correlation(values: np.ndarray) -> np.ndarray:
-    centred = values - values.mean(axis=0)
-    scaled = centred / np.sqrt((centred**2).sum(axis=0))
-    corr = scaled.T @ scaled
+def _correlation(values: np.ndarray, block_rows: int = 65_536) -> np.ndarray:
+    """Pearson correlations of the columns, centred Gram matrix accumulated by row blocks
+    (no centred copy of the whole matrix is made)."""
+    means = values.mean(axis=0)
+    cross = np.zeros((values.shape[1], values.shape[1]))
+    for start in range(0, values.shape[0], block_rows):
+        centred = values[start:start + block_rows] - means
+        cross += centred.T @ centred
+    scale = np.sqrt(np.diag(cross))
+    corr = cross / np.outer(scale, scale)
     np.fill_diagonal(corr, 1.0)
     return np.clip(corr, -1.0, 1.0)
 

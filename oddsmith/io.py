@@ -13,6 +13,7 @@ import os
 import tempfile
 from pathlib import Path
 
+import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 import yaml
@@ -92,25 +93,95 @@ def read_json(path: str | Path):
 
 def write_parquet(path: str | Path, frame) -> None:
     """Write a DataFrame as Parquet with stable bytes (no index, fixed compression)."""
-    table = pa.Table.from_pandas(frame, preserve_index=False)
+    write_parquet_chunks(path, [frame])
+
+
+def write_parquet_chunks(path: str | Path, frames) -> None:
+    """Write DataFrames with the same columns as one Parquet file, one row group each.
+
+    Only one chunk is converted to Arrow at a time, so a large table can be written without
+    a second whole copy in memory. Atomic: a temporary file is renamed into place.
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
     os.close(fd)
+    writer = None
     try:
-        pq.write_table(table, tmp, compression="zstd", write_statistics=True)
+        for frame in frames:
+            table = pa.Table.from_pandas(frame, preserve_index=False)
+            if writer is None:
+                writer = pq.ParquetWriter(tmp, table.schema, compression="zstd", write_statistics=True)
+            writer.write_table(table)
+        if writer is None:
+            raise ValueError(f"no data to write to {path}")
+        writer.close()
         os.replace(tmp, path)
     except BaseException:
+        if writer is not None:
+            writer.close()
         Path(tmp).unlink(missing_ok=True)
         raise
 
 
-def read_parquet(path: str | Path, columns=None):
-    """Read a Parquet artifact into pandas; a missing file raises ArtifactError naming it."""
+def read_parquet(path: str | Path, columns=None, rows=None):
+    """Read a Parquet artifact into pandas; a missing file raises ArtifactError naming it.
+
+    ``rows``, a boolean mask with one value per row of the file, keeps only those rows. The
+    file is read, filtered and converted one column at a time, so the peak memory stays near
+    one copy of the result (a whole-table read holds the Arrow table, the filtered table and
+    the frame at once). The result has a fresh 0..n-1 index.
+    """
+    import pandas as pd
+
     path = Path(path)
     if not path.is_file():
         raise ArtifactError(f"required artifact not found: {path}")
-    return pq.read_table(path, columns=columns).to_pandas()
+    parquet = pq.ParquetFile(path)
+    names = list(parquet.schema_arrow.names) if columns is None else list(columns)
+    missing = [c for c in names if c not in parquet.schema_arrow.names]
+    if missing:
+        raise ArtifactError(f"{path} has no columns {missing}")
+    mask = None if rows is None else pa.array(rows, type=pa.bool_())
+    if mask is not None and len(mask) != parquet.metadata.num_rows:
+        raise ValueError(f"rows has {len(mask)} values, {path} has {parquet.metadata.num_rows} rows")
+    pieces = {}
+    for name in names:
+        table = parquet.read(columns=[name])
+        if mask is not None:
+            table = table.filter(mask)
+        pieces[name] = table.to_pandas(self_destruct=True)[name]
+    if not pieces:
+        n = parquet.metadata.num_rows if mask is None else int(np.count_nonzero(rows))
+        return pd.DataFrame(index=pd.RangeIndex(n))
+    return pd.DataFrame(pieces, copy=False)
+
+
+def parquet_columns(path: str | Path) -> list[str]:
+    """Column names of a Parquet artifact, from its footer (no data is read)."""
+    path = Path(path)
+    if not path.is_file():
+        raise ArtifactError(f"required artifact not found: {path}")
+    return list(pq.ParquetFile(path).schema_arrow.names)
+
+
+def read_parquet_matrix(path: str | Path, columns: list[str]):
+    """Read numeric columns of a Parquet artifact into one C-ordered float64 array.
+
+    Columns are read one at a time, so the peak memory is the array plus one column (a
+    whole-table read would hold the Arrow table and the array together).
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise ArtifactError(f"required artifact not found: {path}")
+    parquet = pq.ParquetFile(path)
+    missing = [c for c in columns if c not in parquet.schema_arrow.names]
+    if missing:
+        raise ArtifactError(f"{path} has no columns {missing}")
+    out = np.empty((parquet.metadata.num_rows, len(columns)), dtype=np.float64)
+    for j, column in enumerate(columns):
+        out[:, j] = parquet.read(columns=[column]).column(0).to_numpy()
+    return out
 
 
 def read_yaml(path: str | Path, *, what: str, error=ArtifactError):

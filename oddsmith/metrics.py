@@ -136,19 +136,44 @@ def brier(y, p) -> float:
 # calibration
 
 
-def _glm_binomial(y: np.ndarray, exog: np.ndarray, offset: np.ndarray | None):
-    import statsmodels.api as sm
-    from statsmodels.tools.sm_exceptions import PerfectSeparationWarning
+def _calibration_slope_fit(y: np.ndarray, lp: np.ndarray) -> float:
+    """Slope b of ``logit P(y=1) = a + b·lp`` by maximum likelihood (row-blocked Newton)."""
+    from oddsmith import solvers
 
-    with warnings.catch_warnings():
-        warnings.simplefilter("error", PerfectSeparationWarning)
-        try:
-            model = sm.GLM(y, exog, family=sm.families.Binomial(), offset=offset)
-            return model.fit()
-        except PerfectSeparationWarning as exc:
-            raise OddsmithError(f"calibration fit failed: perfect separation ({exc})") from exc
-        except np.linalg.LinAlgError as exc:
-            raise OddsmithError(f"calibration fit failed: {exc}") from exc
+    rate = float(np.clip(y.mean(), 1e-12, 1 - 1e-12))
+    start = np.array([math.log(rate) - math.log1p(-rate), 0.0])
+    fit = solvers.newton_ml("logit", np.ascontiguousarray(lp[:, None]), y.astype(float), None, start,
+                            max_iter=100)
+    if not fit["converged"]:
+        raise OddsmithError(f"calibration fit failed: {'; '.join(fit['trouble'])}")
+    return float(fit["params"][1])
+
+
+def _calibration_in_the_large(y: np.ndarray, lp: np.ndarray) -> float:
+    """Constant a of ``logit P(y=1) = a + lp`` (offset lp): the root of sum(y - expit(a + lp)).
+
+    The score is strictly decreasing in a, so Newton's method with step halving on |score|
+    converges from a = 0.
+    """
+    from scipy.special import expit
+
+    def score(a: float) -> tuple[float, float]:
+        q = expit(a + lp)
+        return float(np.sum(y - q)), float(np.sum(q * (1.0 - q)))
+
+    a, (g, h) = 0.0, score(0.0)
+    for _ in range(200):
+        if h <= 0.0:
+            break
+        step = g / h
+        trial, (g_t, h_t) = a + step, score(a + step)
+        while abs(g_t) > abs(g) and abs(step) > 1e-15:
+            step /= 2.0
+            trial, (g_t, h_t) = a + step, score(a + step)
+        a, g, h = trial, g_t, h_t
+        if abs(step) <= 1e-12 * max(1.0, abs(a)):
+            return a
+    raise OddsmithError("calibration fit failed: calibration-in-the-large did not converge")
 
 
 def calibration_intercept_slope(y, p) -> dict:
@@ -179,10 +204,7 @@ def calibration_intercept_slope(y, p) -> dict:
         raise OddsmithError(
             f"calibration slope is undefined: every prediction equals {float(p[0])!r}"
         )
-    ones = np.ones((y.shape[0], 1))
-    slope_fit = _glm_binomial(y, np.column_stack([ones, lp]), None)
-    intercept_fit = _glm_binomial(y, ones, lp)
-    return {"intercept": float(intercept_fit.params[0]), "slope": float(slope_fit.params[1])}
+    return {"intercept": _calibration_in_the_large(y, lp), "slope": _calibration_slope_fit(y, lp)}
 
 
 def _tie_aware_boundaries(p_sorted: np.ndarray, groups: int) -> np.ndarray:

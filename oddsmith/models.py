@@ -3,27 +3,22 @@
 Seven kinds of candidate are supported:
 
 - ``baseline``: intercept only; every row gets the training event rate.
-- ``logit``, ``probit``, ``cloglog``: unpenalised maximum likelihood (statsmodels, Newton's
-  method), with a coefficient table of Wald statistics and average marginal effects.
-- ``l1``, ``l2``, ``elastic_net``: penalised logistic regression (scikit-learn). The inverse
-  penalty strength ``C`` is chosen by stratified inner cross-validation on the rows given,
-  by mean log loss, and the model is refitted on all of those rows.
+- ``logit``, ``probit``, ``cloglog``: unpenalised maximum likelihood by Newton's method with
+  the observed Hessian, with a coefficient table of Wald statistics and average marginal
+  effects (delta method).
+- ``l1``, ``l2``, ``elastic_net``: penalised logistic regression minimising scikit-learn's
+  objective ``C * sum(log loss) + l1_ratio * |b|_1 + (1 - l1_ratio) / 2 * |b|_2^2`` with an
+  unpenalised intercept, by proximal Newton. The inverse penalty strength ``C`` is chosen
+  by stratified inner cross-validation on the rows given, by mean log loss, and the model
+  is refitted on all of those rows along the same warm-started path.
 
-Solvers of the penalised kinds. All minimise scikit-learn's objective
-``C * sum(log loss) + l1_ratio * |b|_1 + (1 - l1_ratio) / 2 * |b|_2^2`` with an unpenalised
-intercept. ``l2`` uses scikit-learn's Newton-Cholesky solver throughout. For ``l1`` and
-``elastic_net`` the inner cross-validation, which is most of the work (inner folds × grid
-fits per call), runs a proximal Newton method (``_proximal_newton_path``): each step forms
-the gradient and the (columns + 1)² Hessian in one blocked pass over the rows, solves the
-penalised quadratic model by coordinate descent on that small matrix, and backtracks on the
-exact objective; each C starts from the solution at the previous, stronger penalty. It
-reaches the optimum to ~1e-10 in 3–6 steps per C, where saga at its default tolerance stops
-~1e-4 away after ~17 passes over the rows; on 60,000 × 36 the whole seven-value path takes
-about a third of the time of one saga fit, and the cost grows linearly in rows. The model that
-is reported (the fit at the chosen C on all the given rows) is still scikit-learn's saga
-estimator, started from the proximal Newton solution, so ``penalty["solver"]`` stays
-``"saga"`` and the estimates are those of the library. The inner folds are built from the
-rows given only (the outer fold's rows are never seen), exactly as before.
+Both solvers live in :mod:`oddsmith.solvers`; they visit the rows in blocks, so a fit on the
+training rows of one fold (``fit_design(..., rows=...)``) never copies those rows, and one
+fit job holds a single copy of its design. The tests check them against the reference
+libraries: estimates, standard errors, log-likelihoods and marginal effects against
+statsmodels (``Logit``, ``Probit``, ``GLM`` with the complementary log-log link, and the
+printed tables of Greene and ISLR), penalised fits and inner-CV losses against
+scikit-learn's ``LogisticRegression``.
 
 A fitted model keeps only its link, intercept and named coefficients; predictions are
 recomputed from those numbers through the inverse link, never through a library object, so
@@ -49,11 +44,9 @@ from importlib.metadata import PackageNotFoundError, version
 import numpy as np
 import pandas as pd
 import scipy.linalg
-import scipy.optimize
-import scipy.sparse
 import scipy.special
-import scipy.stats
 
+from oddsmith import solvers
 from oddsmith.errors import ArtifactError, FitError, SeparationWarning
 
 KINDS = ("baseline", "logit", "probit", "cloglog", "l1", "l2", "elastic_net")
@@ -62,6 +55,8 @@ PENALISED_KINDS = ("l1", "l2", "elastic_net")
 LINKS = ("logit", "probit", "cloglog")
 MODEL_FORMAT = "oddsmith-model/1"
 INTERCEPT_TERM = "intercept"
+# Recorded in a penalised model's ``penalty`` as the solver of its fits.
+SOLVER = "proximal Newton (oddsmith.solvers)"
 
 # Common practice: the default grid of scikit-learn's LogisticRegressionCV (Cs=10),
 # ten inverse strengths C log-spaced from 1e-4 to 1e4.
@@ -80,7 +75,7 @@ _OPTION_KEYS = {
     "elastic_net": {"grid", "inner_folds", "l1_ratio", "max_iter"},
 }
 _LINK_OF_KIND = {"probit": "probit", "cloglog": "cloglog"}
-_LIBRARIES = ("numpy", "scipy", "pandas", "statsmodels", "scikit-learn")
+_LIBRARIES = ("numpy", "scipy", "pandas", "scikit-learn")
 # Fitted probabilities this close to 0 or 1 are reported in the model's warnings.
 _EXTREME_PROBABILITY = 1e-15
 
@@ -106,13 +101,11 @@ class FittedModel:
         Penalised kinds: ``C`` (chosen inverse strength), ``l1_ratio``, ``grid`` (inverse
         strengths tried, ascending), ``inner_folds``, ``inner_cv_log_loss`` (mean over inner
         folds, one per grid value), ``inner_cv_converged`` (whether every inner fit at
-        that C converged; only those C are eligible), ``seed``, ``solver`` (of the
-        reported fit) and ``inner_cv_solver``.
+        that C converged; only those C are eligible), ``seed`` (of the inner folds),
+        ``solver`` (of the reported fit) and ``inner_cv_solver``.
     coef_table : list of dict
         Baseline and ML kinds: one row per term, see ``COEF_TABLE_KEYS``.
     warnings : list of str
-    library_result : object
-        The library's own fitted object, kept for checks; never serialised.
     """
 
     kind: str
@@ -128,7 +121,6 @@ class FittedModel:
     coef_table: list[dict] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
     library_versions: dict[str, str] = field(default_factory=dict)
-    library_result: object = field(default=None, repr=False, compare=False)
 
     def linear_predictor(self, X: pd.DataFrame) -> np.ndarray:
         """Return the linear predictor ``intercept + X @ coefficients`` for each row."""
@@ -319,7 +311,6 @@ def _library_versions() -> dict[str, str]:
 # Fitting: entry point and input checks
 # --------------------------------------------------------------------------------------
 
-
 def fit_candidate(X: pd.DataFrame, y, *, kind: str, options: dict | None = None,
                   seed: int = 0) -> FittedModel:
     """Fit one candidate model to a design matrix and a 0/1 outcome.
@@ -337,10 +328,11 @@ def fit_candidate(X: pd.DataFrame, y, *, kind: str, options: dict | None = None,
     options : dict, optional
         ML kinds: ``max_iter`` (Newton iterations, default 100). Penalised kinds:
         ``grid`` (inverse penalty strengths C as in scikit-learn: smaller is stronger;
-        default ``DEFAULT_GRID``), ``inner_folds`` (default 3), ``max_iter`` (default 1000)
-        and, for ``elastic_net`` only, ``l1_ratio`` (default 0.5, strictly between 0 and 1).
+        default ``DEFAULT_GRID``), ``inner_folds`` (default 3), ``max_iter`` (Newton
+        iterations per C, default 1000) and, for ``elastic_net`` only, ``l1_ratio``
+        (default 0.5, strictly between 0 and 1).
     seed : int, default 0
-        Seeds the inner folds and the stochastic solver of penalised kinds.
+        Seeds the inner folds of penalised kinds.
 
     Returns
     -------
@@ -359,13 +351,56 @@ def fit_candidate(X: pd.DataFrame, y, *, kind: str, options: dict | None = None,
     if kind not in KINDS:
         raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
     values, names = _design_values(X)
-    outcome = _outcome_values(y, n_rows=values.shape[0])
-    settings = _settings(kind, options, seed=seed, outcome=outcome)
+    return fit_design(values, names, y, kind=kind, options=options, seed=seed)
+
+
+def fit_design(values: np.ndarray, names: list[str], y, *, kind: str, rows=None,
+               options: dict | None = None, seed: int = 0) -> FittedModel:
+    """``fit_candidate`` on rows ``rows`` of a design array, without copying those rows.
+
+    Parameters
+    ----------
+    values : numpy.ndarray
+        float64, rows × ``len(names)``, C-ordered (otherwise copied once); finite over
+        ``rows``.
+    names : list of str
+        Column names of ``values``.
+    y : array_like of int
+        Outcome, 0 or 1, one per row of ``values`` (all rows, not only ``rows``).
+    rows : array_like of int, optional
+        The rows to fit on (e.g. the training rows of one fold); all rows by default.
+    kind, options, seed
+        As for :func:`fit_candidate`.
+    """
+    if kind not in KINDS:
+        raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
+    values = np.ascontiguousarray(values, dtype=np.float64)
+    if values.ndim != 2 or values.shape[1] != len(names):
+        raise ValueError(f"values must be 2-d with {len(names)} columns (one per name), "
+                         f"got shape {values.shape}")
+    if values.shape[0] == 0:
+        raise ValueError("X has no rows")
+    if rows is not None:
+        rows = np.asarray(rows, dtype=np.intp)
+        if rows.ndim != 1 or rows.size == 0:
+            raise ValueError("rows must be a non-empty 1-d array of row positions")
+    bad = [n for n, ok in zip(names, solvers.all_finite(values, rows)) if not ok]
+    if bad:
+        raise ValueError(f"X has missing or non-finite values in columns {bad}")
+    outcome = np.asarray(y)
+    if outcome.ndim != 1 or outcome.shape[0] != values.shape[0]:
+        raise ValueError(f"y must be 1-d with {values.shape[0]} values (one per row of X), "
+                         f"got shape {outcome.shape}")
+    used = _outcome_values(outcome if rows is None else outcome[rows],
+                           n_rows=values.shape[0] if rows is None else rows.size)
+    settings = _settings(kind, options, seed=seed, outcome=used)
     if kind == "baseline":
-        return _fit_baseline(names, outcome)
+        return _fit_baseline(list(names), used)
+    outcome = outcome.astype(np.float64)
     if kind in ML_KINDS:
-        return _fit_maximum_likelihood(values, outcome, names, kind=kind, **settings)
-    return _fit_penalised(values, outcome, names, kind=kind, **settings)
+        return _fit_maximum_likelihood(values, outcome, rows, list(names), used, kind=kind,
+                                       **settings)
+    return _fit_penalised(values, outcome, rows, list(names), used, kind=kind, **settings)
 
 
 def _design_values(X: pd.DataFrame) -> tuple[np.ndarray, list[str]]:
@@ -384,10 +419,7 @@ def _design_values(X: pd.DataFrame) -> tuple[np.ndarray, list[str]]:
                                             and not pd.api.types.is_bool_dtype(X[n]))]
     if non_numeric:
         raise ValueError(f"X columns must be numeric, not numeric: {non_numeric}")
-    values = X.to_numpy(dtype=float)
-    bad = [n for n, ok in zip(names, np.isfinite(values).all(axis=0)) if not ok]
-    if bad:
-        raise ValueError(f"X has missing or non-finite values in columns {bad}")
+    values = np.ascontiguousarray(X.to_numpy(dtype=float))
     if values.shape[0] == 0:
         raise ValueError("X has no rows")
     return values, names
@@ -493,12 +525,12 @@ def _fit_baseline(names: list[str], outcome: np.ndarray) -> FittedModel:
 def _table_row(term: str, estimate: float, std_error: float, *, link: str,
                ame: tuple[float, float] | None) -> dict:
     z = estimate / std_error
-    half_width = scipy.stats.norm.ppf(0.975) * std_error
+    half_width = scipy.special.ndtri(0.975) * std_error  # the normal 97.5% quantile
     low, high = estimate - half_width, estimate + half_width
     is_logit = link == "logit"
     return {
         "term": term, "estimate": float(estimate), "std_error": float(std_error),
-        "z": float(z), "p_value": float(2.0 * scipy.stats.norm.sf(abs(z))),
+        "z": float(z), "p_value": float(2.0 * scipy.special.ndtr(-abs(z))),
         "ci_low": float(low), "ci_high": float(high),
         "odds_ratio": math.exp(estimate) if is_logit else None,
         "or_ci_low": math.exp(low) if is_logit else None,
@@ -508,113 +540,76 @@ def _table_row(term: str, estimate: float, std_error: float, *, link: str,
     }
 
 
+
 # --------------------------------------------------------------------------------------
 # Maximum likelihood kinds
 # --------------------------------------------------------------------------------------
 
 
-def _fit_maximum_likelihood(values: np.ndarray, outcome: np.ndarray, names: list[str], *,
-                            kind: str, max_iter: int) -> FittedModel:
-    _raise_if_singular(values, names, kind=kind)
-    _raise_if_single_column_separation(values, outcome, names, kind=kind)
-    exog = np.column_stack([np.ones(values.shape[0]), values])
-    result, trouble = _statsmodels_fit(exog, outcome, kind=kind, max_iter=max_iter)
-    if trouble:
+def _fit_maximum_likelihood(values: np.ndarray, outcome: np.ndarray, rows, names: list[str],
+                            used: np.ndarray, *, kind: str, max_iter: int) -> FittedModel:
+    """Newton's method on the row blocks (``solvers.newton_ml``); ``used`` = outcome[rows]."""
+    link = _LINK_OF_KIND.get(kind, "logit")
+    low, high = solvers.column_ranges(values, outcome, rows)
+    _raise_if_singular(values, rows, names, low["all"] == high["all"], kind=kind)
+    separating = _separators_from_ranges(low, high, names)
+    if separating:
+        raise FitError(_separation_message(kind, separating, single=True))
+    fit = solvers.newton_ml(link, values, outcome, rows, _start(link, used, values.shape[1] + 1), max_iter=max_iter)
+    if fit["trouble"]:
         # Separation always shows as non-convergence (the coefficients keep growing), so the
         # exact (and slower) linear-programming check runs only when something went wrong.
-        separating = _separating_columns(values, outcome, names)
+        subset = values if rows is None else values[rows]
+        separating = _separating_columns(subset, used, names)
         if separating:
             raise FitError(_separation_message(kind, separating, single=False))
-        if result is None or not _finite_fit(result):
-            raise FitError(f"{kind} fit failed: {'; '.join(trouble)}")
-        if not result.mle_retvals.get("converged", False):
+        if not fit["converged"]:
             raise FitError(f"{kind} fit did not converge in max_iter={max_iter} Newton "
-                           f"iterations ({'; '.join(trouble)})")
-    notes = [f"fit converged despite: {t}" for t in trouble] + _boundary_note(result, exog,
-                                                                              kind=kind)
-    return _ml_model(result, outcome, names, kind=kind, notes=notes)
-
-
-def _statsmodels_fit(exog: np.ndarray, outcome: np.ndarray, *, kind: str,
-                     max_iter: int) -> tuple[object, list[str]]:
-    """Fit with Newton's method; return the result and a list of signs of trouble."""
-    import statsmodels.api as sm
-
-    if kind == "logit":
-        model = sm.Logit(outcome, exog)
-    elif kind == "probit":
-        model = sm.Probit(outcome, exog)
-    else:
-        family = sm.families.Binomial(link=sm.families.links.CLogLog())
-        model = sm.GLM(outcome, exog, family=family)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            fit_options = {"start_params": _cloglog_start(exog, outcome)} if kind == "cloglog" else {"disp": 0}
-            result = model.fit(method="newton", maxiter=max_iter, **fit_options)
-        except (np.linalg.LinAlgError, ValueError, OverflowError) as exc:
-            return None, [f"{type(exc).__name__}: {exc}"]
-    # Overflow inside the library's exp() is harmless on its own; it is not a sign.
-    trouble = sorted({f"{w.category.__name__}: {w.message}" for w in caught
-                      if not issubclass(w.category, RuntimeWarning)})
-    if not result.mle_retvals.get("converged", False):
-        trouble.append("Newton iterations did not converge")
-    if not _finite_fit(result):
-        trouble.append("non-finite estimates or standard errors")
-    return result, trouble
-
-
-def _cloglog_start(exog: np.ndarray, outcome: np.ndarray) -> np.ndarray:
-    """Start Newton at the intercept-only maximum: cloglog(event rate), slopes 0.
-
-    Without start values statsmodels runs IRLS iterations first (``max_start_irls``); on
-    1M x 30 rows that took 8.5 s and 2.3 GB against 1.7 s and 0.8 GB from this start, with
-    the same estimates (the cloglog log-likelihood is concave, so Newton converges from here).
-    Column 0 of ``exog`` is the constant.
-    """
-    rate = float(np.clip(outcome.mean(), 1e-12, 1 - 1e-12))
-    start = np.zeros(exog.shape[1])
-    start[0] = np.log(-np.log1p(-rate))
-    return start
-
-
-def _boundary_note(result, exog: np.ndarray, *, kind: str) -> list[str]:
-    fitted = inverse_link(_LINK_OF_KIND.get(kind, "logit"), exog @ result.params)
-    at_edge = int(np.sum((fitted < _EXTREME_PROBABILITY) | (fitted > 1 - _EXTREME_PROBABILITY)))
-    if not at_edge:
-        return []
-    return [f"{at_edge} fitted probabilities within {_EXTREME_PROBABILITY:g} of 0 or 1"]
-
-
-def _finite_fit(result) -> bool:
-    return bool(np.all(np.isfinite(result.params)) and np.all(np.isfinite(result.bse)))
-
-
-def _ml_model(result, outcome: np.ndarray, names: list[str], *, kind: str,
-              notes: list[str]) -> FittedModel:
-    link = _LINK_OF_KIND.get(kind, "logit")
-    params = np.asarray(result.params, dtype=float)
+                           f"iterations ({'; '.join(fit['trouble'])})")
+    params, cov = fit["params"], fit["cov"]
+    notes = _boundary_note(values, rows, params, link=link)
+    n, density_sum, slope_sum = solvers.marginal_effect_sums(link, values, rows, params)
+    ame, ame_se = _ame_from_sums(params, cov, n, density_sum, slope_sum)
+    bse = np.sqrt(np.diag(cov))
+    table = [_table_row(INTERCEPT_TERM, params[0], bse[0], link=link, ame=None)]
+    table += [_table_row(name, params[j + 1], bse[j + 1], link=link, ame=(ame[j], ame_se[j]))
+              for j, name in enumerate(names)]
     return FittedModel(
         kind=kind, link=link, feature_names=list(names), intercept=float(params[0]),
         coefficients={name: float(b) for name, b in zip(names, params[1:])},
-        converged=bool(result.mle_retvals.get("converged", False)), n_obs=int(outcome.size),
-        n_events=int(outcome.sum()), log_likelihood=float(result.llf),
-        coef_table=_coef_table(result, names, link=link), warnings=notes,
-        library_versions=_library_versions(), library_result=result,
+        converged=True, n_obs=int(used.size), n_events=int(used.sum()),
+        log_likelihood=float(fit["llf"]), coef_table=table, warnings=notes,
+        library_versions=_library_versions(),
     )
 
 
-def _coef_table(result, names: list[str], *, link: str) -> list[dict]:
-    """Wald table (estimates, standard errors, 95% intervals) with average marginal effects."""
-    params = np.asarray(result.params, dtype=float)
-    bse = np.asarray(result.bse, dtype=float)
-    exog = np.asarray(result.model.exog, dtype=float)
-    ame, ame_se = average_marginal_effects(link, params, np.asarray(result.cov_params()), exog)
-    rows = [_table_row(INTERCEPT_TERM, params[0], bse[0], link=link, ame=None)]
-    for j, name in enumerate(names):
-        rows.append(_table_row(name, params[j + 1], bse[j + 1], link=link,
-                               ame=(ame[j], ame_se[j])))
-    return rows
+def _start(link: str, outcome: np.ndarray, size: int) -> np.ndarray:
+    """Start Newton at the intercept-only maximum: link(event rate), slopes 0.
+
+    The three log-likelihoods are concave, so Newton with step halving converges from here;
+    on 1M × 30 rows a cloglog fit from this start took 1.7 s against 8.5 s after the
+    reference library's default start iterations, with the same estimates.
+    """
+    rate = float(np.clip(outcome.mean(), 1e-12, 1 - 1e-12))
+    if link == "logit":
+        intercept = math.log(rate) - math.log1p(-rate)
+    elif link == "probit":
+        intercept = float(scipy.special.ndtri(rate))
+    else:
+        intercept = math.log(-math.log1p(-rate))
+    start = np.zeros(size)
+    start[0] = intercept
+    return start
+
+
+def _boundary_note(values: np.ndarray, rows, params: np.ndarray, *, link: str) -> list[str]:
+    at_edge = 0
+    for block, _ in solvers.blocks(values, None, rows):
+        fitted = inverse_link(link, params[0] + block @ params[1:])
+        at_edge += int(np.sum((fitted < _EXTREME_PROBABILITY) | (fitted > 1 - _EXTREME_PROBABILITY)))
+    if not at_edge:
+        return []
+    return [f"{at_edge} fitted probabilities within {_EXTREME_PROBABILITY:g} of 0 or 1"]
 
 
 def average_marginal_effects(link: str, params, cov, exog) -> tuple[np.ndarray, np.ndarray]:
@@ -636,32 +631,21 @@ def average_marginal_effects(link: str, params, cov, exog) -> tuple[np.ndarray, 
         One value per feature (the intercept has none). Each feature is treated as
         continuous: AME_j = b_j * mean(f(eta)), f the derivative of the inverse link.
     """
-    params, cov, exog = (np.asarray(a, dtype=float) for a in (params, cov, exog))
-    density, slope = _link_derivatives(link, exog @ params)
-    mean_density = density.mean()
+    params, cov = np.asarray(params, dtype=float), np.asarray(cov, dtype=float)
+    values = np.ascontiguousarray(np.asarray(exog, dtype=float)[:, 1:])
+    sums = solvers.marginal_effect_sums(link, values, None, params)
+    return _ame_from_sums(params, cov, *sums)
+
+
+def _ame_from_sums(params: np.ndarray, cov: np.ndarray, n: int, density_sum: float,
+                   slope_sum: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    mean_density = density_sum / n
     ame = params[1:] * mean_density
     # d AME_j / d b_k = [j == k] mean(f) + b_j mean(f'(eta) x_k)
-    jacobian = np.outer(params[1:], (slope[:, None] * exog).mean(axis=0))
+    jacobian = np.outer(params[1:], slope_sum / n)
     jacobian[:, 1:] += mean_density * np.eye(params.size - 1)
     variance = np.einsum("jk,kl,jl->j", jacobian, cov, jacobian)
     return ame, np.sqrt(np.maximum(variance, 0.0))
-
-
-def _link_derivatives(link: str, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """First and second derivatives of the inverse link with respect to eta."""
-    if link == "logit":
-        p = scipy.special.expit(eta)
-        density = p * (1.0 - p)
-        return density, density * (1.0 - 2.0 * p)
-    if link == "probit":
-        density = scipy.stats.norm.pdf(eta)
-        return density, -eta * density
-    if link == "cloglog":
-        with np.errstate(over="ignore"):
-            exp_eta = np.exp(eta)
-            density = np.exp(eta - exp_eta)
-        return density, np.where(density > 0, density * (1.0 - exp_eta), 0.0)
-    raise ValueError(f"link must be one of {LINKS}, got {link!r}")
 
 
 # --------------------------------------------------------------------------------------
@@ -669,18 +653,20 @@ def _link_derivatives(link: str, eta: np.ndarray) -> tuple[np.ndarray, np.ndarra
 # --------------------------------------------------------------------------------------
 
 
-def _raise_if_singular(values: np.ndarray, names: list[str], *, kind: str) -> None:
+def _raise_if_singular(values: np.ndarray, rows, names: list[str], constant: np.ndarray, *,
+                       kind: str) -> None:
     """Raise FitError naming linearly dependent columns of [intercept, X]."""
-    constant = values.min(axis=0) == values.max(axis=0)
     problems = [f"column {name!r} is constant (collinear with the intercept)"
                 for name, c in zip(names, constant) if c]
-    kept = [name for name, c in zip(names, constant) if not c]
-    labels = [INTERCEPT_TERM] + kept
-    exog = np.column_stack([np.ones(values.shape[0]), values[:, ~constant]])
-    unit = exog / np.linalg.norm(exog, axis=0)
-    eigen = np.linalg.eigvalsh(unit.T @ unit)
+    keep = np.r_[0, 1 + np.flatnonzero(~constant)]
+    cross = solvers.gram(values, rows)[np.ix_(keep, keep)]
+    norms = np.sqrt(np.diag(cross))
+    eigen = np.linalg.eigvalsh(cross / np.outer(norms, norms))  # Gram of unit-norm columns
     if eigen[0] <= 1e-10 * eigen[-1]:  # condition number of X above 1e5: look closer
-        problems += _dependent_sets(unit, labels)
+        subset = (values if rows is None else values[rows])[:, ~constant]
+        exog = np.column_stack([np.ones(subset.shape[0]), subset])
+        labels = [INTERCEPT_TERM] + [n for n, c in zip(names, constant) if not c]
+        problems += _dependent_sets(exog / norms, labels)
     if problems:
         raise FitError(f"{kind}: singular design (columns are linearly dependent)",
                        problems=problems)
@@ -703,22 +689,17 @@ def _dependent_sets(unit: np.ndarray, labels: list[str]) -> list[str]:
     return problems
 
 
-def _single_column_separators(values: np.ndarray, outcome: np.ndarray,
-                              names: list[str]) -> list[str]:
+def _separators_from_ranges(low: dict, high: dict, names: list[str]) -> list[str]:
     """Columns for which one threshold puts every event on one side (ties allowed)."""
-    events, others = values[outcome == 1], values[outcome == 0]
-    low_events, high_events = events.min(axis=0), events.max(axis=0)
-    low_others, high_others = others.min(axis=0), others.max(axis=0)
-    constant = values.min(axis=0) == values.max(axis=0)
-    separates = (high_others <= low_events) | (high_events <= low_others)
+    constant = low["all"] == high["all"]
+    separates = (high[0] <= low[1]) | (high[1] <= low[0])
     return [name for name, s, c in zip(names, separates, constant) if s and not c]
 
 
-def _raise_if_single_column_separation(values: np.ndarray, outcome: np.ndarray,
-                                       names: list[str], *, kind: str) -> None:
-    separating = _single_column_separators(values, outcome, names)
-    if separating:
-        raise FitError(_separation_message(kind, separating, single=True))
+def _single_column_separators(values: np.ndarray, outcome: np.ndarray,
+                              names: list[str]) -> list[str]:
+    low, high = solvers.column_ranges(np.ascontiguousarray(values), outcome, None)
+    return _separators_from_ranges(low, high, names)
 
 
 def _separation_message(kind: str, columns: list[str], *, single: bool) -> str:
@@ -761,6 +742,10 @@ def _lp_direction(signed: np.ndarray, p: int) -> np.ndarray | None:
     n = signed.shape[0]
     # Variables: b (p + 1, free), t (p, t_j >= |b_j|). Minimise sum t.
     cost = np.concatenate([np.zeros(p + 1), np.ones(p)])
+    # Imported here: only a fit in trouble gets this far (scipy.optimize is a heavy import).
+    import scipy.optimize
+    import scipy.sparse
+
     rows_data = scipy.sparse.hstack([scipy.sparse.csr_matrix(-signed),
                                      scipy.sparse.csr_matrix((n, p))])
     eye = scipy.sparse.identity(p, format="csr")
@@ -777,48 +762,45 @@ def _lp_direction(signed: np.ndarray, p: int) -> np.ndarray | None:
 
 
 # --------------------------------------------------------------------------------------
+
+
+# --------------------------------------------------------------------------------------
 # Penalised kinds
 # --------------------------------------------------------------------------------------
 
 
-def _fit_penalised(values: np.ndarray, outcome: np.ndarray, names: list[str], *, kind: str,
-                   grid: list[float], inner_folds: int, l1_ratio: float, max_iter: int,
-                   seed: int) -> FittedModel:
-    notes = _penalised_notes(values, outcome, names)
-    if l1_ratio > 0.0:
-        # One C-ordered copy serves the proximal Newton passes and saga (which would
-        # otherwise make its own).
-        values = np.ascontiguousarray(values)
-    losses, converged = _inner_cv_log_loss(values, outcome, grid=grid, inner_folds=inner_folds,
-                                           l1_ratio=l1_ratio, max_iter=max_iter, seed=seed)
+def _fit_penalised(values: np.ndarray, outcome: np.ndarray, rows, names: list[str],
+                   used: np.ndarray, *, kind: str, grid: list[float], inner_folds: int,
+                   l1_ratio: float, max_iter: int, seed: int) -> FittedModel:
+    """Proximal Newton (``solvers.proximal_newton_path``) on the row blocks."""
+    low, high = solvers.column_ranges(values, outcome, rows)
+    notes = _penalised_notes(_separators_from_ranges(low, high, names))
+    losses, converged = _inner_cv_log_loss(values, outcome, rows, used, grid=grid,
+                                           inner_folds=inner_folds, l1_ratio=l1_ratio,
+                                           max_iter=max_iter, seed=seed)
     chosen = _choose_C(grid, losses, converged, kind=kind, max_iter=max_iter)
     # Refit along the same warm-started path as the inner folds, up to the chosen C: a
     # cold start at a weak penalty can stall when the classes are (nearly) separated.
-    # With an L1 part, saga then starts from the proximal Newton solution at that C.
     path = grid[: grid.index(chosen) + 1]
-    estimator, caught = _fit_path(values, outcome, path, l1_ratio=l1_ratio, max_iter=max_iter,
-                                  seed=seed)
-    if int(np.max(estimator.n_iter_)) >= max_iter:
+    coef, ok = solvers.proximal_newton_path(values, outcome, path, rows=rows,
+                                            l1_ratio=l1_ratio, max_iter=max_iter)[-1]
+    if not ok:
         raise FitError(f"{kind} refit with C={chosen!r} did not converge in "
-                       f"max_iter={max_iter} iterations; raise max_iter or check that X "
-                       "is standardised")
+                       f"max_iter={max_iter} Newton iterations; raise max_iter or check that "
+                       "X is standardised")
     skipped = [c for c, ok in zip(grid, converged) if not ok]
     if skipped:
         notes.append(f"C values {skipped} were not eligible: some inner-fold fits did not "
                      f"converge in max_iter={max_iter} iterations")
-    notes += sorted({f"{w.category.__name__}: {w.message}" for w in caught})
     penalty = {"C": chosen, "l1_ratio": l1_ratio, "grid": list(grid),
                "inner_folds": inner_folds, "inner_cv_log_loss": [float(v) for v in losses],
                "inner_cv_converged": [bool(ok) for ok in converged], "seed": seed,
-               "solver": estimator.solver,
-               "inner_cv_solver": "proximal Newton" if l1_ratio > 0.0 else estimator.solver}
+               "solver": SOLVER, "inner_cv_solver": SOLVER}
     return FittedModel(
-        kind=kind, link="logit", feature_names=list(names),
-        intercept=float(estimator.intercept_[0]),
-        coefficients={name: float(b) for name, b in zip(names, estimator.coef_[0])},
-        converged=True, n_obs=int(outcome.size), n_events=int(outcome.sum()),
+        kind=kind, link="logit", feature_names=list(names), intercept=float(coef[0]),
+        coefficients={name: float(b) for name, b in zip(names, coef[1:])},
+        converged=True, n_obs=int(used.size), n_events=int(used.sum()),
         penalty=penalty, warnings=notes, library_versions=_library_versions(),
-        library_result=estimator,
     )
 
 
@@ -835,221 +817,38 @@ def _choose_C(grid: list[float], losses: np.ndarray, converged: np.ndarray, *, k
     return grid[int(np.argmin(eligible))]
 
 
-def _penalised_estimator(*, C: float, l1_ratio: float, max_iter: int, seed: int):
-    from sklearn.linear_model import LogisticRegression
-
-    # Pure L2 uses a Newton solver (fast when rows far outnumber columns, so a tight
-    # tolerance costs an iteration or two); any L1 part needs saga, kept at its default
-    # tolerance for speed. Neither solver penalises the intercept.
-    if l1_ratio == 0.0:
-        return LogisticRegression(C=C, l1_ratio=0.0, solver="newton-cholesky", tol=1e-8,
-                                  max_iter=max_iter, random_state=seed)
-    return LogisticRegression(C=C, l1_ratio=l1_ratio, solver="saga", max_iter=max_iter,
-                              random_state=seed)
-
-
-def _inner_cv_log_loss(values: np.ndarray, outcome: np.ndarray, *, grid: list[float],
-                       inner_folds: int, l1_ratio: float, max_iter: int,
+def _inner_cv_log_loss(values: np.ndarray, outcome: np.ndarray, rows, used: np.ndarray, *,
+                       grid: list[float], inner_folds: int, l1_ratio: float, max_iter: int,
                        seed: int) -> tuple[np.ndarray, np.ndarray]:
     """Mean validation log loss per C over stratified inner folds of the given rows.
 
     Returns the mean losses and, per C, whether the fits of every inner fold converged.
     Each fold walks the grid from the strongest to the weakest penalty, each fit starting
-    from the previous solution.
+    from the previous solution. The folds are scikit-learn's ``StratifiedKFold`` over the
+    given rows only, so the outer fold's held-out rows are never seen.
     """
-    from sklearn.metrics import log_loss
     from sklearn.model_selection import StratifiedKFold
 
+    base = np.arange(values.shape[0]) if rows is None else rows
     folds = StratifiedKFold(n_splits=inner_folds, shuffle=True, random_state=seed)
     losses = np.zeros((inner_folds, len(grid)))
     converged = np.ones(len(grid), dtype=bool)
-    for f, (train, valid) in enumerate(folds.split(values, outcome)):
-        if l1_ratio > 0.0:
-            fits = _proximal_newton_path(values, outcome, grid, rows=train, l1_ratio=l1_ratio,
-                                         max_iter=max_iter)
-            for k, (coef, ok) in enumerate(fits):
-                converged[k] &= ok
-                probabilities = scipy.special.expit(_blocked_linear_predictor(values, valid,
-                                                                              coef))
-                losses[f, k] = log_loss(outcome[valid], probabilities, labels=[0, 1])
-            continue
-        estimator = _penalised_estimator(C=grid[0], l1_ratio=l1_ratio, max_iter=max_iter,
-                                         seed=seed)
-        estimator.set_params(warm_start=True)
-        for k, c in enumerate(grid):
-            estimator.set_params(C=c)
-            with warnings.catch_warnings(record=True):
-                warnings.simplefilter("always")
-                estimator.fit(values[train], outcome[train])
-            converged[k] &= int(np.max(estimator.n_iter_)) < max_iter
-            probabilities = estimator.predict_proba(values[valid])[:, 1]
-            losses[f, k] = log_loss(outcome[valid], probabilities, labels=[0, 1])
+    for f, (train, valid) in enumerate(folds.split(np.zeros((used.size, 1)), used)):
+        fits = solvers.proximal_newton_path(values, outcome, grid, rows=base[train],
+                                            l1_ratio=l1_ratio, max_iter=max_iter)
+        for k, (coef, ok) in enumerate(fits):
+            converged[k] &= ok
+            # Mean log loss from the linear predictor: log(1 + e^eta) - y * eta, exact
+            # where probabilities would round to 0 or 1.
+            eta = solvers.linear_predictor(values, base[valid], coef)
+            losses[f, k] = float(np.mean(np.logaddexp(0.0, eta) - used[valid] * eta))
     return losses.mean(axis=0), converged
 
 
-def _fit_path(values: np.ndarray, outcome: np.ndarray, path: list[float], *, l1_ratio: float,
-              max_iter: int, seed: int):
-    """Fit at each C of ``path`` in turn, each fit starting from the previous solution.
-
-    With an L1 part the path is walked by proximal Newton and only the last C is fitted by
-    the library's saga solver, started from the proximal Newton solution.
-    Returns the estimator and the warnings raised by the last fit.
-    """
-    estimator = _penalised_estimator(C=path[0], l1_ratio=l1_ratio, max_iter=max_iter,
-                                     seed=seed)
-    estimator.set_params(warm_start=True)
-    if l1_ratio > 0.0:
-        coef, _ = _proximal_newton_path(values, outcome, path, rows=None, l1_ratio=l1_ratio,
-                                        max_iter=max_iter)[-1]
-        # A warm start is the estimator's own documented mechanism: fit() starts from
-        # coef_ and intercept_ when warm_start is set.
-        estimator.set_params(C=path[-1])
-        estimator.coef_, estimator.intercept_ = coef[None, 1:].copy(), coef[:1].copy()
-        path = path[-1:]
-    for c in path:
-        estimator.set_params(C=c)
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            estimator.fit(values, outcome)
-    return estimator, caught
-
-
-# Proximal Newton for L1 / elastic-net logistic regression (see the module docstring).
-# Rows are visited in blocks so that no copy of the design matrix (or of an inner fold of
-# it) is ever made; a block of 32,768 rows × 40 columns is 10 MB.
-_ROW_BLOCK = 32_768
-_NEWTON_TOL = 1e-9
-
-
-def _blocks(values: np.ndarray, outcome: np.ndarray | None, rows: np.ndarray | None):
-    """Yield (rows of ``values``, matching outcome) block by block; slices are views."""
-    n = values.shape[0] if rows is None else rows.size
-    for start in range(0, n, _ROW_BLOCK):
-        index = slice(start, start + _ROW_BLOCK) if rows is None else rows[start:start + _ROW_BLOCK]
-        yield values[index], (None if outcome is None else outcome[index])
-
-
-def _blocked_linear_predictor(values: np.ndarray, rows: np.ndarray | None,
-                              coef: np.ndarray) -> np.ndarray:
-    """``coef[0] + values[rows] @ coef[1:]`` without copying ``values[rows]`` whole."""
-    return np.concatenate([coef[0] + block @ coef[1:] for block, _ in _blocks(values, None, rows)])
-
-
-def _penalised_objective(values, outcome, rows, coef, *, C: float, l1_ratio: float) -> float:
-    """``C * sum(log loss) + l1_ratio * |w|_1 + (1 - l1_ratio)/2 * |w|^2`` (w: no intercept)."""
-    loss = 0.0
-    for block, y in _blocks(values, outcome, rows):
-        eta = coef[0] + block @ coef[1:]
-        loss += float(np.sum(np.logaddexp(0.0, eta) - y * eta))
-    return C * loss + _penalty_value(coef, l1_ratio)
-
-
-def _penalty_value(coef: np.ndarray, l1_ratio: float) -> float:
-    w = coef[1:]
-    return float(l1_ratio * np.abs(w).sum() + 0.5 * (1.0 - l1_ratio) * (w @ w))
-
-
-def _gradient_hessian(values, outcome, rows, coef, *, C: float):
-    """Gradient and Hessian of ``C * sum(log loss)`` at ``coef`` (intercept first)."""
-    size = coef.size
-    gradient, hessian = np.zeros(size), np.zeros((size, size))
-    for block, y in _blocks(values, outcome, rows):
-        p = scipy.special.expit(coef[0] + block @ coef[1:])
-        weight = p * (1.0 - p)
-        gradient[0] += np.sum(p - y)
-        gradient[1:] += block.T @ (p - y)
-        hessian[0, 0] += np.sum(weight)
-        hessian[0, 1:] += block.T @ weight
-        hessian[1:, 1:] += block.T @ (block * weight[:, None])
-    hessian[1:, 0] = hessian[0, 1:]
-    return C * gradient, C * hessian
-
-
-def _newton_direction(gradient: np.ndarray, hessian: np.ndarray, coef: np.ndarray, *,
-                      l1_ratio: float, sweeps: int = 1000) -> np.ndarray:
-    """Minimise the penalised quadratic model over the step d by cyclic coordinate descent.
-
-    Model: g'd + d'Hd/2 + l1_ratio |w + d_w|_1 + (1 - l1_ratio)/2 |w + d_w|^2; the
-    intercept (index 0) is not penalised.
-    """
-    step, h_step = np.zeros(coef.size), np.zeros(coef.size)
-    diagonal = np.diag(hessian).copy()
-    limit = 1e-12 * max(1.0, float(np.max(np.abs(coef))))
-    for _ in range(sweeps):
-        largest = 0.0
-        for j in range(coef.size):
-            if j == 0:
-                if diagonal[0] <= 0.0:
-                    continue
-                new = step[0] - (gradient[0] + h_step[0]) / diagonal[0]
-            else:
-                slope = gradient[j] + h_step[j] - diagonal[j] * step[j]
-                scale = diagonal[j] + (1.0 - l1_ratio)
-                centre = diagonal[j] * coef[j] - slope
-                shrunk = math.copysign(max(abs(centre) - l1_ratio, 0.0), centre)
-                new = (shrunk / scale if scale > 0.0 else 0.0) - coef[j]
-            change = new - step[j]
-            if change != 0.0:
-                h_step += change * hessian[:, j]
-                step[j] = new
-                largest = max(largest, abs(change))
-        if largest <= limit:
-            break
-    return step
-
-
-def _proximal_newton(values, outcome, rows, start: np.ndarray, *, C: float, l1_ratio: float,
-                     max_iter: int) -> tuple[np.ndarray, bool]:
-    """Penalised logistic fit at one C from ``start``; returns (coef, converged)."""
-    coef = start.copy()
-    objective = _penalised_objective(values, outcome, rows, coef, C=C, l1_ratio=l1_ratio)
-    for _ in range(max_iter):
-        gradient, hessian = _gradient_hessian(values, outcome, rows, coef, C=C)
-        step = _newton_direction(gradient, hessian, coef, l1_ratio=l1_ratio)
-        scale = max(1.0, float(np.max(np.abs(coef))))
-        decrease = float(gradient @ step) + _penalty_value(coef + step, l1_ratio) \
-            - _penalty_value(coef, l1_ratio)
-        if np.max(np.abs(step)) <= _NEWTON_TOL * scale or decrease >= 0.0:
-            return coef, True
-        length = 1.0
-        for _ in range(50):  # backtracking (Armijo) on the exact objective
-            trial = coef + length * step
-            value = _penalised_objective(values, outcome, rows, trial, C=C, l1_ratio=l1_ratio)
-            if value <= objective + 1e-4 * length * decrease:
-                break
-            length *= 0.5
-        else:
-            # No decrease at any length: at the optimum up to rounding, or stuck.
-            return coef, abs(decrease) <= 1e-10 * max(1.0, abs(objective))
-        coef, objective = trial, value
-        if length * np.max(np.abs(step)) <= _NEWTON_TOL * scale:
-            return coef, True
-    return coef, False
-
-
-def _proximal_newton_path(values, outcome, grid: list[float], *, rows, l1_ratio: float,
-                          max_iter: int) -> list[tuple[np.ndarray, bool]]:
-    """Fits along ``grid`` (ascending C), each started from the previous solution.
-
-    Returns one ``(coef, converged)`` per C, ``coef`` = [intercept, coefficients...].
-    """
-    outcome = outcome.astype(float)
-    # Row blocks of a C-ordered matrix are contiguous (views, or fast gathers by row).
-    values = np.ascontiguousarray(values)
-    coef = np.zeros(values.shape[1] + 1)
-    fits = []
-    for c in grid:
-        coef, ok = _proximal_newton(values, outcome, rows, coef, C=c, l1_ratio=l1_ratio,
-                                    max_iter=max_iter)
-        fits.append((coef, ok))
-    return fits
-
-
-def _penalised_notes(values: np.ndarray, outcome: np.ndarray, names: list[str]) -> list[str]:
-    separating = _single_column_separators(values, outcome, names)
+def _penalised_notes(separating: list[str]) -> list[str]:
     if not separating:
         return []
     message = (f"separation by {separating}: unpenalised estimates would diverge; the "
                "penalty keeps these coefficients finite")
-    warnings.warn(message, SeparationWarning, stacklevel=4)
+    warnings.warn(message, SeparationWarning, stacklevel=5)
     return [message]

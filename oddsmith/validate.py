@@ -12,7 +12,7 @@ import pandas as pd
 
 from oddsmith.contract import load_contract, read_raw, validate_frame
 from oddsmith.errors import ContractError
-from oddsmith.io import sha256_file, write_bytes_atomic, write_json, write_parquet, write_text
+from oddsmith.io import sha256_file, write_bytes_atomic, write_json, write_parquet_chunks, write_text
 
 log = logging.getLogger("oddsmith.validate")
 
@@ -108,6 +108,10 @@ def quality_profile(df: pd.DataFrame, *, id_column: str, target: str, n_paramete
     }
 
 
+# Rows per row group of the validated Parquet snapshot.
+PARQUET_CHUNK_ROWS = 131_072
+
+
 def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: str, out_report: str, out_summary: str,
                  out_contract: str | None = None) -> dict:
     """Check the raw data against contract and config; write the snapshot, report, summary,
@@ -134,13 +138,15 @@ def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: 
     report["source"] = {"path": str(data_path), "sha256": sha256_file(data_path), "contract": str(contract_path),
                         "contract_sha256": sha256_file(contract_path)}
     report["ignored_columns"] = [c for c in raw.columns if c not in contract["columns"]]
+    del raw  # the all-text copy of the file: the largest object here
     report["target_encoding"] = f"{data['target']} = 1 where the raw value is {data['positive_label']!r}, else 0"
     if data["date_column"]:
         dates = df[data["date_column"]]
         report["date_range"] = [dates.min().date().isoformat(), dates.max().date().isoformat()]
     for w in report["warnings"]:
         log.warning(w)
-    write_parquet(out_data, df)
+    # Written in row groups: one piece at a time is converted to Arrow, not the whole frame.
+    write_parquet_chunks(out_data, (df.iloc[s:s + PARQUET_CHUNK_ROWS] for s in range(0, max(len(df), 1), PARQUET_CHUNK_ROWS)))
     write_json(out_report, report)
     write_text(out_summary, render_summary(report))
     if out_contract:

@@ -1,6 +1,6 @@
 rule fit:
     input:
-        data="results/{run}/validated/data.parquet",
+        design="results/{run}/features/train_design.parquet",
         assignment="results/{run}/split/assignment.parquet",
         recipe="results/{run}/features/recipe.json",
     output:
@@ -19,11 +19,12 @@ rule fit:
         runtime=RES["runtime"],
     params:
         candidate=lambda wc: candidate_settings(wc.candidate),
-        target=CONFIG["data"]["target"],
+        data={k: CONFIG["data"][k] for k in ("id_column", "target")},
         seed=CONFIG["cross_validation"]["seed"],
         code=code(
             "stages/fit",
             "models",
+            "solvers",
             "metrics",
             "recipe",
             "split",

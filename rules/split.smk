@@ -30,6 +30,7 @@ rule features:
     output:
         recipe="results/{run}/features/recipe.json",
         diagnostics="results/{run}/features/diagnostics.json",
+        design="results/{run}/features/train_design.parquet",
         stamp="results/{run}/provenance/features.json",
     log:
         "logs/{run}/features.log",
@@ -43,6 +44,7 @@ rule features:
         features=CONFIG["features"],
         interactions=CONFIG["interactions"],
         target=CONFIG["data"]["target"],
+        id_column=CONFIG["data"]["id_column"],
         diagnostics=CONFIG["diagnostics"],
         code=code(
             "stages/features", "recipe", "diagnostics", script="scripts/features.py"

@@ -1,29 +1,57 @@
-"""The features stage: learn the feature recipe on the training part only, then write the
-design diagnostics (parameters, events per parameter, correlations, VIF, leakage screen)."""
+"""The features stage: learn the feature recipe on the training part only, write the design
+diagnostics (parameters, events per parameter, correlations, VIF, leakage screen) and the
+training design matrix every fit job reads (so the recipe is applied once, not per job)."""
 
 from __future__ import annotations
 
 import logging
 
+import numpy as np
+import pandas as pd
+
 from oddsmith.diagnostics import design_diagnostics
-from oddsmith.io import read_parquet, write_json
+from oddsmith.io import read_parquet, write_json, write_parquet_chunks
 from oddsmith.recipe import apply_recipe, dump_recipe, learn_recipe
 
 log = logging.getLogger("oddsmith.features")
 
 
+# Rows per piece when the design is built and written: memory stays at one design matrix
+# plus one piece, whatever the number of rows.
+CHUNK_ROWS = 131_072
+
+
+def _design(recipe: dict, train: pd.DataFrame) -> pd.DataFrame:
+    """The unstandardised design of the training rows, built piece by piece into one array."""
+    columns = recipe["columns"]
+    values = np.empty((len(train), len(columns)), order="F")
+    for s in range(0, len(train), CHUNK_ROWS):
+        piece, _ = apply_recipe(recipe, train.iloc[s:s + CHUNK_ROWS], standardise=False)
+        values[s:s + CHUNK_ROWS] = piece.to_numpy()
+    return pd.DataFrame(values, columns=columns, index=train.index, copy=False)
+
+
 def run_features(*, data_path: str, assignment_path: str, features: list, interactions: list, target: str,
-                 diagnostics: dict, out_recipe: str, out_diagnostics: str) -> dict:
-    """Learn the recipe from training rows; diagnose the full training design matrix."""
-    df = read_parquet(data_path)
-    assignment = read_parquet(assignment_path)
-    train = df.loc[(assignment["part"] == "train").to_numpy()]
-    recipe = learn_recipe(train, features=features, interactions=interactions, target=target)
-    X, _ = apply_recipe(recipe, train, standardise=False)
+                 id_column: str, diagnostics: dict, out_recipe: str, out_diagnostics: str, out_design: str) -> dict:
+    """Learn the recipe from training rows; diagnose and write the training design matrix.
+
+    The design file holds the id and target columns, then every design column (not
+    standardised), one row per training row in data order.
+    """
     names = [f["name"] for f in features]
-    report = design_diagnostics(X, train[target].to_numpy(), raw_train=train[names], features=features, **diagnostics)
+    is_train = (read_parquet(assignment_path, columns=["part"])["part"] == "train").to_numpy()
+    train = read_parquet(data_path, columns=list(dict.fromkeys([id_column, target, *names])), rows=is_train)
+    recipe = learn_recipe(train, features=features, interactions=interactions, target=target)
+    X = _design(recipe, train)
+    y = train[target].to_numpy().astype(int)
+    report = design_diagnostics(X, y, raw_train=train[names], features=features, **diagnostics)
     for warning in report.get("warnings", []):
         log.warning(warning)
     dump_recipe(recipe, out_recipe)
     write_json(out_diagnostics, report)
+    ids = train[id_column]
+    write_parquet_chunks(out_design, (
+        pd.concat([pd.DataFrame({id_column: ids.iloc[s:s + CHUNK_ROWS].to_numpy(), target: y[s:s + CHUNK_ROWS]}),
+                   X.iloc[s:s + CHUNK_ROWS].reset_index(drop=True)], axis=1)
+        for s in range(0, max(len(X), 1), CHUNK_ROWS)))
     return report

@@ -9,28 +9,46 @@ import logging
 import numpy as np
 import pandas as pd
 
-from oddsmith import metrics
-from oddsmith.errors import FitError
-from oddsmith.io import read_parquet, sha256_file, write_json, write_parquet
-from oddsmith.models import PENALISED_KINDS, fit_candidate
-from oddsmith.recipe import apply_recipe, design_columns, load_recipe
+from oddsmith import metrics, solvers
+from oddsmith.errors import ArtifactError, FitError
+from oddsmith.io import read_parquet, read_parquet_matrix, sha256_file, write_json, write_parquet
+from oddsmith.models import PENALISED_KINDS, fit_design, inverse_link
+from oddsmith.recipe import design_columns, load_recipe
 from oddsmith.split import fold_columns
 
 log = logging.getLogger("oddsmith.fit")
 OPTION_KEYS = ("grid", "inner_folds", "l1_ratio", "max_iter")
 
 
-def training_design(*, data_path: str, assignment_path: str, recipe_path: str, candidate: dict, target: str):
-    """Design matrix, outcome, ids and fold columns of the training part for one candidate."""
-    df = read_parquet(data_path)
-    assignment = read_parquet(assignment_path)
-    train = (assignment["part"] == "train").to_numpy()
+def training_design(*, design_path: str, assignment_path: str, recipe_path: str, candidate: dict, id_column: str,
+                    target: str):
+    """The candidate's training design as one C-ordered float64 array, plus names, outcome, ids, folds, recipe.
+
+    The array is the only copy of the design the job holds: folds are row index arrays into
+    it, never copies. Penalised kinds get the recipe's standardisation, applied in place.
+    """
     recipe = load_recipe(recipe_path)
-    standardise = candidate["kind"] in PENALISED_KINDS
-    X, _ = apply_recipe(recipe, df.loc[train], standardise=standardise)
-    X = X[design_columns(recipe, candidate.get("features"))] if candidate["kind"] != "baseline" else X.iloc[:, :0]
-    folds = assignment.loc[train, [c for c in assignment.columns if c.startswith("fold")]]
-    return X.reset_index(drop=True), df.loc[train, target].to_numpy().astype(int), assignment.loc[train, "id"], folds, recipe
+    names = [] if candidate["kind"] == "baseline" else design_columns(recipe, candidate.get("features"))
+    values = read_parquet_matrix(design_path, names)
+    if candidate["kind"] in PENALISED_KINDS:
+        values -= np.array([recipe["means"][c] for c in names], dtype=np.float64)
+        values /= np.array([recipe["sds"][c] for c in names], dtype=np.float64)
+    head = read_parquet(design_path, columns=[id_column, target])
+    assignment = read_parquet(assignment_path)
+    train = assignment.loc[(assignment["part"] == "train").to_numpy()].reset_index(drop=True)
+    del assignment
+    # Compared as Arrow strings: no Python object per id.
+    if not _as_arrow_text(train["id"]).equals(_as_arrow_text(head[id_column])):
+        raise ArtifactError(f"{design_path} and {assignment_path} disagree on the training rows; "
+                            "rebuild the features stage")
+    folds = train[[c for c in train.columns if c.startswith("fold")]]
+    return values, names, head[target].to_numpy().astype(int), train["id"], folds, recipe
+
+
+def _as_arrow_text(ids: pd.Series):
+    import pyarrow as pa
+
+    return pa.chunked_array([pa.Array.from_pandas(ids)]).cast(pa.string()).combine_chunks()
 
 
 def _options(candidate: dict) -> dict:
@@ -46,7 +64,8 @@ def _options(candidate: dict) -> dict:
     return options
 
 
-def cross_validate(X: pd.DataFrame, y: np.ndarray, folds: pd.DataFrame, *, kind: str, options: dict, seed: int):
+def cross_validate(values: np.ndarray, names: list[str], y: np.ndarray, folds: pd.DataFrame, *, kind: str,
+                   options: dict, seed: int):
     """Out-of-fold predictions (one column per repeat) and per-fold metrics."""
     oof, per_fold = {}, []
     for repeat, column in enumerate(fold_columns(folds.shape[1]), start=1):
@@ -54,9 +73,11 @@ def cross_validate(X: pd.DataFrame, y: np.ndarray, folds: pd.DataFrame, *, kind:
         p = np.full(len(y), np.nan)
         for k in np.unique(fold):
             valid = fold == k
-            model = fit_candidate(X.loc[~valid], y[~valid], kind=kind, options=options, seed=seed + k)
-            p[valid] = model.predict(X.loc[valid])
-            row = {"repeat": repeat, "fold": int(k), "n_train": int((~valid).sum())} | metrics.summarise(y[valid], p[valid])
+            fit_rows, valid_rows = np.flatnonzero(~valid), np.flatnonzero(valid)
+            model = fit_design(values, names, y, rows=fit_rows, kind=kind, options=options, seed=seed + k)
+            coef = np.r_[model.intercept, [model.coefficients[n] for n in names]]
+            p[valid] = inverse_link(model.link, solvers.linear_predictor(values, valid_rows, coef))
+            row = {"repeat": repeat, "fold": int(k), "n_train": int(fit_rows.size)} | metrics.summarise(y[valid], p[valid])
             if model.penalty:
                 row["chosen_C"] = model.penalty.get("C")
             per_fold.append(row)
@@ -65,22 +86,23 @@ def cross_validate(X: pd.DataFrame, y: np.ndarray, folds: pd.DataFrame, *, kind:
     return oof, per_fold
 
 
-def run_fit(*, data_path: str, assignment_path: str, recipe_path: str, candidate: dict, target: str, seed: int,
-            out_model: str, out_cv: str, out_oof: str) -> dict:
+def run_fit(*, design_path: str, assignment_path: str, recipe_path: str, candidate: dict, id_column: str,
+            target: str, seed: int, out_model: str, out_cv: str, out_oof: str) -> dict:
     """Cross-validate and refit one candidate; write model JSON, CV results and OOF predictions."""
-    X, y, ids, folds, recipe = training_design(data_path=data_path, assignment_path=assignment_path,
-                                               recipe_path=recipe_path, candidate=candidate, target=target)
+    values, names, y, ids, folds, recipe = training_design(
+        design_path=design_path, assignment_path=assignment_path, recipe_path=recipe_path, candidate=candidate,
+        id_column=id_column, target=target)
     kind, options = candidate["kind"], _options(candidate)
-    header = {"candidate": candidate["name"], "kind": kind, "settings": candidate, "n_parameters": X.shape[1] + 1,
-              "recipe_sha256": sha256_file(recipe_path), "design_columns": list(X.columns)}
-    log.info("candidate %s (%s): %d rows, %d design columns", candidate["name"], kind, len(y), X.shape[1])
+    header = {"candidate": candidate["name"], "kind": kind, "settings": candidate, "n_parameters": len(names) + 1,
+              "recipe_sha256": sha256_file(recipe_path), "design_columns": list(names)}
+    log.info("candidate %s (%s): %d rows, %d design columns", candidate["name"], kind, len(y), len(names))
     try:
-        oof, per_fold = cross_validate(X, y, folds, kind=kind, options=options, seed=seed)
-        final = fit_candidate(X, y, kind=kind, options=options, seed=seed)
+        oof, per_fold = cross_validate(values, names, y, folds, kind=kind, options=options, seed=seed)
+        final = fit_design(values, names, y, kind=kind, options=options, seed=seed)
     except FitError as exc:
         log.warning("candidate %s failed: %s", candidate["name"], exc)
         failed = header | {"status": "failed", "reason": str(exc)}
-        write_parquet(out_oof, pd.DataFrame({"id": ids.to_numpy(), "y": y, "p": np.nan}))
+        write_parquet(out_oof, pd.DataFrame({"id": ids, "y": y, "p": np.nan}))
         write_json(out_model, failed)
         write_json(out_cv, failed | {"folds": [], "pooled": None})
         return failed
@@ -88,7 +110,7 @@ def run_fit(*, data_path: str, assignment_path: str, recipe_path: str, candidate
         "status": "ok", "standardise": kind in PENALISED_KINDS, "coef_table": final.coef_table, "warnings": final.warnings,
     }
     pooled = metrics.summarise(y, oof["p"])
-    write_parquet(out_oof, pd.DataFrame({"id": ids.to_numpy(), "y": y, **oof}))
+    write_parquet(out_oof, pd.DataFrame({"id": ids, "y": y, **oof}))
     write_json(out_model, model)
     write_json(out_cv, header | {"status": "ok", "folds": per_fold, "pooled": pooled, "warnings": final.warnings})
     log.info("candidate %s done: pooled out-of-fold log loss %.4f", candidate["name"], pooled["log_loss"])
