@@ -1,5 +1,5 @@
 # oddsmith workflow: validate → split → features → fit (one job per candidate) → compare
-# → threshold → evaluate → figures → manifest → card. See DEVELOPERS.md for the map.
+# → threshold → evaluate → apply_cutoff → figures → manifest → card. See DEVELOPERS.md for the map.
 from snakemake.utils import min_version
 
 min_version("9.0")

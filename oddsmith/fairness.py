@@ -19,6 +19,8 @@ from oddsmith.errors import OddsmithError
 from oddsmith.threshold import confusion_at
 
 FOUR_FIFTHS = Fraction(4, 5)
+#: Prefix of the test scores' columns that hold an attribute's group labels (as text).
+GROUP_COLUMN_PREFIX = "group:"
 _FAVOURABLE = ("not_flagged", "flagged")
 
 
@@ -122,26 +124,31 @@ def _group_labels(groups, n: int, attribute: str) -> np.ndarray:
     return series.astype(str).to_numpy()
 
 
-def _check_options(cutoff, min_group_size, favourable) -> None:
+def _check_cutoff(cutoff) -> None:
     if cutoff is not None and (
         isinstance(cutoff, bool) or not isinstance(cutoff, Real) or math.isnan(cutoff)
     ):
         raise OddsmithError(f"cutoff must be a number or None (flag none), got {cutoff!r}")
+
+
+def _check_min_group_size(min_group_size) -> None:
     if (
         isinstance(min_group_size, bool)
         or not isinstance(min_group_size, Integral)
         or min_group_size < 1
     ):
         raise OddsmithError(f"min_group_size must be a positive integer, got {min_group_size!r}")
+
+
+def _check_favourable(favourable) -> None:
     if favourable not in _FAVOURABLE:
         raise OddsmithError(f"favourable must be one of {list(_FAVOURABLE)}, got {favourable!r}")
 
 
-_NOISY = (
-    "base_rate",
-    "mean_predicted",
-    "auc",
-    "calibration_in_the_large",
+#: Per-group figures that do not depend on the cut-off.
+_PROBABILITY_KEYS = ("base_rate", "mean_predicted", "auc", "calibration_in_the_large")
+#: Per-group figures of the decision (flag when p >= cut-off) and the comparisons.
+_DECISION_KEYS = (
     "tpr",
     "fpr",
     "flag_rate",
@@ -156,26 +163,18 @@ _NOISY = (
 )
 
 
-def _group_row(label: str, y: np.ndarray, p: np.ndarray, cutoff, favourable: str, min_size: int):
-    """One row without the comparisons, plus the favourable count used for them."""
+def _group_summary(label: str, y: np.ndarray, p: np.ndarray, min_size: int) -> dict:
+    """One group's row without the decision figures."""
     n, events = int(y.shape[0]), int(y.sum())
     row = {"group": label, "n": n, "events": events, "too_small": n < min_size}
-    row |= dict.fromkeys(_NOISY)
+    row |= dict.fromkeys(_PROBABILITY_KEYS)
     row["notes"] = []
     if row["too_small"]:
         row["notes"].append(f"fewer than {min_size} rows; figures withheld as too noisy")
-        return row, None
-    confusion = confusion_at(y, p, cutoff)
-    flagged = confusion["tp"] + confusion["fp"]
-    favourable_count = n - flagged if favourable == "not_flagged" else flagged
+        return row
     row["base_rate"] = events / n
     row["mean_predicted"] = float(p.mean())
     row["calibration_in_the_large"] = row["mean_predicted"] - row["base_rate"]
-    row["tpr"] = confusion["sensitivity"]
-    specificity = confusion["specificity"]
-    row["fpr"] = None if specificity is None else 1.0 - specificity
-    row["flag_rate"] = confusion["flag_rate"]
-    row["favourable_rate"] = favourable_count / n
     if 0 < events < n:
         row["auc"] = metrics.auc(y, p)
     else:
@@ -184,6 +183,24 @@ def _group_row(label: str, y: np.ndarray, p: np.ndarray, cutoff, favourable: str
         row["notes"].append("no events; true-positive rate undefined")
     if events == n:
         row["notes"].append("no non-events; false-positive rate undefined")
+    return row
+
+
+def _group_decisions(summary: dict, y: np.ndarray, p: np.ndarray, cutoff, favourable: str):
+    """The summary row with the decision figures (without the comparisons), plus the
+    favourable count used for them (None for a group too small to assess)."""
+    row = dict(summary) | dict.fromkeys(_DECISION_KEYS)
+    row["notes"] = list(summary["notes"])
+    if row["too_small"]:
+        return row, None
+    confusion = confusion_at(y, p, cutoff)
+    flagged = confusion["tp"] + confusion["fp"]
+    favourable_count = row["n"] - flagged if favourable == "not_flagged" else flagged
+    row["tpr"] = confusion["sensitivity"]
+    specificity = confusion["specificity"]
+    row["fpr"] = None if specificity is None else 1.0 - specificity
+    row["flag_rate"] = confusion["flag_rate"]
+    row["favourable_rate"] = favourable_count / row["n"]
     return row, favourable_count
 
 
@@ -215,6 +232,79 @@ def _add_comparisons(rows: list[dict], favourable_counts: dict) -> None:
         row["fpr_gap"] = _gap(row["fpr"], reference["fpr"])
 
 
+def group_summaries(y, p, groups, *, min_group_size: int = 100, attribute: str | None = None) -> list[dict]:
+    """Per-group figures that do not depend on the cut-off: the first half of
+    :func:`subgroup_table`.
+
+    Returns
+    -------
+    list of dict
+        One per group, sorted by label as text, with keys ``group``, ``n``, ``events``,
+        ``too_small``, ``base_rate``, ``mean_predicted``, ``auc``,
+        ``calibration_in_the_large``, ``notes`` (see :func:`subgroup_table`).
+
+    Raises
+    ------
+    OddsmithError
+        If the attribute has a single group, has missing values, or an option is invalid.
+    """
+    y, p = metrics._validated(y, p)
+    _check_min_group_size(min_group_size)
+    labels, attribute = _labels_of(groups, y.shape[0], attribute)
+    distinct = sorted(set(labels.tolist()))
+    if len(distinct) == 1:
+        raise OddsmithError(
+            f"sensitive attribute '{attribute}' has a single group '{distinct[0]}'; "
+            "nothing to compare"
+        )
+    return [_group_summary(label, y[labels == label], p[labels == label], min_group_size)
+            for label in distinct]
+
+
+def add_decisions(
+    summaries: list[dict],
+    y,
+    p,
+    groups,
+    *,
+    cutoff,
+    favourable: str = "not_flagged",
+    attribute: str | None = None,
+) -> list[dict]:
+    """Complete :func:`group_summaries` rows with the decision at ``cutoff`` and the
+    comparisons between groups: the second half of :func:`subgroup_table`.
+
+    ``y``, ``p`` and ``groups`` must be the rows the summaries were made from; a group whose
+    label or counts differ from its summary raises. The summaries are not modified.
+
+    Raises
+    ------
+    OddsmithError
+        On a bad option or summaries that do not match the rows.
+    """
+    y, p = metrics._validated(y, p)
+    _check_cutoff(cutoff)
+    _check_favourable(favourable)
+    labels, attribute = _labels_of(groups, y.shape[0], attribute)
+    distinct = sorted(set(labels.tolist()))
+    found = [(s.get("group"), s.get("n"), s.get("events")) for s in summaries]
+    actual = [(g, int(np.sum(labels == g)), int(y[labels == g].sum())) for g in distinct]
+    if found != actual:
+        raise OddsmithError(
+            f"group summaries of '{attribute}' do not match the rows: the summaries have "
+            f"(group, n, events) {found[:5]}, the rows {actual[:5]}"
+        )
+    rows, favourable_counts = [], {}
+    for summary in summaries:
+        mask = labels == summary["group"]
+        row, count = _group_decisions(summary, y[mask], p[mask], cutoff, favourable)
+        rows.append(row)
+        if count is not None:
+            favourable_counts[row["group"]] = count
+    _add_comparisons(rows, favourable_counts)
+    return rows
+
+
 def subgroup_table(
     y,
     p,
@@ -241,6 +331,9 @@ def subgroup_table(
     ``min_group_size`` rows are ``too_small``: only ``n`` and ``events`` are given, the other
     figures are None, and they take no part in the comparisons.
 
+    The work is done in two halves, :func:`group_summaries` (independent of the cut-off) and
+    :func:`add_decisions`, so that a pipeline can keep the first when only the cut-off changes.
+
     Parameters
     ----------
     attribute : str, optional
@@ -261,23 +354,14 @@ def subgroup_table(
     OddsmithError
         If the attribute has a single group, has missing values, or an option is invalid.
     """
-    y, p = metrics._validated(y, p)
-    _check_options(cutoff, min_group_size, favourable)
+    _check_cutoff(cutoff)
+    _check_min_group_size(min_group_size)
+    _check_favourable(favourable)
+    summaries = group_summaries(y, p, groups, min_group_size=min_group_size, attribute=attribute)
+    return add_decisions(summaries, y, p, groups, cutoff=cutoff, favourable=favourable, attribute=attribute)
+
+
+def _labels_of(groups, n: int, attribute: str | None) -> tuple[np.ndarray, str]:
     if attribute is None:
         attribute = groups.name if isinstance(groups, pd.Series) and groups.name else "group"
-    labels = _group_labels(groups, y.shape[0], str(attribute))
-    distinct = sorted(set(labels.tolist()))
-    if len(distinct) == 1:
-        raise OddsmithError(
-            f"sensitive attribute '{attribute}' has a single group '{distinct[0]}'; "
-            "nothing to compare"
-        )
-    rows, favourable_counts = [], {}
-    for label in distinct:
-        mask = labels == label
-        row, count = _group_row(label, y[mask], p[mask], cutoff, favourable, min_group_size)
-        rows.append(row)
-        if count is not None:
-            favourable_counts[label] = count
-    _add_comparisons(rows, favourable_counts)
-    return rows
+    return _group_labels(groups, n, str(attribute)), str(attribute)

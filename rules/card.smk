@@ -1,15 +1,39 @@
 # The card's figures (SVG) and the model card itself (HTML + PDF + card.sha256).
-# Order: evaluate → figures → manifest → card; the card prints the manifest's SHA-256.
+# Order: evaluate → model_figures; apply_cutoff → figures; then manifest → card (the card
+# prints the manifest's SHA-256). The figures are split by what they depend on, so that a
+# change of costs redraws only the four that show the cut-off.
 from glob import glob
 
-FIGURES = [
-    "roc",
-    "reliability",
-    "cost_curve",
-    "coefficients",
-    "score_distribution",
-    "subgroups",
-]
+MODEL_FIGURES = ["reliability", "coefficients"]
+DECISION_FIGURES = ["roc", "cost_curve", "score_distribution", "subgroups"]
+FIGURES = DECISION_FIGURES + MODEL_FIGURES
+
+
+rule model_figures:
+    input:
+        probability_metrics="results/{run}/evaluation/probability_metrics.json",
+        selected="results/{run}/comparison/selected.json",
+        models=expand(
+            "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
+        ),
+    output:
+        reliability="results/{run}/figures/reliability.svg",
+        coefficients="results/{run}/figures/coefficients.svg",
+        stamp="results/{run}/provenance/model_figures.json",
+    log:
+        "logs/{run}/model_figures.log",
+    benchmark:
+        "benchmarks/{run}/model_figures.tsv"
+    threads: RES["threads"]
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
+    params:
+        candidates=CANDIDATES,
+        figures=MODEL_FIGURES,
+        code=code("stages/figures", "plots", script="scripts/model_figures.py"),
+    script:
+        "../scripts/model_figures.py"
 
 
 rule figures:
@@ -19,15 +43,9 @@ rule figures:
         subgroups="results/{run}/evaluation/subgroups.json",
         choice="results/{run}/threshold/choice.json",
         curve="results/{run}/threshold/cost_curve.parquet",
-        selected="results/{run}/comparison/selected.json",
-        models=expand(
-            "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
-        ),
     output:
         roc="results/{run}/figures/roc.svg",
-        reliability="results/{run}/figures/reliability.svg",
         cost_curve="results/{run}/figures/cost_curve.svg",
-        coefficients="results/{run}/figures/coefficients.svg",
         score_distribution="results/{run}/figures/score_distribution.svg",
         subgroups="results/{run}/figures/subgroups.svg",
         stamp="results/{run}/provenance/figures.json",
@@ -40,8 +58,7 @@ rule figures:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
     params:
-        candidates=CANDIDATES,
-        figures=FIGURES,
+        figures=DECISION_FIGURES,
         code=code("stages/figures", "plots", script="scripts/figures.py"),
     script:
         "../scripts/figures.py"

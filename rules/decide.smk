@@ -20,12 +20,19 @@ rule threshold:
         candidates=CANDIDATES,
         costs=CONFIG["costs"],
         code=code(
-            "stages/threshold", "threshold", "metrics", script="scripts/threshold.py"
+            "stages/threshold",
+            "threshold",
+            "metrics",
+            "solvers",
+            script="scripts/threshold.py",
         ),
     script:
         "../scripts/threshold.py"
 
 
+# The test part is scored once, by evaluate, which measures what does not depend on the
+# cut-off; apply_cutoff adds the decision figures. A change of costs reruns threshold and
+# apply_cutoff, not evaluate. Neither threshold nor compare reads an evaluation artifact.
 rule evaluate:
     input:
         data="results/{run}/validated/data.parquet",
@@ -35,11 +42,9 @@ rule evaluate:
         models=expand(
             "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
         ),
-        choice="results/{run}/threshold/choice.json",
     output:
-        metrics="results/{run}/evaluation/metrics.json",
-        subgroups="results/{run}/evaluation/subgroups.json",
-        predictions="results/{run}/evaluation/predictions.parquet",
+        scores="results/{run}/evaluation/scores.parquet",
+        probability_metrics="results/{run}/evaluation/probability_metrics.json",
         stamp="results/{run}/provenance/evaluate.json",
     log:
         "logs/{run}/evaluate.log",
@@ -63,8 +68,40 @@ rule evaluate:
             "predict",
             "models",
             "recipe",
+            "solvers",
             "threshold",
             script="scripts/evaluate.py",
         ),
     script:
         "../scripts/evaluate.py"
+
+
+rule apply_cutoff:
+    input:
+        scores="results/{run}/evaluation/scores.parquet",
+        probability_metrics="results/{run}/evaluation/probability_metrics.json",
+        choice="results/{run}/threshold/choice.json",
+    output:
+        metrics="results/{run}/evaluation/metrics.json",
+        subgroups="results/{run}/evaluation/subgroups.json",
+        predictions="results/{run}/evaluation/predictions.parquet",
+        stamp="results/{run}/provenance/apply_cutoff.json",
+    log:
+        "logs/{run}/apply_cutoff.log",
+    benchmark:
+        "benchmarks/{run}/apply_cutoff.tsv"
+    threads: RES["threads"]
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
+    params:
+        code=code(
+            "stages/apply_cutoff",
+            "fairness",
+            "threshold",
+            "metrics",
+            "solvers",
+            script="scripts/apply_cutoff.py",
+        ),
+    script:
+        "../scripts/apply_cutoff.py"

@@ -1,4 +1,4 @@
-"""Snakemake script of the figures rule: the card's plots as deterministic SVG."""
+"""Snakemake script of the figures rule: the card's plots that show the cut-off, as deterministic SVG."""
 
 from oddsmith.runner import stage
 from oddsmith.stages.figures import run_figures
@@ -6,5 +6,4 @@ from oddsmith.stages.figures import run_figures
 sm = snakemake  # noqa: F821 (provided by Snakemake)
 stage(sm, run_figures, predictions_path=sm.input.predictions, metrics_path=sm.input.metrics,
       subgroups_path=sm.input.subgroups, choice_path=sm.input.choice, curve_path=sm.input.curve,
-      selected_path=sm.input.selected, model_paths=dict(zip(sm.params.candidates, sm.input.models)),
       out={name: getattr(sm.output, name) for name in sm.params.figures})

@@ -206,3 +206,38 @@ def test_subgroup_table_rejects_bad_input(kwargs, message):
     groups = args.pop("groups")
     with pytest.raises(OddsmithError, match=message):
         fairness.subgroup_table([0, 1, 0], [0.2, 0.7, 0.4], groups, **args)
+
+
+# ------------------------------------------------------------------ the two halves
+
+
+def test_summaries_then_decisions_equal_the_whole_table():
+    """The pipeline keeps the cut-off-free half (evaluate) and adds the decision half
+    (apply_cutoff); together they give exactly the one-pass table, at every cut-off."""
+    rng = np.random.default_rng(8)
+    n = 2000
+    g = rng.choice(["a", "b", "c", "tiny"], size=n, p=[0.5, 0.3, 0.19, 0.01])
+    p = np.round(rng.beta(2, 5, size=n), 3)
+    y = (rng.random(n) < p).astype(int)
+    summaries = fairness.group_summaries(y, p, g, min_group_size=50, attribute="band")
+    assert [s["group"] for s in summaries] == ["a", "b", "c", "tiny"]
+    assert all("tpr" not in s and "adverse_impact_ratio" not in s for s in summaries)
+    frozen = json.dumps(summaries, sort_keys=True)
+    for cutoff in (None, 0.0, 0.2, 0.31, 0.9):
+        for favourable in ("not_flagged", "flagged"):
+            halves = fairness.add_decisions(json.loads(frozen), y, p, g, cutoff=cutoff, favourable=favourable)
+            whole = fairness.subgroup_table(y, p, g, cutoff=cutoff, min_group_size=50, favourable=favourable)
+            assert json.dumps(halves, sort_keys=True) == json.dumps(whole, sort_keys=True)
+    assert json.dumps(summaries, sort_keys=True) == frozen, "the summaries are not modified"
+
+
+def test_decisions_refuse_summaries_of_other_rows():
+    y, p, g = TOY["y"].to_numpy(), TOY["p"].to_numpy(), TOY["g"].to_numpy()
+    summaries = fairness.group_summaries(y, p, g, min_group_size=2, attribute="g")
+    with pytest.raises(OddsmithError, match=r"group summaries of 'g' do not match the rows.*\('A', 5, 2\)"):
+        fairness.add_decisions(summaries, y[1:], p[1:], g[1:], cutoff=0.5, attribute="g")
+    relabelled = np.where(g == "C", "D", g)
+    with pytest.raises(OddsmithError, match="do not match the rows"):
+        fairness.add_decisions(summaries, y, p, relabelled, cutoff=0.5, attribute="g")
+    with pytest.raises(OddsmithError, match="cutoff must be a number or None"):
+        fairness.add_decisions(summaries, y, p, g, cutoff="0.5", attribute="g")

@@ -15,6 +15,7 @@ import pytest
 from sklearn.metrics import roc_curve
 
 from oddsmith import plots
+from oddsmith.stages import figures
 
 HOSTILE = [
     "<script>alert(1)</script>",
@@ -130,20 +131,30 @@ def test_short_label_marks_the_cut():
     assert plots.short_label("  spaced\nlabel ") == "spaced label"
 
 
+def test_the_two_figure_rules_draw_every_figure_once():
+    assert sorted(figures.MODEL_FIGURES + figures.DECISION_FIGURES) == sorted(plots.FIGURE_NAMES)
+    with pytest.raises(ValueError, match=r"missing \['coefficients'\], unknown \['roc'\]"):
+        figures.run_model_figures(probability_metrics_path="unused", selected_path="unused", model_paths={},
+                                  out={"reliability": "a.svg", "roc": "b.svg"})
+
+
 @pytest.mark.e2e
 def test_figures_rebuild_byte_identical_in_another_process(demo_build, tmp_path):
-    """The figures stage, rerun in a fresh interpreter with another hash seed into another
-    folder, writes the same bytes as the workflow's figures rule."""
+    """The two figure stages, rerun in a fresh interpreter with another hash seed into another
+    folder, write the same bytes as the workflow's figure rules."""
     run = demo_build / "results" / "lease_demo"
     candidates = sorted(p.name for p in (run / "candidates").iterdir())
     script = f"""
-from oddsmith.stages.figures import run_figures
+from oddsmith.stages.figures import DECISION_FIGURES, MODEL_FIGURES, run_figures, run_model_figures
 run = {str(run)!r}
+out = {str(tmp_path)!r} + "/"
 run_figures(predictions_path=run + "/evaluation/predictions.parquet", metrics_path=run + "/evaluation/metrics.json",
             subgroups_path=run + "/evaluation/subgroups.json", choice_path=run + "/threshold/choice.json",
-            curve_path=run + "/threshold/cost_curve.parquet", selected_path=run + "/comparison/selected.json",
-            model_paths={{c: run + "/candidates/" + c + "/model.json" for c in {candidates!r}}},
-            out={{n: {str(tmp_path)!r} + "/" + n + ".svg" for n in {list(plots.FIGURE_NAMES)!r}}})
+            curve_path=run + "/threshold/cost_curve.parquet", out={{n: out + n + ".svg" for n in DECISION_FIGURES}})
+run_model_figures(probability_metrics_path=run + "/evaluation/probability_metrics.json",
+                  selected_path=run + "/comparison/selected.json",
+                  model_paths={{c: run + "/candidates/" + c + "/model.json" for c in {candidates!r}}},
+                  out={{n: out + n + ".svg" for n in MODEL_FIGURES}})
 """
     env = dict(os.environ, PYTHONHASHSEED="4242", SOURCE_DATE_EPOCH="1")
     subprocess.run([sys.executable, "-c", script], check=True, cwd=tmp_path, env=env, capture_output=True)

@@ -16,6 +16,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pandas as pd
 import pytest
 
 from conftest import ROOT, run_snakemake
@@ -23,9 +24,9 @@ from conftest import ROOT, run_snakemake
 RUN = "results/lease_demo"
 CANDIDATES = {"logit_main", "probit_main", "cloglog_main", "lasso", "ridge", "logit_compact", "baseline"}
 #: Every rule this matrix knows; a new rule fails the test until its row is added here.
-KNOWN = {"validate", "split", "features", "fit", "compare", "threshold", "evaluate", "figures", "score",
-         "manifest", "card"}
-#: Rules after evaluate, present or not depending on the workflow and the config.
+KNOWN = {"validate", "split", "features", "fit", "compare", "threshold", "evaluate", "apply_cutoff",
+         "model_figures", "figures", "score", "manifest", "card"}
+#: Rules after apply_cutoff, present or not depending on the workflow and the config.
 TAIL = {"figures", "score", "manifest", "card"}
 
 
@@ -101,7 +102,22 @@ def test_costs_rerun_threshold_and_what_follows(built, every_job, tmp_path):
     text = config.read_text()
     assert "false_positive: 1200" in text
     config.write_text(text.replace("false_positive: 1200", "false_positive: 1500"))
-    assert planned(project, *targets(project), env=env) == _tail(every_job, "threshold", "evaluate")
+    # the test part is not scored again (evaluate measures only what the cut-off does not
+    # change) and the figures that do not show the cut-off are not redrawn (model_figures)
+    assert planned(project, *targets(project), env=env) == _tail(every_job, "threshold", "apply_cutoff")
+
+
+@pytest.mark.e2e
+def test_new_test_scores_rerun_what_follows_them_and_never_the_choices(built, every_job, tmp_path):
+    """Selection and the cut-off are fixed without the test part: a changed test score reruns
+    apply_cutoff and what follows it, but neither compare nor threshold."""
+    project, env = _copy(built, tmp_path / "scores")
+    path = project / RUN / "evaluation" / "scores.parquet"
+    scores = pd.read_parquet(path)
+    scores.loc[0, "p"] = scores.loc[0, "p"] / 2  # new content (a touched file with the same bytes reruns nothing)
+    scores.to_parquet(path)
+    after = {"figures", "manifest", "card"} & every_job
+    assert planned(project, *targets(project), env=env) == {"apply_cutoff"} | after
 
 
 @pytest.mark.e2e
@@ -112,7 +128,8 @@ def test_one_candidates_grid_reruns_that_candidate_and_downstream(built, every_j
     old = "{name: lasso, kind: l1, grid: [0.003, 0.01, 0.03, 0.1, 0.3, 1.0]}"
     assert old in text
     config.write_text(text.replace(old, "{name: lasso, kind: l1, grid: [0.003, 0.01, 0.03, 0.1, 0.3, 1.0, 3.0]}"))
-    assert planned(project, *targets(project), env=env) == _tail(every_job, "fit[lasso]", "compare", "threshold", "evaluate")
+    rerun = _tail(every_job, "fit[lasso]", "compare", "threshold", "evaluate", "apply_cutoff", "model_figures")
+    assert planned(project, *targets(project), env=env) == rerun
 
 
 @pytest.mark.e2e

@@ -24,8 +24,8 @@ def test_every_stage_writes_its_artifacts(demo_build):
     for path in ("validated/data.parquet", "validated/report.json", "split/assignment.parquet",
                  "split/summary.json", "features/recipe.json", "features/diagnostics.json",
                  "comparison/table.json", "comparison/selected.json", "threshold/choice.json",
-                 "threshold/cost_curve.parquet", "evaluation/metrics.json", "evaluation/subgroups.json",
-                 "evaluation/predictions.parquet"):
+                 "threshold/cost_curve.parquet", "evaluation/scores.parquet", "evaluation/probability_metrics.json",
+                 "evaluation/metrics.json", "evaluation/subgroups.json", "evaluation/predictions.parquet"):
         assert (demo_build / RUN / path).is_file(), path
     cfg = yaml.safe_load((demo_build / "config" / "config.yaml").read_text())
     for c in [c["name"] for c in cfg["candidates"]] + ["baseline"]:

@@ -1,5 +1,10 @@
-"""The figures stage: draw the card's plots from the evaluation, threshold and model
-artifacts as deterministic SVG files. Reads artifacts only; estimates nothing."""
+"""The figure stages: draw the card's plots from the evaluation, threshold and model artifacts
+as deterministic SVG files. They read artifacts only and estimate nothing.
+
+Two rules share this module so that a change of costs redraws only what the cut-off changes:
+``model_figures`` draws the figures that do not depend on the cut-off (calibration and the
+model's terms), ``figures`` those that do (ROC with the operating point, cost curve, score
+distributions with the cut-off, subgroup ratios)."""
 
 from __future__ import annotations
 
@@ -9,40 +14,62 @@ from oddsmith import plots
 from oddsmith.io import read_json, read_parquet, write_bytes_atomic
 
 log = logging.getLogger("oddsmith.figures")
+#: Figures drawn by the ``model_figures`` rule: independent of the cut-off.
+MODEL_FIGURES = ("reliability", "coefficients")
+#: Figures drawn by the ``figures`` rule: they show the adopted cut-off or its consequences.
+DECISION_FIGURES = ("roc", "cost_curve", "score_distribution", "subgroups")
 
 
-def run_figures(*, predictions_path: str, metrics_path: str, subgroups_path: str, choice_path: str,
-                curve_path: str, selected_path: str, model_paths: dict, out: dict) -> dict:
-    """Write one SVG per name in :data:`oddsmith.plots.FIGURE_NAMES` to ``out[name]``.
+def _check_out(out: dict, names: tuple[str, ...]) -> None:
+    missing = [name for name in names if name not in out]
+    unknown = sorted(name for name in out if name not in names)
+    if missing or unknown:
+        raise ValueError(f"out must name a path for each of {list(names)}; missing {missing}, unknown {unknown}")
+
+
+def _write(out: dict, svgs: dict) -> dict:
+    for name, svg in svgs.items():
+        write_bytes_atomic(out[name], svg)
+        log.info("figure %s: %d bytes", name, len(svg))
+    return {name: len(svg) for name, svg in svgs.items()}
+
+
+def run_model_figures(*, probability_metrics_path: str, selected_path: str, model_paths: dict, out: dict) -> dict:
+    """Write the figures of :data:`MODEL_FIGURES` to ``out[name]``.
 
     ``model_paths`` maps candidate name → model.json; only the selected one is drawn.
     Returns {name: number of bytes written}.
     """
-    missing = [name for name in plots.FIGURE_NAMES if name not in out]
-    if missing:
-        raise ValueError(f"out must name a path for every figure; missing {missing}")
-    predictions = read_parquet(predictions_path, columns=["y", "p"])
-    metrics, choice = read_json(metrics_path), read_json(choice_path)
+    _check_out(out, MODEL_FIGURES)
     selected = read_json(selected_path)["candidate"]
     if selected not in model_paths:
         raise ValueError(f"selected candidate {selected!r} has no model path; known: {sorted(model_paths)}")
+    evaluation = read_json(probability_metrics_path)
+    return _write(out, {"reliability": plots.reliability_svg(evaluation["reliability"]),
+                        "coefficients": plots.coefficients_svg(read_json(model_paths[selected]))})
+
+
+def run_figures(*, predictions_path: str, metrics_path: str, subgroups_path: str, choice_path: str,
+                curve_path: str, out: dict) -> dict:
+    """Write the figures of :data:`DECISION_FIGURES` to ``out[name]``.
+
+    Returns {name: number of bytes written}.
+    """
+    _check_out(out, DECISION_FIGURES)
+    predictions = read_parquet(predictions_path, columns=["y", "p"])
+    metrics, choice = read_json(metrics_path), read_json(choice_path)
     y, p = predictions["y"].to_numpy(), predictions["p"].to_numpy()
     cutoff, confusion, auc = metrics["cutoff"], metrics["confusion"], metrics["auc_ci"]
     bootstrap = choice["bootstrap"]
     svgs = {
         "roc": plots.roc_svg(y, p, auc=auc["auc"], auc_low=auc["lower"], auc_high=auc["upper"], cutoff=cutoff,
                              operating_point=(1 - confusion["specificity"], confusion["sensitivity"])),
-        "reliability": plots.reliability_svg(metrics["reliability"]),
         "cost_curve": plots.cost_curve_svg(
             read_parquet(curve_path, columns=["cutoff", "expected_cost_per_case"]),
             adopted=choice["adopted_cutoff"], bayes=choice["bayes"]["cutoff"],
             interval=(bootstrap["cutoff_low"], bootstrap["cutoff_high"]),
             flag_none=choice["cost_per_1000"]["flag_none"] / 1000, flag_all=choice["cost_per_1000"]["flag_all"] / 1000),
-        "coefficients": plots.coefficients_svg(read_json(model_paths[selected])),
         "score_distribution": plots.score_distribution_svg(y, p, cutoff=cutoff),
         "subgroups": plots.subgroups_svg(read_json(subgroups_path)["attributes"]),
     }
-    for name, svg in svgs.items():
-        write_bytes_atomic(out[name], svg)
-        log.info("figure %s: %d bytes", name, len(svg))
-    return {name: len(svg) for name, svg in svgs.items()}
+    return _write(out, svgs)

@@ -1,0 +1,90 @@
+"""The apply_cutoff stage: the adopted cut-off applied to the test scores written by evaluate.
+The confusion matrix, a cut-off table, the realised cost, flag rates per period and the
+subgroup decision figures (error rates, adverse-impact ratios) join the cut-off-free metrics
+into the evaluation's metrics and subgroup files. Reads artifacts only; the test part itself
+is not read here, and nothing is fitted or scored."""
+
+from __future__ import annotations
+
+import logging
+
+import numpy as np
+import pandas as pd
+
+from oddsmith.errors import ArtifactError
+from oddsmith.fairness import GROUP_COLUMN_PREFIX, add_decisions
+from oddsmith.io import read_json, read_parquet, write_json, write_parquet
+from oddsmith.threshold import confusion_at, realised_cost_per_1000
+
+log = logging.getLogger("oddsmith.apply_cutoff")
+TABLE_CUTOFFS = (0.05, 0.10, 0.15, 0.20, 0.25, 0.30, 0.40, 0.50, 0.60, 0.70)
+SUBGROUP_RULE = ("adverse-impact ratio below 4/5 of the most favoured group's rate is flagged; exactly 4/5 is not "
+                 "(29 CFR 1607.4(D))")
+
+
+def flagged(p: np.ndarray, cutoff) -> np.ndarray:
+    """Flag when p >= cutoff; a cut-off of None means flag none."""
+    return np.zeros(p.shape, dtype=bool) if cutoff is None else p >= cutoff
+
+
+def _cutoff_table(y, p, choice: dict) -> list[dict]:
+    marks = {round(c, 6): "" for c in TABLE_CUTOFFS}
+    if choice["adopted_cutoff"] is not None:
+        marks[round(choice["adopted_cutoff"], 6)] = "adopted"
+    marks.setdefault(round(choice["bayes"]["cutoff"], 6), "Bayes")
+    rows = []
+    for cutoff in sorted(marks):
+        row = {"cutoff": cutoff, "mark": marks[cutoff]} | confusion_at(y, p, cutoff)
+        row["cost_per_1000"] = realised_cost_per_1000(y, p, cutoff, costs=choice["costs"])
+        rows.append(row)
+    return rows
+
+
+def _period_flag_rates(periods: list[dict], labels: np.ndarray, p: np.ndarray, cutoff) -> list[dict]:
+    found = sorted(set(labels.tolist()))
+    if [row["period"] for row in periods] != found:
+        raise ArtifactError("the scores' periods do not match the evaluation's",
+                            [f"evaluation: {[row['period'] for row in periods]}", f"scores: {found}"])
+    return [row | {"flag_rate": float(flagged(p[labels == row["period"]], cutoff).mean())} for row in periods]
+
+
+def _check_artifacts(scores: pd.DataFrame, evaluation: dict, choice: dict) -> None:
+    problems = []
+    if choice.get("candidate") != evaluation["candidate"]:
+        problems.append(f"threshold chosen for {choice.get('candidate')!r}, test part scored with "
+                        f"{evaluation['candidate']!r}")
+    if len(scores) != evaluation["n"]:
+        problems.append(f"scores have {len(scores)} rows, the evaluation counts {evaluation['n']}")
+    needed = ["id", "y", "p"] + (["period"] if evaluation["periods"] is not None else []) + [
+        GROUP_COLUMN_PREFIX + name for name in evaluation["subgroups"]["attributes"]]
+    problems += [f"scores lack column {name!r}" for name in needed if name not in scores.columns]
+    if problems:
+        raise ArtifactError("the test scores, their evaluation and the cut-off choice do not belong together",
+                            problems)
+
+
+def run_apply_cutoff(*, scores_path: str, probability_metrics_path: str, choice_path: str, out_metrics: str,
+                     out_subgroups: str, out_predictions: str) -> dict:
+    """Apply the adopted cut-off to the test scores; write metrics, subgroups and predictions."""
+    scores = read_parquet(scores_path)
+    evaluation, choice = read_json(probability_metrics_path), read_json(choice_path)
+    _check_artifacts(scores, evaluation, choice)
+    y, p = scores["y"].to_numpy().astype(int), scores["p"].to_numpy()
+    cutoff = choice["adopted_cutoff"]
+    subgroups = evaluation.pop("subgroups")
+    result = evaluation | {"cutoff": cutoff, "adopted": choice["adopted"], "confusion": confusion_at(y, p, cutoff),
+                           "cost_per_1000": realised_cost_per_1000(y, p, cutoff, costs=choice["costs"]),
+                           "cutoff_table": _cutoff_table(y, p, choice)}
+    if evaluation["periods"] is not None:
+        result["periods"] = _period_flag_rates(evaluation["periods"], scores["period"].to_numpy(), p, cutoff)
+    groups = {name: block | {"rows": add_decisions(block["rows"], y, p, scores[GROUP_COLUMN_PREFIX + name].to_numpy(),
+                                                   cutoff=cutoff, attribute=name)}
+              for name, block in subgroups["attributes"].items()}
+    log.info("cut-off %s on %d test rows: %d flagged", cutoff, len(y), int(flagged(p, cutoff).sum()))
+    predictions = pd.DataFrame({"id": scores["id"].to_numpy(), "y": y, "p": p,
+                                "flagged": flagged(p, cutoff).astype("int8")})
+    write_parquet(out_predictions, predictions)
+    write_json(out_metrics, result)
+    write_json(out_subgroups, {"min_group_size": subgroups["min_group_size"], "attributes": groups,
+                               "rule": SUBGROUP_RULE, "favourable_outcome": "not flagged for review"})
+    return result

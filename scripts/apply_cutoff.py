@@ -1,0 +1,9 @@
+"""Snakemake script of the apply_cutoff rule: the adopted cut-off applied to the test scores."""
+
+from oddsmith.runner import stage
+from oddsmith.stages.apply_cutoff import run_apply_cutoff
+
+sm = snakemake  # noqa: F821 (provided by Snakemake)
+stage(sm, run_apply_cutoff, scores_path=sm.input.scores, probability_metrics_path=sm.input.probability_metrics,
+      choice_path=sm.input.choice, out_metrics=sm.output.metrics, out_subgroups=sm.output.subgroups,
+      out_predictions=sm.output.predictions)
