@@ -150,20 +150,22 @@ def reliability_svg(bins: list[dict]) -> bytes:
         return _svg(fig)
 
 
-def cost_curve_svg(curve, *, adopted, bayes: float, interval: tuple[float, float], flag_none: float,
+def cost_curve_svg(curve, *, adopted, bayes: float, interval: tuple[float, float] | None, flag_none: float,
                    flag_all: float, cost_label: str = "expected cost per case") -> bytes:
     """Expected cost per case against the cut-off, with the chosen cut-offs marked.
 
     ``curve`` has columns ``cutoff`` and ``expected_cost_per_case``; ``adopted`` may be None
-    (flag none). ``flag_none`` and ``flag_all`` are costs per case of the two trivial rules.
+    (flag none). ``interval`` is the bootstrap interval of the cut-off, None when there is
+    none. ``flag_none`` and ``flag_all`` are costs per case of the two trivial rules.
     """
     with rc_context(STYLE):
         fig = _figure(HALF, 3.4)
         ax = fig.add_subplot()
         x = np.asarray(curve["cutoff"], dtype=float)
         cost = np.asarray(curve["expected_cost_per_case"], dtype=float)
-        ax.axvspan(interval[0], interval[1], facecolor=PALETTE["mist"], hatch="\\\\\\", edgecolor=PALETTE["grey"],
-                   linewidth=0, label="bootstrap interval of the cut-off")
+        if interval is not None:
+            ax.axvspan(interval[0], interval[1], facecolor=PALETTE["mist"], hatch="\\\\\\", edgecolor=PALETTE["grey"],
+                       linewidth=0, label="bootstrap interval of the cut-off")
         ax.plot(x, cost, color=PALETTE["teal"], linewidth=1.2, label=cost_label)
         ax.axhline(flag_none, color=PALETTE["plum"], linestyle=(0, (1, 1.5)), linewidth=0.9, label="flag none")
         ax.axhline(flag_all, color=PALETTE["moss"], linestyle=(0, (5, 1.5, 1, 1.5)), linewidth=0.9,

@@ -15,6 +15,7 @@ import pytest
 from sklearn.metrics import roc_curve
 
 from oddsmith import plots
+from oddsmith.io import write_json, write_parquet
 from oddsmith.stages import figures
 
 HOSTILE = [
@@ -161,3 +162,23 @@ run_model_figures(probability_metrics_path=run + "/evaluation/probability_metric
     for name in plots.FIGURE_NAMES:
         assert (tmp_path / f"{name}.svg").read_bytes() == (run / "figures" / f"{name}.svg").read_bytes(), name
     assert not list(Path(run / "figures").glob("*.part")), "no partial writes left"
+
+
+@pytest.mark.parametrize("bootstrap", [None, {"cutoff_low": 0.4, "cutoff_high": None}])
+def test_cost_curve_figure_without_a_bootstrap_or_with_flag_none_in_the_interval(tmp_path, scores, bootstrap):
+    """costs.bootstrap: 0 stores no interval; an interval may end at "flag none" (None)."""
+    y, p = scores
+    write_parquet(tmp_path / "predictions.parquet", pd.DataFrame({"y": y, "p": p}))
+    write_parquet(tmp_path / "curve.parquet", pd.DataFrame({"cutoff": [0.2, 0.5, np.inf],
+                                                            "expected_cost_per_case": [0.9, 0.7, 0.8]}))
+    write_json(tmp_path / "metrics.json", {"cutoff": 0.5, "confusion": {"specificity": 0.8, "sensitivity": 0.6},
+                                           "auc_ci": {"auc": 0.7, "lower": 0.65, "upper": 0.75}})
+    write_json(tmp_path / "subgroups.json", {"attributes": {}})
+    write_json(tmp_path / "choice.json", {"bootstrap": bootstrap, "adopted_cutoff": 0.5, "bayes": {"cutoff": 0.45},
+                                          "cost_per_1000": {"flag_none": 800.0, "flag_all": 900.0}})
+    out = {name: tmp_path / f"{name}.svg" for name in figures.DECISION_FIGURES}
+    figures.run_figures(predictions_path=tmp_path / "predictions.parquet", metrics_path=tmp_path / "metrics.json",
+                        subgroups_path=tmp_path / "subgroups.json", choice_path=tmp_path / "choice.json",
+                        curve_path=tmp_path / "curve.parquet", out=out)
+    svg = out["cost_curve"].read_bytes()
+    assert (b"<pattern" in svg) == (bootstrap is not None)  # the hatched interval is drawn only when there is one

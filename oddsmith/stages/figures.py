@@ -34,6 +34,14 @@ def _write(out: dict, svgs: dict) -> dict:
     return {name: len(svg) for name, svg in svgs.items()}
 
 
+def _cutoff_interval(bootstrap: dict | None) -> tuple[float, float] | None:
+    """The bootstrap interval of the cut-off on the figure's axis: None without a bootstrap;
+    an end of None ("flag none", above every probability) is drawn at the right edge, 1."""
+    if bootstrap is None:
+        return None
+    return tuple(1.0 if end is None else end for end in (bootstrap["cutoff_low"], bootstrap["cutoff_high"]))
+
+
 def run_model_figures(*, probability_metrics_path: str, selected_path: str, model_paths: dict, out: dict) -> dict:
     """Write the figures of :data:`MODEL_FIGURES` to ``out[name]``.
 
@@ -60,14 +68,13 @@ def run_figures(*, predictions_path: str, metrics_path: str, subgroups_path: str
     metrics, choice = read_json(metrics_path), read_json(choice_path)
     y, p = predictions["y"].to_numpy(), predictions["p"].to_numpy()
     cutoff, confusion, auc = metrics["cutoff"], metrics["confusion"], metrics["auc_ci"]
-    bootstrap = choice["bootstrap"]
     svgs = {
         "roc": plots.roc_svg(y, p, auc=auc["auc"], auc_low=auc["lower"], auc_high=auc["upper"], cutoff=cutoff,
                              operating_point=(1 - confusion["specificity"], confusion["sensitivity"])),
         "cost_curve": plots.cost_curve_svg(
             read_parquet(curve_path, columns=["cutoff", "expected_cost_per_case"]),
             adopted=choice["adopted_cutoff"], bayes=choice["bayes"]["cutoff"],
-            interval=(bootstrap["cutoff_low"], bootstrap["cutoff_high"]),
+            interval=_cutoff_interval(choice["bootstrap"]),
             flag_none=choice["cost_per_1000"]["flag_none"] / 1000, flag_all=choice["cost_per_1000"]["flag_all"] / 1000),
         "score_distribution": plots.score_distribution_svg(y, p, cutoff=cutoff),
         "subgroups": plots.subgroups_svg(read_json(subgroups_path)["attributes"]),
