@@ -57,6 +57,6 @@ rule compare:
     params:
         candidates=CANDIDATES,
         selection=CONFIG["selection"],
-        code=code("stages/compare", "metrics", script="scripts/compare.py"),
+        code=code("stages/compare", "metrics", "solvers", script="scripts/compare.py"),
     script:
         "../scripts/compare.py"

@@ -67,6 +67,7 @@ if SCORING["data"]:
                 "drift",
                 "predict",
                 "models",
+                "solvers",
                 "recipe",
                 "contract",
                 "card",
