@@ -119,9 +119,8 @@ def learn_recipe(
     records = list(learned)
     inter_records = [_interaction_record(pair, records) for pair in pairs]
     _raise_if(_duplicate_column_problems(records, inter_records), "the feature recipe cannot be learned:")
-    values, _, problems = _produce(records, inter_records, train_df, ids)
-    _raise_if(problems, "the feature recipe cannot be learned from these training rows:")
-    recipe = _assemble(records, inter_records, values, target, len(train_df))
+    stats = _column_stats(records, inter_records, train_df, ids)
+    recipe = _assemble(records, inter_records, stats, target, len(train_df))
     recipe["digest"] = recipe_digest(recipe)
     return recipe
 
@@ -417,9 +416,48 @@ def _duplicate_column_problems(records: list, inter_records: list) -> list[str]:
     return [f"design column name {c!r} would be produced twice; rename a feature" for c in repeated]
 
 
-def _assemble(records: list, inter_records: list, values: dict, target: str, n_rows: int) -> dict:
+# Rows per piece when the produced columns are summarised while learning: memory stays at
+# one piece of the design, whatever the number of training rows.
+_STATS_CHUNK_ROWS = 131_072
+
+
+def _column_stats(records: list, inter_records: list, df: pd.DataFrame, ids: pd.Series) -> dict:
+    """Minimum, maximum, mean and population SD of every produced column over all rows.
+
+    The columns are produced piece by piece and the pieces' means and sums of squared
+    deviations are combined exactly (Chan et al.'s pairwise update), so the whole design is
+    never held here. If any piece has a problem, the whole frame is produced once more so the
+    error lists every problem with its counts and examples.
+    """
+    stats = {}
+    for start in range(0, max(len(df), 1), _STATS_CHUNK_ROWS):
+        piece = df.iloc[start:start + _STATS_CHUNK_ROWS]
+        values, _, problems = _produce(records, inter_records, piece, ids.iloc[start:start + _STATS_CHUNK_ROWS])
+        if problems:
+            problems = _produce(records, inter_records, df, ids)[2]
+            _raise_if(problems, "the feature recipe cannot be learned from these training rows:")
+        for column, v in values.items():
+            v = np.asarray(v, dtype=np.float64)
+            if v.size == 0:
+                continue
+            n, mean = v.size, float(np.mean(v))
+            m2 = float(np.sum((v - mean) ** 2))
+            low, high, first = float(v.min()), float(v.max()), float(v[0])
+            if column not in stats:
+                stats[column] = {"n": n, "mean": mean, "m2": m2, "min": low, "max": high, "first": first}
+                continue
+            old = stats[column]
+            total = old["n"] + n
+            delta = mean - old["mean"]
+            old["m2"] += m2 + delta * delta * old["n"] * n / total
+            old["mean"] += delta * n / total
+            old["n"], old["min"], old["max"] = total, min(old["min"], low), max(old["max"], high)
+    return stats
+
+
+def _assemble(records: list, inter_records: list, stats: dict, target: str, n_rows: int) -> dict:
     produced = [c for r in records for c in r["columns"]] + [c for r in inter_records for c in r["columns"]]
-    dropped = _constant_columns(produced, values)
+    dropped = _constant_columns(produced, stats)
     dropped += _interactions_of_dropped(records, inter_records, {d["column"] for d in dropped})
     gone = {d["column"] for d in dropped}
     dropped += _single_level_notes(records)
@@ -432,18 +470,18 @@ def _assemble(records: list, inter_records: list, values: dict, target: str, n_r
         "interactions": inter_records,
         "columns": columns,
         "dropped": dropped,
-        "means": {c: float(np.mean(values[c])) for c in columns},
-        "sds": {c: float(np.std(values[c])) for c in columns},
+        "means": {c: stats[c]["mean"] for c in columns},
+        "sds": {c: float(np.sqrt(stats[c]["m2"] / stats[c]["n"])) for c in columns},
         "standardisation": "mean and population SD (ddof=0) of each design column over the training rows",
     }
 
 
-def _constant_columns(produced: list, values: dict) -> list[dict]:
+def _constant_columns(produced: list, stats: dict) -> list[dict]:
     dropped = []
     for column in produced:
-        v = values[column]
-        if v.max() == v.min():
-            dropped.append({"column": column, "reason": f"constant on the training rows (every value {float(v[0]):g})"})
+        if stats[column]["max"] == stats[column]["min"]:
+            dropped.append({"column": column,
+                            "reason": f"constant on the training rows (every value {stats[column]['first']:g})"})
     return dropped
 
 

@@ -315,3 +315,19 @@ def test_inconsistent_recipe_is_detected_even_with_a_fresh_digest(tmp_path, edit
     with pytest.raises(RecipeError):
         dump_recipe(recipe, tmp_path / "refused.json")
     assert not (tmp_path / "refused.json").exists()
+
+
+def test_standardisation_learned_piece_by_piece_equals_the_whole_column(monkeypatch):
+    # The means and SDs are combined from pieces of rows; they must be those of the whole
+    # design column (numpy's mean and population SD), and the same dropped columns.
+    import oddsmith.recipe as recipe_module
+
+    train = _applicants(2000, seed=5)
+    whole = _learn(train)
+    monkeypatch.setattr(recipe_module, "_STATS_CHUNK_ROWS", 173)
+    pieces = _learn(train)
+    assert pieces["columns"] == whole["columns"] and pieces["dropped"] == whole["dropped"]
+    X, _ = apply_recipe(whole, train, id_column="applicant_id")
+    for column in whole["columns"]:
+        assert pieces["means"][column] == pytest.approx(float(np.mean(X[column])), rel=1e-12, abs=1e-14)
+        assert pieces["sds"][column] == pytest.approx(float(np.std(X[column])), rel=1e-12)

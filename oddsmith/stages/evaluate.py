@@ -39,9 +39,12 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
                  out_scores: str, out_probability_metrics: str) -> dict:
     """Score the test part with the selected model; write the scores (with each row's period
     and subgroup labels) and the metrics that do not depend on the cut-off."""
-    df = read_parquet(data_path)
-    assignment = read_parquet(assignment_path)
-    test = df.loc[(assignment["part"] == "test").to_numpy()].reset_index(drop=True)
+    # Only the test rows and the columns used here are read (at 1M rows the whole frame
+    # would be most of this job's memory).
+    is_test = (read_parquet(assignment_path, columns=["part"])["part"] == "test").to_numpy()
+    wanted = [data["id_column"], data["target"], data["date_column"], *feature_names,
+              *fairness["sensitive"], *fairness["segments"]]
+    test = read_parquet(data_path, columns=list(dict.fromkeys(c for c in wanted if c)), rows=is_test)
     selected = read_json(selected_path)["candidate"]
     model = read_json(model_paths[selected])
     y = test[data["target"]].to_numpy().astype(int)

@@ -19,15 +19,17 @@ log = logging.getLogger("oddsmith.features")
 # Rows per piece when the design is built and written: memory stays at one design matrix
 # plus one piece, whatever the number of rows.
 CHUNK_ROWS = 131_072
+# Smaller pieces while building: applying the recipe makes a few temporary copies of a piece.
+BUILD_ROWS = 32_768
 
 
 def _design(recipe: dict, train: pd.DataFrame) -> pd.DataFrame:
     """The unstandardised design of the training rows, built piece by piece into one array."""
     columns = recipe["columns"]
     values = np.empty((len(train), len(columns)), order="F")
-    for s in range(0, len(train), CHUNK_ROWS):
-        piece, _ = apply_recipe(recipe, train.iloc[s:s + CHUNK_ROWS], standardise=False)
-        values[s:s + CHUNK_ROWS] = piece.to_numpy()
+    for s in range(0, len(train), BUILD_ROWS):
+        piece, _ = apply_recipe(recipe, train.iloc[s:s + BUILD_ROWS], standardise=False)
+        values[s:s + BUILD_ROWS] = piece.to_numpy()
     return pd.DataFrame(values, columns=columns, index=train.index, copy=False)
 
 
