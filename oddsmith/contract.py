@@ -9,6 +9,8 @@ Typing is done here; the value checks run through a pandera schema built from th
 
 from __future__ import annotations
 
+import codecs
+
 import math
 from pathlib import Path
 
@@ -68,17 +70,9 @@ def read_raw(path: str | Path, *, encoding: str = "utf-8") -> pd.DataFrame:
     path = Path(path)
     if not path.is_file():
         raise ContractError(f"data file not found: {path}")
-    raw = path.read_bytes()
-    if not raw.strip():
-        raise ContractError(f"data file {path} is empty (0 rows, no header)")
     codec = "utf-8-sig" if encoding == "utf-8" else encoding
-    try:
-        raw.decode(codec)
-    except UnicodeDecodeError as exc:
-        raise ContractError(
-            f"data file {path} is not valid {encoding}: byte 0x{raw[exc.start]:02x} at offset {exc.start}; "
-            "re-save it as UTF-8 or set data.encoding (latin-1, cp1252)"
-        ) from None
+    if not _check_decodes(path, codec, encoding):
+        raise ContractError(f"data file {path} is empty (0 rows, no header)")
     df = pd.read_csv(path, dtype=str, keep_default_na=False, na_values=[""], encoding=codec)
     if len(df.columns) == 1 and any(sep in df.columns[0] for sep in (";", "\t", "|")):
         sep = next(s for s in (";", "\t", "|") if s in df.columns[0])
@@ -89,6 +83,28 @@ def read_raw(path: str | Path, *, encoding: str = "utf-8") -> pd.DataFrame:
     if df.empty:
         raise ContractError(f"data file {path} has a header but no data rows")
     return df
+
+
+def _check_decodes(path: Path, codec: str, encoding: str, chunk_bytes: int = 1 << 24) -> bool:
+    """Decode the file piece by piece (never the whole file in memory); False if it holds
+    only whitespace. A byte that does not decode is refused with its offset in the file."""
+    decoder = codecs.getincrementaldecoder(codec)()
+    offset, has_content = 0, False
+    with path.open("rb") as handle:
+        while True:
+            chunk = handle.read(chunk_bytes)
+            pending = len(decoder.getstate()[0])
+            try:
+                text = decoder.decode(chunk, final=not chunk)
+            except UnicodeDecodeError as exc:
+                raise ContractError(
+                    f"data file {path} is not valid {encoding}: byte 0x{exc.object[exc.start]:02x} at offset "
+                    f"{offset - pending + exc.start}; re-save it as UTF-8 or set data.encoding (latin-1, cp1252)"
+                ) from None
+            has_content = has_content or bool(text.strip())
+            if not chunk:
+                return has_content
+            offset += len(chunk)
 
 
 def validate_frame(

@@ -187,3 +187,24 @@ def test_workflow_refuses_bad_config(project):
 def test_sensitive_attribute_with_one_group(cfg, tmp_path):
     frame = _demo_frame().assign(owner_age_band="35-49")
     _expect_failure(cfg, tmp_path, _write(tmp_path, frame), "attribute 'owner_age_band' has a single group ['35-49']")
+
+
+def test_decoding_is_checked_piece_by_piece_with_the_file_offset(tmp_path):
+    # Tiny pieces: a two-byte character split across pieces is fine, and the offset of a bad
+    # byte is its offset in the file, not in the piece.
+    from oddsmith.contract import _check_decodes
+    from oddsmith.errors import ContractError
+
+    good = "id,name\n1,Zoë\n2,Åsa\n".encode("utf-8")
+    path = tmp_path / "good.csv"
+    path.write_bytes(good)
+    for size in (1, 2, 3, 5, 64):
+        assert _check_decodes(path, "utf-8-sig", "utf-8", chunk_bytes=size)
+    bad = good + b"3,Ren\xe9\n"
+    path.write_bytes(bad)
+    where = bad.index(b"\xe9")
+    for size in (1, 2, 3, 7, 64):
+        with pytest.raises(ContractError, match=f"byte 0xe9 at offset {where};"):
+            _check_decodes(path, "utf-8-sig", "utf-8", chunk_bytes=size)
+    path.write_bytes(b"  \n\n")
+    assert not _check_decodes(path, "utf-8-sig", "utf-8", chunk_bytes=2)
