@@ -107,7 +107,7 @@ def roc_svg(y, p, *, auc: float, auc_low: float, auc_high: float, cutoff=None, o
     """ROC curve of the test predictions with the chance diagonal and the operating point.
 
     ``operating_point`` is (1 − specificity, sensitivity) at the adopted cut-off, as stored
-    by the evaluate stage; it is drawn only when ``cutoff`` is not None.
+    by the apply_cutoff stage; it is drawn only when ``cutoff`` is not None.
     """
     with rc_context(STYLE):
         fig = _figure(HALF, 2.9)
@@ -247,7 +247,7 @@ def score_distribution_svg(y, p, *, cutoff=None) -> bytes:
 def subgroups_svg(attributes: dict) -> bytes:
     """Adverse-impact ratio of each group against the 4/5 line, one panel per attribute.
 
-    Bars below 4/5 are flagged by the evaluate stage (``adverse_impact_flag``) and drawn
+    Bars below 4/5 are flagged by the apply_cutoff stage (``adverse_impact_flag``) and drawn
     hatched and dark; groups too small to assess are listed but not drawn.
     """
     names = list(attributes)
