@@ -32,6 +32,7 @@ def design_diagnostics(
     corr_threshold: float = 0.8,
     vif_threshold: float = 10.0,
     leak_auc: float = 0.95,
+    leakage: dict | None = None,
 ) -> dict:
     """Diagnose a training design matrix.
 
@@ -52,6 +53,9 @@ def design_diagnostics(
         Flag variance inflation factors above this (a common-practice rule of thumb).
     leak_auc : float, default 0.95
         Report a raw feature whose single-feature training AUC exceeds this.
+    leakage : dict, optional
+        A result of :func:`leakage_screen` computed earlier on the same rows (so the caller
+        can free the raw columns before building the design); replaces ``raw_train``.
 
     Returns
     -------
@@ -82,7 +86,7 @@ def design_diagnostics(
     report["constant_columns"] = [str(c) for c in constant]
     report["correlations"] = _strong_pairs(corr, names, corr_threshold)
     report["vif"] = _vif_report(corr, names, [str(c) for c in constant], vif_threshold)
-    report["leakage"] = _leakage(raw_train, y, features, leak_auc)
+    report["leakage"] = leakage if leakage is not None else leakage_screen(raw_train, y, features, leak_auc)
     report["warnings"] = _warnings(report)
     return report
 
@@ -188,7 +192,9 @@ def _vif_report(corr: np.ndarray, names: list, constant: list, threshold: float)
 # ---------------------------------------------------------------------------- leakage screen
 
 
-def _leakage(raw: pd.DataFrame | None, y: np.ndarray, features: list | None, threshold: float) -> dict:
+def leakage_screen(raw: pd.DataFrame | None, y, features: list | None, threshold: float = 0.95) -> dict:
+    """The leakage part of :func:`design_diagnostics`: single-feature training AUC per raw feature."""
+    y = np.asarray(y)
     result = {
         "threshold": threshold,
         "method": (

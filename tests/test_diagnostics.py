@@ -133,3 +133,16 @@ def test_bad_outcome_is_rejected():
         design_diagnostics(X, np.where(np.arange(len(y)) == 4, 2, y))
     with pytest.raises(ValueError, match="one value per design row"):
         design_diagnostics(X, y[:-1])
+
+
+def test_a_leakage_screen_made_earlier_gives_the_same_report():
+    # The features stage screens the raw columns first, frees them, then diagnoses the design.
+    from oddsmith.diagnostics import leakage_screen
+
+    rng = np.random.default_rng(8)
+    raw = pd.DataFrame({"a": rng.normal(size=300), "b": rng.choice(["x", "y"], 300)})
+    y = (rng.random(300) < 0.3).astype(int)
+    X = pd.DataFrame({"a": raw["a"], "b=y": (raw["b"] == "y").astype(float)})
+    together = design_diagnostics(X, y, raw_train=raw)
+    screened = leakage_screen(raw, y, None, 0.95)
+    assert design_diagnostics(X, y, leakage=screened) == together

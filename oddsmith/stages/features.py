@@ -9,7 +9,7 @@ import logging
 import numpy as np
 import pandas as pd
 
-from oddsmith.diagnostics import design_diagnostics
+from oddsmith.diagnostics import design_diagnostics, leakage_screen
 from oddsmith.io import read_parquet, write_json, write_parquet_chunks
 from oddsmith.recipe import apply_recipe, dump_recipe, learn_recipe
 
@@ -42,16 +42,20 @@ def run_features(*, data_path: str, assignment_path: str, features: list, intera
     """
     names = [f["name"] for f in features]
     is_train = (read_parquet(assignment_path, columns=["part"])["part"] == "train").to_numpy()
-    train = read_parquet(data_path, columns=list(dict.fromkeys([id_column, target, *names])), rows=is_train)
+    train = read_parquet(data_path, columns=list(dict.fromkeys([target, *names])), rows=is_train)
     recipe = learn_recipe(train, features=features, interactions=interactions, target=target)
-    X = _design(recipe, train)
     y = train[target].to_numpy().astype(int)
-    report = design_diagnostics(X, y, raw_train=train[names], features=features, **diagnostics)
+    # The leakage screen needs the raw columns, the rest of the diagnostics the design: the
+    # screen runs first so that the raw columns can go before the design is examined.
+    leakage = leakage_screen(train[names], y, features, diagnostics.get("leak_auc", 0.95))
+    X = _design(recipe, train)
+    del train
+    report = design_diagnostics(X, y, features=features, leakage=leakage, **diagnostics)
     for warning in report.get("warnings", []):
         log.warning(warning)
     dump_recipe(recipe, out_recipe)
     write_json(out_diagnostics, report)
-    ids = train[id_column]
+    ids = read_parquet(data_path, columns=[id_column], rows=is_train)[id_column]
     write_parquet_chunks(out_design, (
         pd.concat([pd.DataFrame({id_column: ids.iloc[s:s + CHUNK_ROWS].to_numpy(), target: y[s:s + CHUNK_ROWS]}),
                    X.iloc[s:s + CHUNK_ROWS].reset_index(drop=True)], axis=1)
