@@ -1,4 +1,5 @@
 # oddsmith — the two commands a newcomer needs are `make demo` and `make test`.
+SHELL := /bin/bash
 PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
@@ -20,12 +21,15 @@ test: setup
 setup: check-system $(VENV)/.installed
 
 check-system:
-	@$(PYTHON) oddsmith/system.py
+	@$(PYTHON) oddsmith/system.py --install
 
 $(VENV)/.installed: requirements.lock pyproject.toml
+	@echo "oddsmith setup: creating $(VENV) and installing the pinned packages of requirements.lock (2-3 minutes on a fresh machine)"
 	$(PYTHON) -m venv $(VENV)
-	$(BIN)/python -m pip install --quiet --require-hashes --no-deps -r requirements.lock
+	$(BIN)/python -m pip install --progress-bar off --require-hashes --no-deps -r requirements.lock \
+	  | grep --line-buffered -E '^(Collecting|Successfully)' | sed -u 's/^/  /' ; test $${PIPESTATUS[0]} -eq 0
 	$(BIN)/python -m pip install --quiet --no-deps --no-build-isolation -e .
+	@echo "oddsmith setup: done"
 	@touch $@
 
 ## lint: Snakemake's linter and snakefmt
