@@ -275,6 +275,22 @@ def hosmer_lemeshow(y, p, *, groups: int = 10) -> dict:
     return {"statistic": statistic, "df": df, "p_value": p_value, "groups": table}
 
 
+def _rate_interval(events: int, n: int) -> tuple[float, float]:
+    """Wilson score 95% interval of ``events / n``, exact at the ends of [0, 1].
+
+    The closed form leaves rounding residue where the interval touches 0 or 1 (a lower bound
+    of 8.7e-19 with no events, an upper bound 1e-16 below 1 with only events); the bound is
+    0 (1) exactly there, and the interval always contains the observed rate.
+    """
+    from statsmodels.stats.proportion import proportion_confint
+
+    low, high = (float(v) for v in proportion_confint(events, n, alpha=0.05, method="wilson"))
+    rate = events / n
+    low = 0.0 if events == 0 else min(max(low, 0.0), rate)
+    high = 1.0 if events == n else max(min(high, 1.0), rate)
+    return low, high
+
+
 def reliability_bins(y, p, *, bins: int = 10) -> list[dict]:
     """Observed event rate against mean prediction in equal-count bins of ``p``.
 
@@ -289,8 +305,6 @@ def reliability_bins(y, p, *, bins: int = 10) -> list[dict]:
         ``lower``, ``upper``, ``n``, ``events``, ``mean_predicted``, ``observed_rate``,
         ``ci_low``, ``ci_high``, in increasing order of ``p``.
     """
-    from statsmodels.stats.proportion import proportion_confint
-
     y, p = _validated(y, p)
     _check_group_count(bins, "bins")
     order = np.argsort(p, kind="stable")
@@ -300,7 +314,7 @@ def reliability_bins(y, p, *, bins: int = 10) -> list[dict]:
     for start, stop in zip(bounds[:-1], bounds[1:]):
         n_bin = int(stop - start)
         events = int(y_sorted[start:stop].sum())
-        ci_low, ci_high = proportion_confint(events, n_bin, alpha=0.05, method="wilson")
+        ci_low, ci_high = _rate_interval(events, n_bin)
         rows.append(
             {
                 "lower": float(p_sorted[start]),

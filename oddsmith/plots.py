@@ -126,6 +126,31 @@ def roc_svg(y, p, *, auc: float, auc_low: float, auc_high: float, cutoff=None, o
         return _svg(fig)
 
 
+def interval_arrays(bins: list[dict]) -> tuple[np.ndarray, np.ndarray]:
+    """Lower and upper interval ends of the bins' observed rates, clipped to [0, 1].
+
+    A bin without a stored interval gets its observed rate as both ends (no bar).
+    """
+    low = np.array([b.get("ci_low", b["observed_rate"]) for b in bins], dtype=float)
+    high = np.array([b.get("ci_high", b["observed_rate"]) for b in bins], dtype=float)
+    return np.clip(low, 0.0, 1.0), np.clip(high, 0.0, 1.0)
+
+
+def error_bar_lengths(centre, low, high) -> np.ndarray:
+    """Lengths below and above ``centre`` of the bars from ``low`` to ``high``, never negative.
+
+    An end that rounding left a hair on the wrong side of the centre gives a bar of length
+    0 on that side.
+
+    Examples
+    --------
+    >>> error_bar_lengths([0.0, 1.0], [8.7e-19, 0.8], [0.2, 1.0 - 1e-16]).tolist()
+    [[0.0, 0.19999999999999996], [0.2, 0.0]]
+    """
+    centre, low, high = (np.asarray(v, dtype=float) for v in (centre, low, high))
+    return np.vstack([np.maximum(centre - low, 0.0), np.maximum(high - centre, 0.0)])
+
+
 def reliability_svg(bins: list[dict]) -> bytes:
     """Observed event rate against mean predicted probability per bin, with bin counts."""
     with rc_context(STYLE):
@@ -133,12 +158,11 @@ def reliability_svg(bins: list[dict]) -> bytes:
         top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=[3, 1])
         x = np.array([b["mean_predicted"] for b in bins], dtype=float)
         obs = np.array([b["observed_rate"] for b in bins], dtype=float)
-        low = np.array([b.get("ci_low", b["observed_rate"]) for b in bins], dtype=float)
-        high = np.array([b.get("ci_high", b["observed_rate"]) for b in bins], dtype=float)
+        low, high = interval_arrays(bins)
         upper = float(max(np.max(high, initial=0), np.max(x, initial=0))) * 1.08 or 1.0
         top.plot([0, upper], [0, upper], color=PALETTE["grey"], linestyle=(0, (4, 3)), linewidth=0.8,
                  label="perfect calibration")
-        top.errorbar(x, obs, yerr=[obs - low, high - obs], color=PALETTE["teal"], marker="o", markersize=3.5,
+        top.errorbar(x, obs, yerr=error_bar_lengths(obs, low, high), color=PALETTE["teal"], marker="o", markersize=3.5,
                      linewidth=1.0, capsize=2, label="observed rate, 95% interval")
         top.set(xlim=(0, upper), ylim=(0, upper), ylabel="observed event rate", title="Calibration on the test part")
         top.legend(loc="upper left")

@@ -18,18 +18,22 @@ Numeric features
     the reference and every other bin gets a 0/1 column.
 Categorical features
     Values are matched by their text form (``str(value)``). Levels with fewer than
-    ``min_count`` training rows are merged into ``"other"`` (a level literally named
-    ``"other"`` joins that group). The reference level is the configured one or else the most
-    frequent training level other than ``"other"``/``"(missing)"`` (ties: first by sorted
-    label); every other kept level gets a 0/1 column ``name=level``.
+    ``min_count`` training rows are pooled into one level named ``"<other>"`` (made unique
+    against the data's levels, so a data level literally named ``"other"`` stays a level of
+    its own); the recipe lists them in ``merged`` and records ``pooled_level`` and
+    ``pooled_rows``. A pool that would itself hold fewer than ``min_count`` training rows
+    joins the reference level instead, so pooling never creates a level thinner than the
+    stated minimum. The reference level is the configured one or else the most frequent
+    training level other than the pool and ``"(missing)"`` (ties: first by sorted label);
+    every other kept level gets a 0/1 column ``name=level``.
 Missing values
     ``missing: reject`` makes a missing value an error, in training and at apply time.
     ``missing: indicator`` fills numeric values with the training median and adds a 0/1
     column ``name=(missing)``; for categoricals a missing value becomes the level
     ``"(missing)"`` (subject to ``min_count`` like any level), whose dummy is the indicator.
 Unseen levels at apply time
-    An error, unless the feature has ``missing: indicator`` and the recipe has an
-    ``"other"`` level, in which case the row is mapped to ``"other"`` and flagged. A missing
+    An error, unless the feature has ``missing: indicator`` and rare levels were pooled in
+    training, in which case the row is mapped to the pooled level and flagged. A missing
     categorical value with no ``"(missing)"`` level learned is treated the same way.
 Interactions
     ``[a, b]`` multiplies every value column of ``a`` by every value column of ``b`` (the
@@ -59,7 +63,10 @@ from oddsmith.errors import RecipeError
 
 FORMAT = "oddsmith-recipe/1"
 MISSING_LEVEL = "(missing)"
-OTHER_LEVEL = "other"
+#: Name of the level pooling rare levels (made unique against the data's own levels).
+OTHER_LEVEL = "<other>"
+#: The pooled level's name in recipes that do not record ``pooled_level``.
+LEGACY_OTHER_LEVEL = "other"
 TRANSFORMS = ("none", "log", "log1p", "spline", "bins")
 # Knot quantiles by number of knots: Harrell, Regression Modeling Strategies, 2nd ed. (2015),
 # Table 2.3 (values reproduced from memory of that table).
@@ -148,8 +155,8 @@ def apply_recipe(
     flags : pandas.DataFrame
         Booleans, same index: ``<feature>:filled`` (a missing value was filled, features with
         ``missing: indicator``) and ``<feature>:unseen`` (a categorical value unseen in
-        training, or missing without a learned ``"(missing)"`` level, was mapped to
-        ``"other"``).
+        training, or missing without a learned ``"(missing)"`` level, was mapped to the
+        pooled level).
 
     Raises
     ------
@@ -371,35 +378,75 @@ def _learn_categorical(spec: dict, values: pd.Series, ids: pd.Series) -> tuple[d
     text[missing] = MISSING_LEVEL
     labels, counts = np.unique(text.astype(str), return_counts=True)
     count_of = dict(zip(labels.tolist(), counts.tolist()))
-    rare = [lv for lv in labels.tolist() if count_of[lv] < spec["min_count"] and lv != OTHER_LEVEL]
-    kept = [lv for lv in labels.tolist() if lv not in rare and lv != OTHER_LEVEL]
-    if rare or OTHER_LEVEL in count_of:
-        count_of[OTHER_LEVEL] = sum(count_of[lv] for lv in rare) + count_of.get(OTHER_LEVEL, 0)
-        kept.append(OTHER_LEVEL)
-    reference, found = _reference_level(spec, kept, rare, count_of)
+    rare = [lv for lv in labels.tolist() if count_of[lv] < spec["min_count"]]
+    kept = [lv for lv in labels.tolist() if lv not in rare]
+    pooled_rows = sum(count_of[lv] for lv in rare)
+    # The pool gets a level of its own only when it holds min_count training rows (or nothing
+    # else is left); otherwise its rows join the reference level, so no level is thinner than
+    # the stated minimum.
+    own_level = bool(rare) and (pooled_rows >= spec["min_count"] or not kept)
+    pool = pool_level_name(labels.tolist()) if own_level else None
+    if pool is not None:
+        count_of[pool] = pooled_rows
+    reference, found = _reference_level(spec, kept + ([pool] if pool else []), rare, count_of, pool=pool)
+    if pool is not None:
+        kept.append(pool)
     record = {
         "name": name, "type": "categorical", "missing": spec["missing"], "min_count": spec["min_count"],
         "levels": kept, "reference": reference, "merged": rare,
         "level_counts": {lv: int(count_of[lv]) for lv in kept},
         "training_missing": int(missing.sum()),
     }
+    if rare and reference is not None:
+        record["pooled_level"] = pool or reference
+        record["pooled_rows"] = int(pooled_rows)
+        if pool is None:
+            record["level_counts"][reference] += int(pooled_rows)
     return record, problems + found
 
 
-def _reference_level(spec: dict, kept: list, rare: list, count_of: dict) -> tuple[str | None, list[str]]:
+def pool_level_name(levels: list[str]) -> str:
+    """Name of the level that pools rare levels: ``"<other>"``, made unique against ``levels``.
+
+    Angle brackets keep it apart from ordinary data labels; should the data hold that label
+    too, a number is added (``"<other 2>"``, ...).
+
+    Examples
+    --------
+    >>> pool_level_name(["a", "other"]), pool_level_name(["<other>", "b"])
+    ('<other>', '<other 2>')
+    """
+    taken, name, k = set(levels), OTHER_LEVEL, 1
+    while name in taken:
+        k += 1
+        name = f"<other {k}>"
+    return name
+
+
+def pooled_level(record: dict) -> str | None:
+    """The level rare training levels were mapped to (None when nothing was pooled).
+
+    Recipes written before ``pooled_level`` was recorded pooled into ``"other"``.
+    """
+    if not record.get("merged"):
+        return None
+    return record.get("pooled_level", LEGACY_OTHER_LEVEL)
+
+
+def _reference_level(spec: dict, kept: list, rare: list, count_of: dict, *, pool: str | None) -> tuple[str | None, list[str]]:
     name, wanted = spec["name"], spec["reference"]
     if wanted is not None:
         wanted = str(wanted)
-        if wanted in kept:
+        if wanted in kept and wanted != pool:
             return wanted, []
         if wanted in rare:
             return None, [
                 f"feature {name!r}: reference level {wanted!r} has {count_of[wanted]} training rows, fewer than "
-                f"min_count {spec['min_count']}, and was merged into {OTHER_LEVEL!r}"
+                f"min_count {spec['min_count']}, and was pooled with the other rare levels"
             ]
-        shown = ", ".join(map(repr, kept[:10]))
+        shown = ", ".join(map(repr, [lv for lv in kept if lv != pool][:10]))
         return None, [f"feature {name!r}: reference level {wanted!r} is not present in the training rows (levels: {shown})"]
-    ordinary = [lv for lv in kept if lv not in (OTHER_LEVEL, MISSING_LEVEL)] or kept
+    ordinary = [lv for lv in kept if lv not in (pool, MISSING_LEVEL)] or kept
     most = max(count_of[lv] for lv in ordinary)
     return next(lv for lv in ordinary if count_of[lv] == most), []
 
@@ -626,14 +673,15 @@ def _map_levels(record: dict, values: pd.Series, ids: pd.Series):
     name, levels = record["name"], record["levels"]
     text, missing = _as_text(values)
     lookup = {lv: lv for lv in levels}
-    lookup.update({lv: OTHER_LEVEL for lv in record["merged"]})
+    pool = pooled_level(record)
+    lookup.update({lv: pool for lv in record["merged"]})
     if missing.any() and record["missing"] == "reject":
         return text, np.zeros(len(text), bool), missing, [_missing_message(name, missing, ids)]
     text[missing] = MISSING_LEVEL
     mapped = np.array([lookup.get(v) for v in text.tolist()], dtype=object)
     unseen = np.array([m is None for m in mapped.tolist()], dtype=bool)
-    if unseen.any() and record["missing"] == "indicator" and OTHER_LEVEL in levels:
-        mapped[unseen] = OTHER_LEVEL
+    if unseen.any() and record["missing"] == "indicator" and pool is not None:
+        mapped[unseen] = pool
     elif unseen.any():
         return mapped, unseen, missing, [_unseen_message(record, text, unseen, ids)]
     return mapped, unseen, missing, []
@@ -644,7 +692,7 @@ def _unseen_message(record: dict, text: np.ndarray, unseen: np.ndarray, ids: pd.
     shown = ", ".join(map(repr, found[:_EXAMPLES])) + (", ..." if len(found) > _EXAMPLES else "")
     why = (
         "the feature has missing: reject" if record["missing"] == "reject"
-        else f"no {OTHER_LEVEL!r} level was learned to map it to"
+        else "no rare levels were pooled in training, so there is no pooled level to map it to"
     )
     return (
         f"feature {record['name']!r}: {len(found)} level(s) unseen in training ({shown}) in "
@@ -728,10 +776,11 @@ def _categorical_consistency(r: dict) -> list[str]:
         problems.append(f"feature {name!r}: levels repeat")
     if r["reference"] not in r["levels"]:
         problems.append(f"feature {name!r}: reference level {r['reference']!r} is not among its levels {r['levels']}")
+    pool = pooled_level(r)
     if set(r["merged"]) & set(r["levels"]):
-        problems.append(f"feature {name!r}: a level is both kept and merged into {OTHER_LEVEL!r}")
-    if r["merged"] and OTHER_LEVEL not in r["levels"]:
-        problems.append(f"feature {name!r}: levels were merged but there is no {OTHER_LEVEL!r} level")
+        problems.append(f"feature {name!r}: a level is both kept and pooled")
+    if pool is not None and pool not in r["levels"]:
+        problems.append(f"feature {name!r}: levels were pooled into {pool!r}, which is not among its levels")
     return problems
 
 

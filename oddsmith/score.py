@@ -35,7 +35,7 @@ Reason codes
 Policies for missing and unseen values
     Exactly the recipe's: ``missing: reject`` refuses a missing value, ``missing:
     indicator`` fills it and sets the row's ``<feature>:filled`` flag; an unseen level is
-    mapped to ``other`` (flag ``<feature>:unseen``) where the recipe allows it, otherwise
+    mapped to the pooled level (flag ``<feature>:unseen``) where the recipe allows it, otherwise
     refused. The flags are output columns and their counts are in the summary.
 
 CSV output

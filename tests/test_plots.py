@@ -182,3 +182,38 @@ def test_cost_curve_figure_without_a_bootstrap_or_with_flag_none_in_the_interval
                         curve_path=tmp_path / "curve.parquet", out=out)
     svg = out["cost_curve"].read_bytes()
     assert (b"<pattern" in svg) == (bootstrap is not None)  # the hatched interval is drawn only when there is one
+
+
+def test_calibration_intervals_and_error_bars_are_never_negative_for_any_bin():
+    """Every bin size from 1 to 3,000 with 0, 1, half, all but one and all events: the
+    interval lies in [0, 1] exactly, holds the observed rate, and the bars are >= 0. The raw
+    Wilson bounds of statsmodels (the reference library) leave rounding residue at the ends
+    (e.g. 8.7e-19 with no events) that the bars must also survive."""
+    from statsmodels.stats.proportion import proportion_confint
+
+    from oddsmith.metrics import _rate_interval
+
+    for n in range(1, 3001):
+        for events in sorted({0, 1, n // 2, n - 1, n}):
+            rate = events / n
+            low, high = _rate_interval(events, n)
+            assert 0.0 <= low <= rate <= high <= 1.0, (n, events, low, high)
+            assert (events > 0 or low == 0.0) and (events < n or high == 1.0), (n, events, low, high)
+            raw = proportion_confint(events, n, alpha=0.05, method="wilson")
+            bars = plots.error_bar_lengths([rate, rate], [low, raw[0]], [high, raw[1]])
+            assert (bars >= 0).all(), (n, events, bars)
+
+
+def test_reliability_figure_with_empty_and_full_bins_and_a_single_bin():
+    from statsmodels.stats.proportion import proportion_confint
+
+    def bin_of(n, events, p):
+        low, high = proportion_confint(events, n, alpha=0.05, method="wilson")  # raw, with residue
+        return {"n": n, "events": events, "mean_predicted": p, "observed_rate": events / n,
+                "ci_low": float(low), "ci_high": float(high)}
+
+    bins = [bin_of(37, 0, 0.004), bin_of(120, 3, 0.03), bin_of(9, 9, 0.97)]
+    assert proportion_confint(0, 37, method="wilson")[0] > 0  # the residue this guards against
+    for shape in (bins, bins[:1], bins[2:], []):
+        svg = plots.reliability_svg(shape)
+        assert svg.startswith(b"<?xml") and b"<svg" in svg

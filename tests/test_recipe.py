@@ -99,9 +99,11 @@ def test_categorical_levels_reference_and_merging():
     counts = train["region"].fillna("(missing)").value_counts()
     rare = sorted(level for level, count in counts.items() if count < 20)
     assert region["merged"] == rare and "islands" in rare
-    assert region["levels"][-1] == "other"
     assert region["reference"] == "north"  # most frequent
-    assert region["level_counts"]["other"] == sum(counts[level] for level in rare)
+    # the pool holds fewer than min_count = 20 rows, so it joins the reference level
+    assert sum(counts[level] for level in rare) < 20
+    assert region["pooled_level"] == "north" and region["levels"] == ["east", "north", "south", "west"]
+    assert region["level_counts"]["north"] == counts["north"] + sum(counts[level] for level in rare)
     product = next(r for r in recipe["features"] if r["name"] == "product")
     assert product["reference"] == "card"
     assert design_columns(recipe, ["product"]) == ["product=lease", "product=loan"]
@@ -221,13 +223,54 @@ def test_unseen_level_is_an_error_under_reject():
     assert "'A0002', 'A0004', 'A0006'" in message
 
 
-def test_unseen_level_maps_to_other_under_indicator():
+def test_unseen_level_maps_to_the_pooled_level_under_indicator():
     recipe = _learn(_applicants())
     new = _applicants(40, seed=9)
     new.loc[[2], "region"] = "atlantis"
     X, flags = apply_recipe(recipe, new)
     assert flags.loc[2, "region:unseen"] and flags["region:unseen"].sum() == 1
-    assert X.loc[2, "region=other"] == 1
+    # pooled into the reference level north: every region dummy is 0
+    assert X.loc[2, ["region=east", "region=south", "region=west"]].tolist() == [0, 0, 0]
+    wide = _learn(_applicants(), features=[{"name": "region", "type": "categorical", "missing": "indicator",
+                                            "min_count": 60}], interactions=[])
+    X, _ = apply_recipe(wide, new)
+    assert X.loc[2, "region=<other>"] == 1
+
+
+def _levels_frame(counts: dict, *, seed: int = 4) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    labels = np.concatenate([[level] * n for level, n in counts.items()])
+    return pd.DataFrame({"applicant_id": [f"A{i:04d}" for i in range(labels.size)], "colour": rng.permutation(labels),
+                         "delinquent": rng.integers(0, 2, labels.size)})
+
+
+def test_a_data_level_named_other_is_not_merged_with_the_pool():
+    train = _levels_frame({"red": 50, "other": 30, "blue": 25, "green": 12, "grey": 9})
+    recipe = _learn(train, features=[{"name": "colour", "type": "categorical"}], interactions=[])
+    colour = recipe["features"][0]
+    assert colour["merged"] == ["green", "grey"] and colour["pooled_level"] == "<other>"
+    assert colour["level_counts"] == {"blue": 25, "other": 30, "red": 50, "<other>": 21}
+    assert colour["reference"] == "red"
+    X, _ = apply_recipe(recipe, train)
+    assert X["colour=other"].sum() == 30 and X["colour=<other>"].sum() == 21
+    # a data level literally named "<other>" pushes the pool's name aside
+    train = _levels_frame({"red": 50, "<other>": 30, "green": 12, "grey": 9})
+    colour = _learn(train, features=[{"name": "colour", "type": "categorical"}], interactions=[])["features"][0]
+    assert colour["pooled_level"] == "<other 2>" and colour["level_counts"]["<other>"] == 30
+
+
+def test_a_pool_below_min_count_joins_the_reference_level():
+    # one rare level with a single training row: a level of its own would separate
+    train = _levels_frame({"red": 50, "blue": 40, "teal": 1})
+    recipe = _learn(train, features=[{"name": "colour", "type": "categorical"}], interactions=[])
+    colour = recipe["features"][0]
+    assert colour["merged"] == ["teal"] and colour["pooled_level"] == "red" and colour["pooled_rows"] == 1
+    assert colour["levels"] == ["blue", "red"] and colour["level_counts"] == {"blue": 40, "red": 51}
+    assert recipe["columns"] == ["colour=blue"]
+    X, _ = apply_recipe(recipe, train)
+    assert X["colour=blue"].sum() == 40
+    # every level held by training is at least min_count
+    assert min(colour["level_counts"].values()) >= 20
 
 
 def test_log_of_non_positive_values_names_rows():
