@@ -344,7 +344,9 @@ def fit_candidate(X: pd.DataFrame, y, *, kind: str, options: dict | None = None,
         The outcome has a single class; or, for ML kinds, the design is singular (the
         linearly dependent columns are named), the data are separated (the separating
         columns are named) or the fit does not converge; or a penalised refit does not
-        converge.
+        converge; or the rows hold fewer events or non-events than ``inner_folds``; or the
+        numerical solver fails on these rows. A build records the candidate as failed with
+        this message and goes on with the others.
     ValueError, TypeError
         Bad arguments; the message names the bad value.
     """
@@ -397,10 +399,17 @@ def fit_design(values: np.ndarray, names: list[str], y, *, kind: str, rows=None,
     if kind == "baseline":
         return _fit_baseline(list(names), used)
     outcome = outcome.astype(np.float64)
-    if kind in ML_KINDS:
-        return _fit_maximum_likelihood(values, outcome, rows, list(names), used, kind=kind,
-                                       **settings)
-    return _fit_penalised(values, outcome, rows, list(names), used, kind=kind, **settings)
+    try:
+        if kind in ML_KINDS:
+            return _fit_maximum_likelihood(values, outcome, rows, list(names), used, kind=kind,
+                                           **settings)
+        return _fit_penalised(values, outcome, rows, list(names), used, kind=kind, **settings)
+    except (ValueError, ArithmeticError) as exc:
+        # The arguments were checked above: what fails from here on is the arithmetic of this
+        # fit on these rows (a singular system, overflow), which ends this candidate only.
+        raise FitError(f"{kind} fit on {used.size} rows with {int(used.sum())} events failed in the "
+                       f"numerical solver ({type(exc).__name__}: {exc}); the design may be nearly "
+                       "singular or separated: drop or merge columns, or use fewer features") from exc
 
 
 def _design_values(X: pd.DataFrame) -> tuple[np.ndarray, list[str]]:
@@ -484,9 +493,14 @@ def _grid(values) -> list[float]:
 def _inner_folds(value, outcome: np.ndarray) -> int:
     folds = _positive_int("inner_folds", value)
     smallest_class = int(min(outcome.sum(), outcome.size - outcome.sum()))
-    if folds < 2 or folds > smallest_class:
-        raise ValueError(f"inner_folds must be between 2 and the smaller class count "
-                         f"({smallest_class}), got {folds}")
+    if folds < 2:
+        raise ValueError(f"inner_folds must be at least 2, got {folds}")
+    if folds > smallest_class:
+        # A property of the rows, not of the settings: too few events (or non-events) here.
+        raise FitError(f"inner_folds={folds} needs at least {folds} events and {folds} non-events "
+                       f"in the rows fitted, found {int(outcome.sum())} events and "
+                       f"{int(outcome.size - outcome.sum())} non-events; the penalty cannot be "
+                       "chosen by inner cross-validation on so few cases")
     return folds
 
 

@@ -5,6 +5,7 @@ reason, and the build goes on with the others."""
 from __future__ import annotations
 
 import logging
+import math
 
 import numpy as np
 import pandas as pd
@@ -86,6 +87,26 @@ def cross_validate(values: np.ndarray, names: list[str], y: np.ndarray, folds: p
     return oof, per_fold
 
 
+def original_scale(intercept: float, coefficients: dict, names: list[str], recipe: dict) -> dict:
+    """A standardised fit's coefficients per unit of each design column, as the recipe makes it.
+
+    With z = (x - mean) / sd: b_z z = (b_z / sd) x - b_z mean / sd, so each coefficient is
+    divided by its column's training SD and the intercept absorbs the means. The predictions
+    are the same; only the unit changes.
+
+    Examples
+    --------
+    >>> recipe = {"means": {"x": 10.0}, "sds": {"x": 2.0}}
+    >>> original_scale(0.5, {"x": 1.0}, ["x"], recipe)["coefficients"]
+    {'x': 0.5}
+    """
+    per_unit = {c: float(coefficients[c]) / float(recipe["sds"][c]) for c in names}
+    shift = math.fsum(per_unit[c] * float(recipe["means"][c]) for c in names)
+    return {"intercept": float(intercept) - shift, "coefficients": per_unit,
+            "basis": "standardised coefficient divided by the training SD of its design column; intercept "
+                     "adjusted by the training means (features/recipe.json)"}
+
+
 def run_fit(*, design_path: str, assignment_path: str, recipe_path: str, candidate: dict, id_column: str,
             target: str, seed: int, out_model: str, out_cv: str, out_oof: str) -> dict:
     """Cross-validate and refit one candidate; write model JSON, CV results and OOF predictions."""
@@ -109,6 +130,8 @@ def run_fit(*, design_path: str, assignment_path: str, recipe_path: str, candida
     model = final.to_dict() | header | {
         "status": "ok", "standardise": kind in PENALISED_KINDS, "coef_table": final.coef_table, "warnings": final.warnings,
     }
+    if kind in PENALISED_KINDS:
+        model["original_scale"] = original_scale(final.intercept, final.coefficients, names, recipe)
     pooled = metrics.summarise(y, oof["p"])
     write_parquet(out_oof, pd.DataFrame({"id": ids, "y": y, **oof}))
     write_json(out_model, model)
