@@ -23,6 +23,7 @@ from oddsmith import card
 from oddsmith.card import (CardError, RunFolderFetcher, clip, fmt_count, fmt_fixed, fmt_p, fmt_pct, fmt_sig,
                            render_card, render_pdf)
 from oddsmith.errors import ArtifactError
+from oddsmith.stages import compare
 
 ROOT = Path(__file__).resolve().parent.parent
 RUN = Path("results") / "lease_demo"
@@ -329,7 +330,11 @@ def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
     run = card.load_run(copy)
     run["diagnostics"]["events_per_parameter"] = 6.5  # Peduzzi et al. (1996): below 10
     run["metrics"]["overall"]["calibration_slope"] = 0.71  # outside [0.8, 1.2]
-    run["table"]["rows"][0] |= {"status": "failed", "reason": "quasi-complete separation on <x>"}
+    first = run["table"]["rows"][0]
+    failed_cv = {k: first[k] for k in ("candidate", "kind", "n_parameters")} | {
+        "status": "failed", "reason": "quasi-complete separation on <x>", "folds": [], "pooled": None}
+    run["table"]["rows"][0] = compare._row(failed_cv) | {"selected": False}  # exactly as compare writes it
+    assert "log_loss_mean" not in run["table"]["rows"][0]
     run["diagnostics"]["leakage"]["suspected"] = [{"feature": "days_past_due_at_review", "auc": 0.99}]
     run["diagnostics"]["vif"]["flagged"] = [{"column": "credit_score", "vif": 14.2}]
     run["split"]["base_rate_test"]["p_value"] = 0.0004
@@ -347,6 +352,7 @@ def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
     html = card.render_html(card.build_context(run, release=None))
     for f in attention.values():
         assert str(escape(f["advice"])) in html
+    assert "<b>failed</b>: quasi-complete separation on &lt;x&gt;" in html
 
 
 @pytest.mark.e2e

@@ -30,10 +30,10 @@ BATCH = ROOT / "data_demo" / "lease_applications_2026q1.csv"
 # ---------------------------------------------------------------------------- a toy model by hand
 
 # Training rows: (a, b) cycles through four pairs, so the training means are a = 1, b = 2 and
-# a*b = (0 + 6 + 0 + 2) / 4 = 2. Level "z" (4 rows) is rarer than min_count 5 and merges into
-# "other"; "w" is allowed by the contract but never seen in training.
+# a*b = (0 + 6 + 0 + 2) / 4 = 2. Levels "v" and "z" (4 rows each) are rarer than min_count 5
+# and pool into "<other>" (8 rows); "w" is allowed by the contract but never seen in training.
 PAIRS = [(0.0, 1.0), (2.0, 3.0), (0.0, 3.0), (2.0, 1.0)]
-COEFFICIENTS = {"a": 0.8, "b": -0.5, "c=other": 0.4, "c=y": 1.2, "a:b": 0.3}
+COEFFICIENTS = {"a": 0.8, "b": -0.5, "c=<other>": 0.4, "c=y": 1.2, "a:b": 0.3}
 INTERCEPT = -1.0
 TOY_CONTRACT = {
     "format": "oddsmith-contract/1",
@@ -41,7 +41,7 @@ TOY_CONTRACT = {
         "id": {"type": "string", "unique": True},
         "a": {"type": "float", "min": 0, "max": 10},
         "b": {"type": "float", "min": 0, "max": 10},
-        "c": {"type": "category", "levels": ["w", "x", "y", "z"], "nullable": True},
+        "c": {"type": "category", "levels": ["v", "w", "x", "y", "z"], "nullable": True},
         "note": {"type": "string", "nullable": True, "required": False},
         "y": {"type": "category", "levels": ["0", "1"]},
     },
@@ -49,7 +49,7 @@ TOY_CONTRACT = {
 
 
 def toy_training() -> pd.DataFrame:
-    rows = [PAIRS[i % 4] + ("x" if i < 20 else "y",) for i in range(40)] + [p + ("z",) for p in PAIRS]
+    rows = [PAIRS[i % 4] + ("x" if i < 20 else "y",) for i in range(40)] + [p + (c,) for c in "vz" for p in PAIRS]
     frame = pd.DataFrame(rows, columns=["a", "b", "c"])
     frame.insert(0, "id", [f"T{i:03d}" for i in range(len(frame))])
     frame["y"] = np.arange(len(frame)) % 2
@@ -88,14 +88,14 @@ def test_toy_contributions_by_hand():
     got = pd.DataFrame(contributions(sm, X, reference), columns=reference["features"])
     # Row R1 (a=3, b=1, c=y). Partial score of a: 0.8*3 + 0.5*0.3*3*1 = 2.85; at the means
     # 0.8*1 + 0.5*0.3*2 = 1.1 -> 1.75. b: -0.5*1 + 0.45 = -0.05; at the means -1.0 + 0.3 = -0.7
-    # -> 0.65. c: 1.2 - (1.2*20/44 + 0.4*4/44) = 27.2/44.
+    # -> 0.65. c: 1.2 - (1.2*20/48 + 0.4*8/48) = 30.4/48.
     assert got.loc[0, "a"] == pytest.approx(1.75, abs=1e-12)
     assert got.loc[0, "b"] == pytest.approx(0.65, abs=1e-12)
-    assert got.loc[0, "c"] == pytest.approx(27.2 / 44, abs=1e-12)
-    # Row R2 (a=0, b=3, c=x): a 0 - 1.1, b -1.5 - (-0.7), c 0 - 25.6/44: nothing pushes up.
-    assert got.loc[1].tolist() == pytest.approx([-1.1, -0.8, -25.6 / 44], abs=1e-12)
+    assert got.loc[0, "c"] == pytest.approx(30.4 / 48, abs=1e-12)
+    # Row R2 (a=0, b=3, c=x): a 0 - 1.1, b -1.5 - (-0.7), c 0 - 27.2/48: nothing pushes up.
+    assert got.loc[1].tolist() == pytest.approx([-1.1, -0.8, -27.2 / 48], abs=1e-12)
     # The contributions add up to eta - eta_ref exactly (eta of R1 = 3.0).
-    assert reference["eta"] == pytest.approx(INTERCEPT + 0.8 - 1.0 + 0.6 + 25.6 / 44, abs=1e-12)
+    assert reference["eta"] == pytest.approx(INTERCEPT + 0.8 - 1.0 + 0.6 + 27.2 / 48, abs=1e-12)
     assert got.loc[0].sum() == pytest.approx(3.0 - reference["eta"], abs=1e-12)
 
     scored = score_frame(sm, typed, top_k=3, reference=reference)
@@ -126,7 +126,7 @@ def test_feature_weights_split_interactions_in_half():
     names, W = feature_weights(sm.recipe, sm.model["design_columns"])
     assert names == ["a", "b", "c"]
     rows = dict(zip(sm.model["design_columns"], W.tolist()))
-    assert rows["a:b"] == [0.5, 0.5, 0.0] and rows["c=other"] == [0.0, 0.0, 1.0]
+    assert rows["a:b"] == [0.5, 0.5, 0.0] and rows["c=<other>"] == [0.0, 0.0, 1.0]
     assert W.sum(axis=1).tolist() == [1.0] * len(names) + [1.0] * (W.shape[0] - len(names))
 
 
@@ -155,7 +155,7 @@ def test_policy_flags_for_missing_and_unseen_levels():
     scored = score_frame(sm, typed)
     assert scored["c:filled"].tolist() == [True, False, False]
     assert scored["c:unseen"].tolist() == [True, True, False]
-    # Missing and unseen values both go to the learned "other" level, as the recipe declares.
+    # Missing and unseen values both go to the learned "<other>" level, as the recipe declares.
     assert scored["probability"].nunique() == 1
 
 
