@@ -73,7 +73,7 @@ CHARACTERISTICS = {
 WHOLE_NAMES = {
     "marital status": ("single", "married", "divorced", "widowed"),
     "race or ethnicity": ("white", "black", "asian", "minority", "caste"),
-    "sex or gender": ("male", "female"), "nationality": ("foreign", "foreigner", "citizen"),
+    "sex or gender": ("male", "female"), "nationality": ("foreign", "foreigner", "foreignworker", "citizen"),
 }
 AGE_QUALIFIERS = {"age", "ages", "applicant", "borrower", "customer", "client", "owner", "mother",
                   "father", "patient", "person", "member", "driver", "holder", "insured", "band", "group",
