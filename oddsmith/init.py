@@ -254,11 +254,9 @@ def _binarised_from(raw: pd.DataFrame, columns: dict, name: str, *, id_column: s
     The id column and row numbers are skipped: a file sorted by its outcome separates it too.
     """
     event = (raw[name] == columns[name]["_levels"][1]).where(raw[name].notna())
-    for other, spec in columns.items():
-        if other not in (name, id_column) and _is_numeric(spec) and 10 < spec["_distinct"] < len(raw) - spec["_blanks"]:
-            if _near_perfect(_column_auc(raw[other], spec, event)):
-                return other
-    return None
+    many_valued = [c for c, spec in columns.items() if c not in (name, id_column) and _is_numeric(spec)
+                   and 10 < spec["_distinct"] < len(raw) - spec["_blanks"]]
+    return next((c for c in many_valued if _near_perfect(_column_auc(raw[c], columns[c], event))), None)
 
 
 def _choose_target(raw: pd.DataFrame, columns: dict, *, id_column: str, given: str | None) -> tuple[str, str | None]:
@@ -275,12 +273,12 @@ def _choose_target(raw: pd.DataFrame, columns: dict, *, id_column: str, given: s
         raise InitError("no column can be the target: expected a column with exactly two values (a yes/no "
                         "outcome), found none; make a two-valued outcome column in a copy of the file and "
                         "rerun with --target COLUMN")
-    edges = {c for c in raw.columns if c != id_column}
-    edges = {next(iter(c for c in raw.columns if c != id_column)), raw.columns[-1]} & edges
+    others = [c for c in raw.columns if c != id_column]
+    edges, sample = {others[0], others[-1]}, _screen_sample(raw)
     scored = []
     for name in candidates:
-        score, reasons = _target_evidence(raw, columns, name, edge=name in edges, id_column=id_column)
-        scored.append((score, -list(raw.columns).index(name), name, reasons))
+        score, reasons = _target_evidence(sample, columns, name, edge=name in edges, id_column=id_column)
+        scored.append((score, -others.index(name), name, reasons))
     score, _, name, reasons = max(scored)
     if not reasons:
         reasons = ["no name or content pointed to an outcome; it is the first two-valued column at either end"
@@ -322,11 +320,11 @@ def _level_class(level: str) -> str | None:
     """'adverse', 'favourable' or None, from the meaning of a target level."""
     text = _normal(level)
     words = [text] + _tokens(text)
-    if any(w in ADVERSE_LEVELS for w in words):
-        return "adverse" if not any(w in FAVOURABLE_LEVELS for w in words[1:]) or text in ADVERSE_LEVELS else None
-    if any(w in FAVOURABLE_LEVELS for w in words):
-        return "favourable"
-    return None
+    adverse = any(w in ADVERSE_LEVELS for w in words)
+    favourable = any(w in FAVOURABLE_LEVELS for w in words)
+    if adverse == favourable:
+        return None
+    return "adverse" if adverse else "favourable"
 
 
 def _choose_positive(raw: pd.DataFrame, target: str, *, given: str | None) -> tuple[str, str | None, bool]:
@@ -585,15 +583,36 @@ def draft(data_path: str | Path, *, contract_out: str | Path, config_out: str | 
     raw = read_raw(data_path)
     columns = {c: _infer_column(raw[c]) for c in raw.columns}
     roles = _choose_roles(raw, columns, target=target, positive=positive, id_column=id_column)
+    features, left_out, sensitive = _assign_columns(raw, columns, roles)
+    project_dir = Path(project_dir)
+    contract_text = _contract_text(data_path, columns, roles)
+    config_text, checks = _config_text(raw, data_path, contract_out, roles, features=features,
+                                       left_out=left_out, sensitive=sensitive, run=run, project_dir=project_dir)
+    write_text(contract_out, contract_text)
+    try:
+        write_text(config_out, config_text)
+    except OSError as exc:  # never leave one draft without the other
+        contract_out.unlink()
+        raise InitError(f"could not write {config_out}: {exc}; nothing was written") from exc
+    summary = [f"id column: {roles.id_column}; target: {roles.target}, adverse outcome '{roles.positive}'",
+               f"features ({len(features)}): " + ", ".join(f["name"] for f in features),
+               "fairness.sensitive: " + (", ".join(_flow(e) for e, _ in sensitive) or "none found")]
+    summary += [f"left out: {c} — {r}" for c, r in left_out.items()]
+    return Draft(contract_out, config_out, checks, summary)
+
+
+def _assign_columns(raw: pd.DataFrame, columns: dict, roles: _Roles) -> tuple[list, dict, list]:
+    """Features; left-out columns with their reasons; sensitive entries with their comments."""
     sample = _screen_sample(raw)
     event = (sample[roles.target] == roles.positive).where(sample[roles.target].notna())
-    left_out, sensitive, features = {}, [], []
+    features, left_out, sensitive = [], {}, []
     for name, spec in columns.items():
         if name in (roles.id_column, roles.target):
             continue
-        if _protected_kind(name) and spec["type"] in ("integer", "float", "category"):
+        kind = _protected_kind(name)
+        if kind and spec["type"] in ("integer", "float", "category"):
             sensitive.append(_sensitive_entry(raw, name, spec))
-            left_out[name] = f"looks like a protected characteristic ({_protected_kind(name)}): drafted under fairness.sensitive"
+            left_out[name] = f"looks like a protected characteristic ({kind}): drafted under fairness.sensitive"
             continue
         reason = _leave_out_reason(sample, name, spec, event, date_column=roles.date_column)
         if reason:
@@ -604,29 +623,17 @@ def draft(data_path: str | Path, *, contract_out: str | Path, config_out: str | 
     if not features:
         raise InitError("no column is left to be a model input after leaving out "
                         + "; ".join(f"{c} ({r})" for c, r in left_out.items()))
-    project_dir = Path(project_dir)
-    contract_text = _contract_text(data_path, columns, roles)
-    config_text, checks = _config_text(raw, data_path, contract_out, config_out, roles, features=features,
-                                       left_out=left_out, sensitive=sensitive, run=run, project_dir=project_dir)
-    write_text(contract_out, contract_text)
-    write_text(config_out, config_text)
-    summary = [f"id column: {roles.id_column}; target: {roles.target}, adverse outcome '{roles.positive}'",
-               f"features ({len(features)}): " + ", ".join(f["name"] for f in features),
-               "fairness.sensitive: " + (", ".join(_flow(e) for e, _ in sensitive) or "none found")]
-    summary += [f"left out: {c} — {r}" for c, r in left_out.items()]
-    return Draft(contract_out, config_out, checks, summary)
+    return features, left_out, sensitive
 
 
 def _choose_roles(raw: pd.DataFrame, columns: dict, *, target, positive, id_column) -> _Roles:
-    if positive is not None and target is None:
-        # a level only means something for a known column
-        target_col, _ = _choose_target(raw, columns, id_column=_choose_id(raw, columns, id_column)[0], given=None)
-        if positive not in raw[target_col].dropna().unique():
-            raise InitError(f"--positive {positive}: not a value of the guessed target '{target_col}'; "
-                            f"its values are: {', '.join(repr(v) for v in sorted(raw[target_col].dropna().unique()))}; "
-                            "name the target with --target COLUMN")
     id_name, id_why = _choose_id(raw, columns, id_column)
     target_name, target_why = _choose_target(raw, columns, id_column=id_name, given=target)
+    if positive is not None and target is None and positive not in columns[target_name]["_levels"]:
+        # a level only means something for a known column: say which one was guessed
+        raise InitError(f"--positive {positive}: not a value of the guessed target '{target_name}'; its values "
+                        f"are: {', '.join(map(repr, columns[target_name]['_levels']))}; name the target with "
+                        "--target COLUMN")
     level, positive_why, clear = _choose_positive(raw, target_name, given=positive)
     date_column, out_of_time = _choose_date_column(raw, columns)
     return _Roles(id_name, None if id_column else id_why, target_name, level, date_column, target_why,
@@ -648,25 +655,48 @@ def _contract_text(data_path, columns: dict, roles: _Roles) -> str:
     return _render(doc, notes, header)
 
 
-def _relative(path, project_dir: Path) -> str:
-    path = Path(path)
+def _inside(path, project_dir: Path) -> str | None:
+    """``path`` relative to the project folder (POSIX form), or None when it lies outside."""
     try:
-        return Path(path.resolve().relative_to(project_dir.resolve())).as_posix()
+        return Path(path).resolve().relative_to(project_dir.resolve()).as_posix()
     except ValueError:
-        return str(path)
+        return None
 
 
-def _config_text(raw, data_path, contract_out, config_out, roles: _Roles, *, features, left_out, sensitive,
-                 run, project_dir) -> tuple[str, list[str]]:
-    n = len(raw)
+def _config_text(raw, data_path, contract_out, roles: _Roles, *, features, left_out, sensitive, run,
+                 project_dir: Path) -> tuple[str, list[str]]:
+    """The commented draft config, and the lines the person must check."""
     events = int((raw[roles.target] == roles.positive).sum())
-    test_rows = round(0.25 * n)
-    train_events = round(0.75 * events)
-    out_of_time = roles.out_of_time
-    notes, checks = _Notes(), []
-    data = {"path": _relative(data_path, project_dir), "contract": _relative(contract_out, project_dir),
-            "id_column": roles.id_column, "target": roles.target, "positive_label": str(roles.positive),
-            "date_column": roles.date_column, "extra_columns": "reject"}
+    sizes = {"rows": len(raw), "events": events, "test_rows": round(0.25 * len(raw)),
+             "train_events": round(0.75 * events)}
+    notes = _Notes()
+    checks = _role_checks(raw, roles, notes)
+    data_rel = _inside(data_path, project_dir)
+    if data_rel is None:
+        checks.append(f"the data file {data_path} is outside the project folder {project_dir.resolve()}: "
+                      "copy it in (or set data.allow_outside_project: true)")
+    contract_rel = _inside(contract_out, project_dir) or str(contract_out)
+    data = {"path": data_rel or str(data_path), "contract": contract_rel, "id_column": roles.id_column,
+            "target": roles.target, "positive_label": str(roles.positive), "date_column": roles.date_column,
+            "extra_columns": "reject"}
+    config = _config_doc(data, roles, features=features, sensitive=[e for e, _ in sensitive], sizes=sizes,
+                         run=run or _run_name(data_path))
+    _section_notes(notes, roles, left_out, sizes, folds=config["cross_validation"]["folds"])
+    for i, (entry, note) in enumerate(sensitive):
+        notes.at[("fairness", "sensitive", i)] = note
+        if "WARNING" in note:
+            name = entry["name"] if isinstance(entry, dict) else entry
+            checks.append(f"sensitive attribute '{name}' has blank cells: the build refuses blanks in a sensitive "
+                          "attribute; fill them in a copy of the file or remove it from fairness.sensitive")
+    header = ["DRAFT written by `oddsmith init`: review every line before use.",
+              f"{sizes['rows']} rows, {events} with {roles.target} = {roles.positive} "
+              f"({events / sizes['rows']:.1%}). Keys: config/README.md."]
+    return _render(config, notes, header), checks
+
+
+def _role_checks(raw: pd.DataFrame, roles: _Roles, notes: _Notes) -> list[str]:
+    """Mark each guessed role at its key; return the same warnings for the terminal."""
+    checks = []
     if roles.id_why:
         notes.at[("data", "id_column")] = f"GUESSED: {roles.id_why}"
         checks.append(f"GUESSED id column '{roles.id_column}': {roles.id_why}. Rerun with --id COLUMN if wrong.")
@@ -680,64 +710,58 @@ def _config_text(raw, data_path, contract_out, config_out, roles: _Roles, *, fea
     elif roles.positive_why:
         notes.at[("data", "positive_label")] = f"{roles.positive_why}; SET IT (or rerun with --positive LEVEL)"
         checks.append(f"{roles.positive_why}. Rerun with --positive LEVEL naming the adverse outcome.")
-    if raw[roles.target].isna().any():
-        blanks = int(raw[roles.target].isna().sum())
+    blanks = int(raw[roles.target].isna().sum())
+    if blanks:
         checks.append(f"target '{roles.target}' has {blanks} blank cell(s): the build refuses them; "
                       "drop those rows in a copy of the file")
-    if not str(data["path"]) or Path(data["path"]).is_absolute():
-        checks.append(f"the data file {data_path} is outside the project folder {Path(project_dir).resolve()}: "
-                      "copy it in (or set data.allow_outside_project: true)")
-    notes.before[("data",)] = ["The data file, its contract, and the roles of its columns."]
-    notes.before[("features",)] = ["Model inputs (DRAFT: numeric as they are; consider transform: log for skewed "
-                                   "amounts). Missing values get an indicator where blanks occur."]
-    notes.after[("features",)] = (["Left out of the features (add one back only if it is known when a "
-                                   "prediction is made):"] + [f"  {c} — {r}" for c, r in left_out.items()])
-    for i, (_, note) in enumerate(sensitive):
-        notes.at[("fairness", "sensitive", i)] = note
-    sensitive_blanks = [e for e, note in sensitive if "WARNING" in note]
-    for entry in sensitive_blanks:
-        name = entry["name"] if isinstance(entry, dict) else entry
-        checks.append(f"sensitive attribute '{name}' has blank cells: the build refuses blanks in a sensitive "
-                      "attribute; fill them in a copy of the file or remove it from fairness.sensitive")
-    notes.before[("fairness",)] = ["Attributes the model must not use, whose groups the card assesses (DRAFT: "
-                                   "drafted from column names; check the list)."]
-    folds = 5 if train_events >= 50 else 3
-    notes.before[("split",)] = [("Out-of-time split: the test part is the latest quarter of the rows by "
-                                 f"{roles.date_column}.") if out_of_time else
-                                "Random split, stratified by the target: a quarter of the rows for the test."]
-    notes.before[("cross_validation",)] = [f"Shared folds on the training part ({folds} folds for about "
-                                           f"{train_events} training events)."]
-    notes.before[("candidates",)] = ["Candidate models fitted on the same folds; a baseline is always added."]
-    notes.before[("costs",)] = ["PLACEHOLDER costs: set what a false alarm (flagging a case that turns out fine) "
-                                f"and a miss (an unflagged '{roles.positive}') cost in your setting;",
-                                "the adopted cut-off follows from their ratio."]
-    notes.before[("card",)] = ["The model card: DRAFT placeholders, write your own."]
-    config = {
-        "run": run or _run_name(data_path),
+    return checks
+
+
+def _config_doc(data: dict, roles: _Roles, *, features, sensitive, sizes: dict, run: str) -> dict:
+    """Every section a build needs, sized for the data (folds, bins, group size); no scoring section."""
+    return {
+        "run": run,
         "data": data,
         "features": features,
         "interactions": [],
-        "fairness": {"sensitive": [e for e, _ in sensitive], "segments": [], "use_sensitive_as_features": False,
-                     "min_group_size": min(100, max(20, test_rows // 10))},
-        "split": {"method": "out_of_time" if out_of_time else "stratified", "test_fraction": 0.25, "seed": 20261202},
-        "cross_validation": {"folds": folds, "repeats": 1, "seed": 7},
+        "fairness": {"sensitive": sensitive, "segments": [], "use_sensitive_as_features": False,
+                     "min_group_size": min(100, max(20, sizes["test_rows"] // 10))},
+        "split": {"method": "out_of_time" if roles.out_of_time else "stratified", "test_fraction": 0.25,
+                  "seed": 20261202},
+        "cross_validation": {"folds": 5 if sizes["train_events"] >= 50 else 3, "repeats": 1, "seed": 7},
         "candidates": [{"name": "logit_all", "kind": "logit"}, {"name": "probit_all", "kind": "probit"},
                        {"name": "cloglog_all", "kind": "cloglog"}, {"name": "lasso", "kind": "l1", "grid": GRID},
                        {"name": "ridge", "kind": "l2", "grid": GRID}],
         "selection": {"metric": "log_loss", "rule": "one_standard_error"},
         "costs": {"false_positive": 1, "false_negative": 5, "adopt": "empirical", "bootstrap": 300, "seed": 11},
-        "evaluation": {"calibration_bins": 10 if test_rows >= 500 else 5},
+        "evaluation": {"calibration_bins": 10 if sizes["test_rows"] >= 500 else 5},
         "card": {"title": f"DRAFT {roles.target} model", "version": "0.1.0",
                  "owner": "DRAFT: name the accountable team",
                  "intended_use": "DRAFT: say which decisions the model supports, for whom, and who reviews its flags.",
                  "out_of_scope": ["DRAFT: list uses the model is not for."]},
     }
+
+
+def _section_notes(notes: _Notes, roles: _Roles, left_out: dict, sizes: dict, *, folds: int) -> None:
+    notes.before[("data",)] = ["The data file, its contract, and the roles of its columns."]
+    notes.before[("features",)] = ["Model inputs (DRAFT: numeric as they are; consider transform: log for skewed "
+                                   "amounts). Missing values get an indicator where blanks occur."]
+    notes.after[("features",)] = (["Left out of the features (add one back only if it is known when a "
+                                   "prediction is made):"] + [f"  {c} — {r}" for c, r in left_out.items()])
+    notes.before[("fairness",)] = ["Attributes the model must not use, whose groups the card assesses (DRAFT: "
+                                   "drafted from column names; check the list)."]
+    notes.before[("split",)] = [f"Out-of-time split: the test part is the latest quarter of the rows by "
+                                f"{roles.date_column}." if roles.out_of_time else
+                                "Random split, stratified by the target: a quarter of the rows for the test."]
+    notes.before[("cross_validation",)] = [f"Shared folds on the training part ({folds} folds for about "
+                                           f"{sizes['train_events']} training events)."]
+    notes.before[("candidates",)] = ["Candidate models fitted on the same folds; a baseline is always added."]
+    notes.before[("costs",)] = ["PLACEHOLDER costs: set what a false alarm (flagging a case that turns out fine) "
+                                f"and a miss (an unflagged '{roles.positive}') cost in your setting;",
+                                "the adopted cut-off follows from their ratio."]
     notes.at[("costs", "false_positive")] = "PLACEHOLDER"
     notes.at[("costs", "false_negative")] = "PLACEHOLDER"
-    header = ["DRAFT written by `oddsmith init`: review every line before use.",
-              f"{n} rows, {events} with {roles.target} = {roles.positive} ({events / n:.1%}). "
-              "Keys: config/README.md."]
-    return _render(config, notes, header), checks
+    notes.before[("card",)] = ["The model card: DRAFT placeholders, write your own."]
 
 
 def _run_name(data_path) -> str:
