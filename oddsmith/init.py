@@ -47,7 +47,7 @@ OUTCOME_WORDS = {"outcome", "target", "label", "y", "bad", "died", "death", "dea
 WEAK_OUTCOME_WORDS = {"status", "result", "class", "flag"}
 # A name with one of these tokens counts something that happened before (prior_claims).
 HISTORY_WORDS = {"prior", "previous", "past", "last", "history", "hist", "num", "number", "n", "count",
-                 "total", "times", "nb", "ever", "amount", "amt", "cost", "paid"}
+                 "total", "times", "nb", "ever"}
 # Targets whose "yes" is the favourable outcome: the adverse level is then the "no".
 FAVOURABLE_TARGETS = ("approv", "accept", "pass", "surviv", "repaid", "paid", "grant")
 
@@ -381,7 +381,8 @@ def _leave_out_reason(raw: pd.DataFrame, name: str, spec: dict, event: pd.Series
         return f"free text or a code with {spec['_distinct']} distinct values (more than {MAX_LEVELS})"
     if spec["_distinct"] <= 1:
         return "the same value on every row"
-    if _outcome_strength(name) == 2:
+    if _outcome_strength(name) == 2 and not (spec["type"] == "category" and spec["_distinct"] > 2):
+        # a many-level category (a loan grade A-G) is an assessment, not an outcome
         return "its name reads like another outcome, which is not known when a prediction is made"
     auc = _column_auc(raw[name], spec, event)
     if _near_perfect(auc):

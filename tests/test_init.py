@@ -338,3 +338,18 @@ def test_tokens():
     assert _tokens("serious_delinquency") == ["serious", "delinquency"]
     assert _tokens("ownerAgeBand") == ["owner", "age", "band"]
     assert _tokens("GRADE") == ["grade"]
+
+
+def test_other_outcomes_are_left_out_but_a_grade_scale_is_not(tmp_path, monkeypatch, capsys):
+    # invented: a second outcome (readmitted) next to the target (died), and a many-level grade
+    rng = np.random.default_rng(5)
+    n = 300
+    frame = pd.DataFrame({"patient_id": [f"P{i}" for i in range(n)], "prior_claims": rng.integers(0, 4, n),
+                          "grade": rng.choice(list("ABCDE"), n), "bmi": rng.normal(27, 4, n).round(1),
+                          "readmitted": rng.choice(["yes", "no"], n), "died": rng.choice(["yes", "no"], n, p=[.1, .9])})
+    _project(tmp_path, monkeypatch, frame)
+    assert _init("data.csv", "--target", "died") == 0
+    text, config, _ = _drafts(tmp_path)
+    assert {f["name"] for f in config["features"]} == {"prior_claims", "grade", "bmi"}
+    assert "#   readmitted — its name reads like another outcome" in text
+    assert config["data"]["positive_label"] == "yes"
