@@ -16,9 +16,15 @@ these commands help around it."""
 def _cmd_init(args) -> int:
     from oddsmith.init import draft
 
-    contract, config = draft(args.data, contract_out=args.contract, config_out=args.config, run=args.run)
-    print(f"drafted {contract} and {config}; review both (marked DRAFT), then run:\n"
-          f"  snakemake --cores 2 --configfile {config}")
+    result = draft(args.data, contract_out=args.contract, config_out=args.config, run=args.run,
+                   target=args.target, positive=args.positive, id_column=args.id)
+    print(f"drafted {result.contract} and {result.config}")
+    for line in result.summary:
+        print(f"  {line}")
+    for line in result.checks:
+        print(f"CHECK: {line}")
+    print(f"review both (marked DRAFT; guesses marked GUESSED, costs PLACEHOLDER), then run:\n"
+          f"  snakemake --cores 2 --configfile {result.config}")
     return 0
 
 
@@ -31,6 +37,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--contract", default="schemas/contracts/draft.yaml", help="where to write the draft contract (default: %(default)s)")
     p.add_argument("--config", default="config/draft.yaml", help="where to write the draft config (default: %(default)s)")
     p.add_argument("--run", help="run name (default: the file's stem)")
+    p.add_argument("--target", metavar="COLUMN", help="the yes/no outcome column (default: guessed, and said so)")
+    p.add_argument("--positive", metavar="LEVEL",
+                   help="the target's value that is the event, the adverse outcome (default: guessed by meaning)")
+    p.add_argument("--id", metavar="COLUMN", help="the column with one distinct value per row (default: guessed)")
     p.set_defaults(func=_cmd_init)
     for register in _REGISTRARS:
         register(sub)
