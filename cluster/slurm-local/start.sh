@@ -22,11 +22,16 @@ fail() { echo "slurm-local: $*" >&2; exit 1; }
 for tool in munged slurmctld slurmd sbatch scontrol; do
   command -v "$tool" >/dev/null || fail "'$tool' not found; install Debian's packages: apt-get install slurm-wlm munge"
 done
-if [[ -e $dir/slurmctld.pid ]] && kill -0 "$(cat "$dir/slurmctld.pid")" 2>/dev/null; then
+if [[ -e $dir/slurmctld.pid && $(cat "/proc/$(cat "$dir/slurmctld.pid")/comm" 2>/dev/null) == slurmctld ]]; then
   fail "already running from $dir (stop it first with $here/stop.sh)"
 fi
 
-rm -rf "$dir"
+# A fresh cluster each time; clear only a folder this script made (it holds slurm.conf).
+if [[ -d $dir && -n $(ls -A "$dir") ]]; then
+  grep -qs '^# Written by cluster/slurm-local/start.sh' "$dir/slurm.conf" \
+    || fail "$dir is not empty and was not made by this script; choose another ODDSMITH_SLURM_DIR"
+  rm -rf "$dir"
+fi
 mkdir -p -m 0700 "$dir"
 mkdir -p -m 0700 "$dir/munge" "$dir/state" "$dir/spool"
 dir="$(cd "$dir" && pwd)"

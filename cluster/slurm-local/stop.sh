@@ -7,7 +7,8 @@ dir="${ODDSMITH_SLURM_DIR:-/tmp/oddsmith-slurm}"
 export SLURM_CONF="$dir/slurm.conf"
 [[ -d $dir ]] || { echo "slurm-local: nothing to stop ($dir does not exist)"; exit 0; }
 
-alive() { [[ -e $dir/$1.pid ]] && kill -0 "$(cat "$dir/$1.pid")" 2>/dev/null; }
+# Alive only if the recorded process id still runs that daemon (a reused id is left alone).
+alive() { [[ -e $dir/$1.pid && $(cat "/proc/$(cat "$dir/$1.pid")/comm" 2>/dev/null) == "$1" ]]; }
 
 # Jobs first, while the controller can still end them (slurmstepd outlives slurmd otherwise).
 if alive slurmctld && alive slurmd; then
