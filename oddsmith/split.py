@@ -170,8 +170,8 @@ def feasibility(df: pd.DataFrame, *, id_column: str, target: str, split: dict, c
         is_test, _ = _out_of_time_parts(_dates_for_summary(df, settings), settings)
         problems += _part_problems(y, is_test)
         train_events = int(y[~is_test].sum())
-        problems += [] if problems else _fold_feasibility_problems(
-            train_events, int((~is_test).sum()) - train_events, None, n_folds)
+        if (~is_test).any():
+            problems += _fold_feasibility_problems(train_events, int((~is_test).sum()) - train_events, None, n_folds)
         outcome.update(is_test=is_test, train_rows=int((~is_test).sum()))
     elif settings["method"] == "stratified":
         try:
@@ -184,7 +184,7 @@ def feasibility(df: pd.DataFrame, *, id_column: str, target: str, split: dict, c
         n_test = int(is_test.sum())
         most_events = events - (events * n_test) // n
         most_non_events = (n - events) - ((n - events) * n_test) // n
-        problems += _fold_feasibility_problems(most_events, most_non_events, None, n_folds)
+        problems += _fold_feasibility_problems(most_events, most_non_events, None, n_folds, bound="at most ")
         outcome["train_rows"] = n - n_test
     else:
         groups = _group_codes(df, settings)
@@ -509,8 +509,9 @@ def _check_fold_feasible(y_train, groups_train, settings) -> None:
 
 
 def _fold_feasibility_problems(events: int, non_events: int, n_groups: int | None, n_folds: int, *,
-                               where: str = "the training part") -> list[str]:
-    """Problems of ``n_folds`` stratified folds on rows with these counts (and groups)."""
+                               where: str = "the training part", bound: str = "") -> list[str]:
+    """Problems of ``n_folds`` stratified folds on rows with these counts (and groups);
+    ``bound`` ("at most ") marks counts that are upper bounds."""
     problems = []
     if events < n_folds or non_events < n_folds:
         fewer = min(events, non_events)
@@ -520,7 +521,7 @@ def _fold_feasibility_problems(events: int, non_events: int, n_groups: int | Non
             f"non-events in {where}: gather more rows" + (" or move the split" if where == "the training part" else "")
         )
         problems.append(
-            f"{where} has {events} events and {non_events} non-events, fewer than "
+            f"{where} has {bound}{events} events and {bound}{non_events} non-events, fewer than "
             f"{n_folds} folds (cross_validation.folds): some fold would have no events; {advice}"
         )
     if n_groups is not None and n_groups < n_folds:

@@ -240,18 +240,18 @@ def _fit_size_problems(config: dict, contract: dict, train_rows: int) -> list[st
     holds out at least ceil(n/k) rows, so its fit sees at most n - ceil(n/k)."""
     folds = config["cross_validation"]["folds"]
     fold_rows = train_rows - math.ceil(train_rows / folds)
-    problems = []
+    too_wide = []
     for c in config["candidates"]:
-        if c["kind"] not in UNPENALISED_KINDS:
-            continue
         n_parameters = planned_parameters(config, contract, features=c.get("features"))
-        if n_parameters > fold_rows:
-            problems.append(
-                f"candidates.{c['name']}: {n_parameters} parameters, but a cross-validation fit sees at most "
-                f"{fold_rows} rows ({train_rows} training rows, {folds} folds); no {c['kind']} fit is possible: "
-                "use fewer features, a penalised kind (l1, l2, elastic_net), or more rows"
-            )
-    return problems
+        if c["kind"] in UNPENALISED_KINDS and n_parameters > fold_rows:
+            too_wide.append(f"{c['name']} ({c['kind']}, {n_parameters} parameters)")
+    if not too_wide:
+        return []
+    return [
+        f"candidates: {', '.join(too_wide)} have more parameters than the at most {fold_rows} rows a "
+        f"cross-validation fit sees ({train_rows} training rows, {folds} folds), so no unpenalised fit is "
+        "possible: use fewer features, a penalised kind (l1, l2, elastic_net), or more rows"
+    ]
 
 
 # Rows per row group of the validated Parquet snapshot.

@@ -14,7 +14,7 @@ try:
     # refuses YAML aliases before anything walks the configuration (a few lines of nested
     # aliases stand for billions of values) and names the file, line and column.
     for _path in workflow.configfiles:
-        read_config_file(_path)
+        read_config_file(os.path.relpath(_path))
     CONFIG = check_config(config, project_dir=".")
 except ConfigError as exc:
     sys.exit(f"oddsmith: {exc}")
