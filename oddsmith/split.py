@@ -42,7 +42,7 @@ import numpy as np
 import pandas as pd
 from scipy.special import ndtr
 
-from oddsmith.errors import EventsPerVariableWarning, SplitError
+from oddsmith.errors import EventsPerVariableWarning, SplitError, quoted
 from oddsmith.io import write_parquet
 
 METHODS = ("stratified", "out_of_time", "grouped")
@@ -236,9 +236,9 @@ def _check_settings(settings: dict, n_parameters) -> list[str]:
     problems = []
     fraction = settings["test_fraction"]
     if isinstance(fraction, bool) or not isinstance(fraction, (int, float)) or not 0 < fraction < 1:
-        problems.append(f"test_fraction must be strictly between 0 and 1, got {fraction!r}")
+        problems.append(f"test_fraction must be strictly between 0 and 1, got {quoted(fraction)}")
     if settings["method"] not in METHODS:
-        problems.append(f"split method must be one of {', '.join(METHODS)}, got {settings['method']!r}")
+        problems.append(f"split method must be one of {', '.join(METHODS)}, got {quoted(settings['method'])}")
     if not _is_int(settings["folds"]) or settings["folds"] < 2:
         problems.append(f"cross_validation folds must be an integer >= 2, got {settings['folds']!r}")
     if not _is_int(settings["repeats"]) or settings["repeats"] < 1:
@@ -278,7 +278,7 @@ def _check_target(values: pd.Series, ids: pd.Series, positive_label) -> list[str
     bad = ~np.isin(numeric.to_numpy(dtype=float, na_value=np.nan), (0.0, 1.0))
     if bad.any():
         shown = sorted({str(v) for v in values[bad].tolist()})[:_EXAMPLES]
-        return [f"target must hold 0/1 values; found {', '.join(shown)} at ids {_examples(ids, bad)}"]
+        return [f"target must hold 0/1 values; found {', '.join(map(quoted, shown))} at ids {_examples(ids, bad)}"]
     return []
 
 
@@ -314,7 +314,7 @@ def _check_dates(df: pd.DataFrame, ids: pd.Series, settings: dict) -> list[str]:
 def _check_cutoff(dates: pd.Series, cutoff_text) -> list[str]:
     cutoff = _parse_cutoff(cutoff_text, dates)
     if cutoff is None:
-        return [f"cutoff_date {cutoff_text!r} is not an ISO date"]
+        return [f"cutoff_date {quoted(cutoff_text)} is not an ISO date"]
     first, last = dates.min(), dates.max()
     if cutoff <= first or cutoff > last:
         empty = "training" if cutoff <= first else "test"
@@ -676,7 +676,7 @@ def _parse_dates(values: pd.Series, ids: pd.Series, column: str) -> tuple[pd.Ser
         return values, [f"date column {column!r} cannot be parsed as dates: {exc}"]
     bad = (values.notna() & parsed.isna()).to_numpy()
     if bad.any():
-        shown = ", ".join(repr(v) for v in values[bad].head(_EXAMPLES).tolist())
+        shown = ", ".join(quoted(v) for v in values[bad].head(_EXAMPLES).tolist())
         return parsed, [
             f"date column {column!r} has {int(bad.sum())} values that are not ISO dates ({shown}), "
             f"e.g. ids {_examples(ids, bad)}"
@@ -714,7 +714,7 @@ def _iso(stamp) -> str:
 
 
 def _examples(ids: pd.Series, mask) -> str:
-    return ", ".join(repr(v) for v in ids[np.asarray(mask)].head(_EXAMPLES).tolist())
+    return ", ".join(quoted(v) for v in ids[np.asarray(mask)].head(_EXAMPLES).tolist())
 
 
 def _positions(mask) -> str:

@@ -318,7 +318,7 @@ def test_non_binary_target_and_repeated_ids():
     with pytest.raises(SplitError) as error:
         _assign(df)
     message = str(error.value)
-    assert "0/1 values; found 2 at ids 'L00003'" in message
+    assert "0/1 values; found '2' at ids 'L00003'" in message
     assert "2 rows with repeated ids, e.g. 'L00007', 'L00007'" in message
 
 

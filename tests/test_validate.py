@@ -169,14 +169,40 @@ def test_target_not_in_contract(cfg, tmp_path):
     _expect_failure(cfg, tmp_path, DEMO, "data.target: column 'defaulted' is not declared in the data contract")
 
 
+@pytest.mark.e2e
 def test_workflow_stops_before_any_output_on_bad_data(project):
     data = project / "data_demo" / "lease_applications.csv"
     text = data.read_text().replace("LA-000010,", "LA-000009,", 1)
     data.write_text(text)
+    before = sha256_file(data)
     result = run_snakemake(project, check=False)
     assert result.returncode != 0
-    assert "check unique" in result.stderr + (project / "logs/lease_demo/validate.log").read_text()
-    assert not (project / "results/lease_demo/validated/data.parquet").exists()
+    terminal = result.stderr + result.stdout
+    # one readable block on the terminal: the rule, the class, the column, the check, the row id
+    assert "oddsmith: rule validate stopped (ContractError)" in terminal
+    assert "column 'application_id', check unique: 2 row(s) fail, e.g. LA-000009" in terminal
+    assert "Traceback" not in terminal
+    assert "Traceback" in (project / "logs/lease_demo/validate.log").read_text()
+    assert not (project / "results").exists() or not any(p.is_file() for p in (project / "results").rglob("*"))
+    assert sha256_file(data) == before
+
+
+@pytest.mark.e2e
+def test_workflow_refuses_an_alias_bomb_in_a_config_file_before_walking_it(project):
+    """Snakemake parses --configfile itself (cheaply: aliases become shared references); the
+    workflow reads each config file again with oddsmith's reader before checking the config, so
+    the bomb is refused by name instead of exhausting memory while the config is walked."""
+    from test_io import alias_bomb
+
+    cfg = project / "config" / "config.yaml"
+    bombed = project / "config" / "bombed.yaml"
+    bombed.write_text(cfg.read_text().replace("  title: Equipment-lease", f"  title: {alias_bomb()}\n  x: ", 1))
+    result = run_snakemake(project, "--dry-run", "--configfile", "config/bombed.yaml", check=False)
+    terminal = result.stderr + result.stdout
+    assert result.returncode != 0
+    assert "configuration file config/bombed.yaml is not valid YAML: line " in terminal
+    assert "anchors and aliases are not accepted, found &a0" in terminal and "Traceback" not in terminal
+    assert not (project / "results").exists()
 
 
 def test_workflow_refuses_bad_config(project):
