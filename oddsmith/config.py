@@ -14,7 +14,7 @@ from pathlib import Path
 import jsonschema
 import yaml
 
-from oddsmith.errors import ConfigError
+from oddsmith.errors import ConfigError, quoted
 from oddsmith.io import read_yaml
 
 SCHEMA_PATH = Path(__file__).resolve().parent.parent / "schemas" / "config.schema.yaml"
@@ -71,11 +71,38 @@ def check_config(raw: dict, *, project_dir: str | Path = ".") -> dict:
         raise ConfigError(
             f"the configuration has {len(errors)} problem(s)", [_describe_schema_error(e) for e in errors]
         )
-    problems = _cross_key_problems(config, Path(project_dir))
+    problems = _sensitive_bands(config["fairness"])
+    problems += _cross_key_problems(config, Path(project_dir))
     if problems:
         raise ConfigError(f"the configuration has {len(problems)} problem(s)", problems)
     _add_baseline(config)
     return config
+
+
+def _sensitive_bands(fairness: dict) -> list[str]:
+    """Split ``fairness.sensitive`` into names and, for banded numeric attributes, a
+    ``fairness.bands`` mapping (name → edges; present only when some attribute has bands),
+    so every later stage reads plain names. Returns the problems of the bands."""
+    names, bands, problems = [], {}, []
+    for i, entry in enumerate(fairness["sensitive"]):
+        name = entry if isinstance(entry, str) else entry["name"]
+        if name in names:
+            problems.append(f"fairness.sensitive.{i}: '{name}' is listed more than once; list each attribute once")
+        names.append(name)
+        if isinstance(entry, dict):
+            edges = entry["bands"]
+            bad = [e for e in edges if not math.isfinite(e)]
+            rising = all(a < b for a, b in zip(edges, edges[1:]))
+            if bad or not rising:
+                problems.append(
+                    f"fairness.sensitive.{i}.bands ('{name}'): expected strictly increasing finite numbers, "
+                    f"found {quoted(edges)}"
+                )
+            bands[name] = list(edges)
+    fairness["sensitive"] = names
+    if bands:
+        fairness["bands"] = bands
+    return problems
 
 
 def _describe_schema_error(error) -> str:
@@ -85,7 +112,7 @@ def _describe_schema_error(error) -> str:
         return f"{where}: {error.message}; allowed keys here: {', '.join(allowed)}"
     if error.validator == "required":
         return f"{where}: {error.message}"
-    return f"{where}: expected {error.validator} {error.validator_value!r}, found {error.instance!r} ({error.message})"
+    return f"{where}: expected {error.validator} {quoted(error.validator_value)}, found {quoted(error.instance)}"
 
 
 def _cross_key_problems(config: dict, project_dir: Path) -> list[str]:

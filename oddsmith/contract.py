@@ -10,15 +10,16 @@ Typing is done here; the value checks run through a pandera schema built from th
 from __future__ import annotations
 
 import codecs
-
+import csv
 import math
+import re
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pandera.pandas as pa
 
-from oddsmith.errors import ContractError
+from oddsmith.errors import ContractError, quoted
 from oddsmith.io import read_yaml
 
 CONTRACT_FORMAT = "oddsmith-contract/1"
@@ -43,19 +44,19 @@ def load_contract(path: str | Path) -> dict:
 def _contract_problems(doc) -> list[str]:
     if not isinstance(doc, dict) or doc.get("format") != CONTRACT_FORMAT:
         found = doc.get("format") if isinstance(doc, dict) else type(doc).__name__
-        return [f"format: expected '{CONTRACT_FORMAT}', found {found!r}"]
+        return [f"format: expected '{CONTRACT_FORMAT}', found {quoted(found)}"]
     if not isinstance(doc.get("columns"), dict) or not doc["columns"]:
         return ["columns: expected a mapping of column name to its declaration"]
     problems = []
     for name, spec in doc["columns"].items():
         if not isinstance(spec, dict):
-            problems.append(f"columns.{name}: expected a mapping, found {spec!r}")
+            problems.append(f"columns.{name}: expected a mapping, found {quoted(spec)}")
             continue
         unknown = sorted(set(spec) - COLUMN_KEYS)
         if unknown:
             problems.append(f"columns.{name}: unknown key(s) {unknown}; allowed: {sorted(COLUMN_KEYS)}")
         if spec.get("type") not in COLUMN_TYPES:
-            problems.append(f"columns.{name}.type: expected one of {list(COLUMN_TYPES)}, found {spec.get('type')!r}")
+            problems.append(f"columns.{name}.type: expected one of {list(COLUMN_TYPES)}, found {quoted(spec.get('type'))}")
         if spec.get("type") == "category" and not spec.get("levels"):
             problems.append(f"columns.{name}: a category column needs a non-empty 'levels' list")
     return problems
@@ -73,16 +74,40 @@ def read_raw(path: str | Path, *, encoding: str = "utf-8") -> pd.DataFrame:
     codec = "utf-8-sig" if encoding == "utf-8" else encoding
     if not _check_decodes(path, codec, encoding):
         raise ContractError(f"data file {path} is empty (0 rows, no header)")
-    df = pd.read_csv(path, dtype=str, keep_default_na=False, na_values=[""], encoding=codec)
+    try:
+        df = pd.read_csv(path, dtype=str, keep_default_na=False, na_values=[""], encoding=codec)
+    except pd.errors.ParserError as exc:
+        raise ContractError(_parser_message(path, exc)) from None
     if len(df.columns) == 1 and any(sep in df.columns[0] for sep in (";", "\t", "|")):
         sep = next(s for s in (";", "\t", "|") if s in df.columns[0])
         raise ContractError(
-            f"data file {path} has a single column {df.columns[0][:60]!r}: it looks delimited by "
+            f"data file {path} has a single column {quoted(df.columns[0])}: it looks delimited by "
             f"{sep!r}, but oddsmith reads comma-separated files; re-save it with commas"
         )
     if df.empty:
         raise ContractError(f"data file {path} has a header but no data rows")
+    # pandas renames a repeated name ("region", "region.1"); the header as written is kept so
+    # that the contract check reports the repeat itself.
+    df.attrs["header"] = _header(path, codec)
     return df
+
+
+def _header(path: Path, codec: str) -> list[str]:
+    """The column names exactly as the file's first record spells them."""
+    with path.open(encoding=codec, newline="") as handle:
+        return next(csv.reader(handle), [])
+
+
+def _parser_message(path: Path, exc: Exception) -> str:
+    """A ragged row: the line, the field counts expected (the header's) and found."""
+    found = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", str(exc))
+    if not found:
+        return f"data file {path} cannot be read as CSV: {quoted(str(exc), limit=200)}"
+    expected, line, seen = found.groups()
+    return (
+        f"data file {path}, line {line}: expected {expected} fields (as many as the header has), "
+        f"found {seen}; a value that contains a comma must be enclosed in double quotes"
+    )
 
 
 def _check_decodes(path: Path, codec: str, encoding: str, chunk_bytes: int = 1 << 24) -> bool:
@@ -152,18 +177,23 @@ def _header_problems(raw, columns, contract, *, id_column, target, extra) -> lis
     for key, name in (("id_column", id_column), ("target", target)):
         if name is not None and name not in contract["columns"]:
             problems.append(f"config data.{key} '{name}' is not declared in the data contract")
-    present = list(raw.columns)
+    present = list(raw.attrs.get("header") or raw.columns)
     for name in sorted({c for c in present if present.count(c) > 1}):
-        problems.append(f"column '{name}' appears {present.count(name)} times in the header")
+        places = ", ".join(str(i + 1) for i, c in enumerate(present) if c == name)
+        problems.append(
+            f"column {quoted(name)} appears {present.count(name)} times in the header (positions {places}); "
+            "each column name must appear once"
+        )
     missing = [n for n, s in columns.items() if s["required"] and n not in present]
     if target is None:
         missing = [n for n in missing if n != contract.get("_target")]
     for name in missing:
         problems.append(f"column '{name}': required by the contract, not found in the file")
-    unexpected = [c for c in present if c not in contract["columns"]]
+    unexpected = list(dict.fromkeys(c for c in present if c not in contract["columns"]))
     if unexpected and extra == "reject":
         problems.append(
-            f"column(s) {unexpected} are not declared in the contract (data.extra_columns is 'reject'; "
+            f"column(s) {', '.join(quoted(c) for c in unexpected[:10])}"
+            f"{f' and {len(unexpected) - 10} more' if len(unexpected) > 10 else ''} are not declared in the contract (data.extra_columns is 'reject'; "
             "declare them or set it to 'ignore')"
         )
     return problems
@@ -171,7 +201,13 @@ def _header_problems(raw, columns, contract, *, id_column, target, extra) -> lis
 
 def _examples(mask: pd.Series, ids: pd.Series, values: pd.Series) -> str:
     rows = np.flatnonzero(mask.to_numpy())[:EXAMPLES]
-    return ", ".join(f"{ids.iloc[i]}={values.iloc[i]!r}" for i in rows)
+    return ", ".join(f"{_id(ids.iloc[i])}={quoted(values.iloc[i])}" for i in rows)
+
+
+def _id(value) -> str:
+    """A row id in a message (an id is printed bare unless it is long enough to be cut)."""
+    text = str(value)
+    return text if len(text) <= 60 else quoted(text)
 
 
 def _coerce(raw: pd.DataFrame, columns: dict, ids: pd.Series):
@@ -258,7 +294,7 @@ def _check_values(typed: pd.DataFrame, columns: dict, ids: pd.Series, unparsed: 
         rows = np.array([r for r in rows if r not in unparsed.get(column, ())], dtype=int)
         if rows.size == 0:
             continue
-        shown = ", ".join(f"{ids.iloc[i]}={_show(typed[column].iloc[i])}" for i in rows[:EXAMPLES])
+        shown = ", ".join(f"{_id(ids.iloc[i])}={_show(typed[column].iloc[i])}" for i in rows[:EXAMPLES])
         problems.append(f"column '{column}', check {_check_name(check)}: {len(rows)} row(s) fail, e.g. {shown}")
     return problems
 
@@ -268,7 +304,7 @@ def _show(value) -> str:
         return "(missing)"
     if isinstance(value, pd.Timestamp):
         return value.date().isoformat()
-    return repr(value.item() if hasattr(value, "item") else value)
+    return quoted(value.item() if hasattr(value, "item") else value)
 
 
 def _check_name(check: str) -> str:
@@ -279,10 +315,12 @@ def _target_problems(values: pd.Series, name: str, positive: str, spec: dict) ->
     problems = []
     levels = [str(v) for v in spec.get("levels", [])]
     if spec["type"] != "category" or len(levels) != 2:
-        problems.append(f"target '{name}': the contract must declare it as a category with exactly two levels, found {spec}")
+        problems.append(
+            f"target '{name}': the contract must declare it as a category with exactly two levels, found {quoted(spec)}"
+        )
     if positive not in levels:
-        problems.append(f"target '{name}': positive_label {positive!r} is not one of its levels {levels}")
+        problems.append(f"target '{name}': positive_label {quoted(positive)} is not one of its levels {quoted(levels)}")
     present = sorted(values.dropna().unique())
     if len(present) == 1:
-        problems.append(f"target '{name}': only one class present ({present[0]!r}); a yes/no model needs both")
+        problems.append(f"target '{name}': only one class present ({quoted(present[0])}); a yes/no model needs both")
     return problems

@@ -26,6 +26,11 @@ class ContractError(OddsmithError):
     """The data does not satisfy its data contract."""
 
 
+class DataError(ContractError):
+    """The data passes its contract but cannot support what the configuration asks of it
+    (the split, the folds, the groups to assess, the fits)."""
+
+
 class SplitError(OddsmithError):
     """A split or fold assignment cannot be made as configured."""
 
@@ -56,3 +61,30 @@ class SeparationWarning(UserWarning):
 
 class EventsPerVariableWarning(UserWarning):
     """Fewer than 10 events per estimated parameter (Peduzzi et al. 1996)."""
+
+
+#: Longest quoted value, in characters, before it is cut (a message must stay readable even
+#: when a cell holds a whole document).
+QUOTE_LIMIT = 60
+
+
+def quoted(value, *, limit: int = QUOTE_LIMIT) -> str:
+    """``repr(value)`` for a message, cut to about ``limit`` characters with the cut marked.
+
+    Every value a message quotes (cells, ids, config values) goes through here.
+
+    Examples
+    --------
+    >>> quoted("abc")
+    "'abc'"
+    >>> quoted("x" * 1000, limit=5)
+    "'xxxxx'… (cut; 1,000 characters in all)"
+    """
+    if isinstance(value, str):
+        if len(value) <= limit:
+            return repr(value)
+        return f"{value[:limit]!r}… (cut; {len(value):,} characters in all)"
+    text = repr(value)
+    if len(text) <= limit:
+        return text
+    return f"{text[:limit]}… (cut; {len(text):,} characters in all)"

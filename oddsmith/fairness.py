@@ -107,6 +107,49 @@ def adverse_impact(rates: dict) -> dict:
 
 
 # ---------------------------------------------------------------------------------------------
+# groups of an attribute
+
+
+def _edge_text(edge) -> str:
+    return f"{edge:g}" if isinstance(edge, float) and not float(edge).is_integer() else str(int(edge))
+
+
+def band_labels(bands) -> list[str]:
+    """Labels of the groups a numeric attribute's band edges make, lowest first.
+
+    Examples
+    --------
+    >>> band_labels([30, 45, 60])
+    ['below 30', '30 to <45', '45 to <60', '60 and over']
+    """
+    edges = [_edge_text(b) for b in bands]
+    inner = [f"{low} to <{high}" for low, high in zip(edges, edges[1:])]
+    return [f"below {edges[0]}", *inner, f"{edges[-1]} and over"]
+
+
+def attribute_groups(values, *, bands=None) -> np.ndarray:
+    """The group label of every row: the value as text, or its band's label when ``bands``
+    (strictly increasing edges) is given. A band holds its lower edge, not its upper one.
+    Missing values stay missing (None).
+
+    Examples
+    --------
+    >>> attribute_groups(pd.Series([29, 30, 59.5, 60, None]), bands=[30, 45, 60]).tolist()
+    ['below 30', '30 to <45', '45 to <60', '60 and over', None]
+    """
+    series = pd.Series(values).reset_index(drop=True)
+    missing = series.isna().to_numpy()
+    if bands is None:
+        labels = series.astype(str).to_numpy(dtype=object)
+    else:
+        numbers = pd.to_numeric(series, errors="raise").to_numpy(dtype=float, na_value=np.nan)
+        names = np.array(band_labels(bands), dtype=object)
+        labels = names[np.searchsorted(np.asarray(bands, dtype=float), np.nan_to_num(numbers), side="right")]
+    labels[missing] = None
+    return labels
+
+
+# ---------------------------------------------------------------------------------------------
 # subgroup table
 
 

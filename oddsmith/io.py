@@ -184,12 +184,53 @@ def read_parquet_matrix(path: str | Path, columns: list[str]):
     return out
 
 
+class _PlainLoader(yaml.SafeLoader):
+    """A safe loader that refuses anchors and aliases before any node is built.
+
+    An alias shares one node between many places; a few lines of aliases can stand for
+    billions of values (a "billion laughs" document) that any walk of the result expands.
+    oddsmith's YAML files (config, contract) need neither, so they are refused outright.
+    """
+
+    def compose_node(self, parent, index):
+        event = self.peek_event()
+        if isinstance(event, yaml.AliasEvent) or getattr(event, "anchor", None) is not None:
+            found = f"*{event.anchor}" if isinstance(event, yaml.AliasEvent) else f"&{event.anchor}"
+            raise yaml.MarkedYAMLError(
+                problem=f"YAML anchors and aliases are not accepted, found {found}; write each value out in full",
+                problem_mark=event.start_mark,
+            )
+        return super().compose_node(parent, index)
+
+
+def _yaml_problem(exc: yaml.YAMLError) -> str:
+    """Line, column and problem of a YAML error (marks are 0-based, people count from 1)."""
+    mark = getattr(exc, "problem_mark", None) or getattr(exc, "context_mark", None)
+    problem = getattr(exc, "problem", None) or str(exc)
+    context = getattr(exc, "context", None)
+    where = f"line {mark.line + 1}, column {mark.column + 1}: " if mark is not None else ""
+    return where + problem + (f" ({context})" if context else "")
+
+
+def parse_yaml(text: str):
+    """Parse YAML text with the project's one loader (safe types only, no anchors or aliases)."""
+    return yaml.load(text, Loader=_PlainLoader)  # noqa: S506 (a SafeLoader subclass)
+
+
 def read_yaml(path: str | Path, *, what: str, error=ArtifactError):
-    """Read a YAML file; a missing or malformed file raises ``error`` naming ``what`` and the path."""
+    """Read a YAML file; a missing or malformed file raises ``error`` naming ``what`` and the path.
+
+    The message of a syntax error gives the line and column; anchors and aliases are refused
+    (see :class:`_PlainLoader`), so a hostile file cannot expand into billions of values.
+    """
     path = Path(path)
     if not path.is_file():
         raise error(f"{what} not found: {path}")
     try:
-        return yaml.safe_load(path.read_text(encoding="utf-8"))
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise error(f"{what} {path} is not UTF-8 text: byte 0x{exc.object[exc.start]:02x} at offset {exc.start}") from None
+    try:
+        return parse_yaml(text)
     except yaml.YAMLError as exc:
-        raise error(f"{what} {path} is not valid YAML: {exc}") from None
+        raise error(f"{what} {path} is not valid YAML: {_yaml_problem(exc)}") from None

@@ -15,6 +15,7 @@ import os
 import sys
 from pathlib import Path
 
+from oddsmith.errors import OddsmithError
 from oddsmith.io import canonical_json, sha256_file, write_json
 
 LOG_FORMAT = "%(levelname)s %(name)s: %(message)s"
@@ -56,19 +57,53 @@ def stage(snakemake, function, **kwargs):
     stderr and the ``oddsmith`` loggers go to ``snakemake.log[0]``; BLAS/OpenMP pools are
     limited to ``snakemake.threads``. The output named ``stamp`` (if the rule has one) is
     written last.
+
+    One of the project's own errors (:class:`~oddsmith.errors.OddsmithError`: bad data,
+    config or artifact) is written to the log with its traceback and shown on the job's
+    original stderr as one readable block, and the job exits with status 1 without a Python
+    traceback on the terminal. Any other exception is a bug and propagates unchanged.
     """
     log_path = snakemake.log[0]
     Path(log_path).parent.mkdir(parents=True, exist_ok=True)
     handle = open(log_path, "w", encoding="utf-8")
+    terminal = sys.__stderr__  # the job's own stderr, before it is sent to the log
     sys.stderr = handle
     logging.basicConfig(stream=handle, level=logging.INFO, format=LOG_FORMAT, force=True)
     from threadpoolctl import threadpool_limits
 
-    with threadpool_limits(limits=int(snakemake.threads)):
-        result = function(**kwargs)
+    try:
+        with threadpool_limits(limits=int(snakemake.threads)):
+            result = function(**kwargs)
+    except OddsmithError as exc:
+        logging.getLogger("oddsmith").error("%s failed", snakemake.rule, exc_info=True)
+        handle.flush()
+        if terminal is not None:
+            terminal.write(failure_block(snakemake.rule, exc, log_path=log_path))
+            terminal.flush()
+        raise SystemExit(1) from None
     if "stamp" in snakemake.output.keys():
         write_stamp(snakemake)
     return result
+
+
+def failure_block(rule: str, exc: OddsmithError, *, log_path: str) -> str:
+    """The text shown on the terminal when a job stops on one of the project's errors.
+
+    Examples
+    --------
+    >>> from oddsmith.errors import ContractError
+    >>> print(failure_block("validate", ContractError("bad", ["column 'x': ..."]), log_path="v.log"), end="")
+    <BLANKLINE>
+    oddsmith: rule validate stopped (ContractError)
+    bad
+      - column 'x': ...
+    Nothing was written by this step. Full detail: v.log
+    <BLANKLINE>
+    """
+    return (
+        f"\noddsmith: rule {rule} stopped ({type(exc).__name__})\n{exc}\n"
+        f"Nothing was written by this step. Full detail: {log_path}\n\n"
+    )
 
 
 def write_stamp(snakemake) -> None:

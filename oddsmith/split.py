@@ -42,7 +42,7 @@ import numpy as np
 import pandas as pd
 from scipy.special import ndtr
 
-from oddsmith.errors import EventsPerVariableWarning, SplitError
+from oddsmith.errors import EventsPerVariableWarning, SplitError, quoted
 from oddsmith.io import write_parquet
 
 METHODS = ("stratified", "out_of_time", "grouped")
@@ -50,6 +50,8 @@ METHODS = ("stratified", "out_of_time", "grouped")
 MIN_EVENTS_PER_PARAMETER = 10
 # Threshold of the train/test base-rate test; a project choice, not a published rule.
 BASE_RATE_ALPHA = 0.01
+#: The fewest folds cross-validation can have (the config schema's minimum).
+MIN_FOLDS = 2
 _EXAMPLES = 5
 
 
@@ -134,6 +136,63 @@ def write_assignment(assignment: pd.DataFrame, path) -> None:
     write_parquet(path, assignment)
 
 
+def feasibility(df: pd.DataFrame, *, id_column: str, target: str, split: dict, cross_validation: dict) -> dict:
+    """Check, before any draw, what the configured split and folds will need of the data.
+
+    Runs the split's own checks on the parts of the request that do not depend on the seeds,
+    so that a change of seed alone needs no new check: ids, target, dates and the cut-off
+    date, groups, the stratified draw's feasibility, and enough events and non-events for the
+    folds (out-of-time: in the training part, which the cut-off fixes; stratified: in the
+    largest training part any seed can give; grouped: in the whole data).
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        The validated data (target as 0/1).
+    id_column, target, split, cross_validation
+        As for :func:`assign_split`; ``split`` carries ``date_column``.
+
+    Returns
+    -------
+    dict
+        ``problems`` (list of str, empty when nothing is known to fail); ``is_test`` (bool
+        array) when the parts do not depend on a seed (out-of-time), else None;
+        ``train_rows``: the training part's size (grouped: an upper bound), None on problems.
+    """
+    settings = _settings(split, cross_validation)
+    problems = _request_problems(df, id_column, target, settings, None, None)
+    outcome = {"problems": problems, "is_test": None, "train_rows": None}
+    if problems:
+        return outcome
+    y = _event_indicator(df[target], None)
+    n, events, n_folds = len(y), int(y.sum()), settings["folds"]
+    if settings["method"] == "out_of_time":
+        is_test, _ = _out_of_time_parts(_dates_for_summary(df, settings), settings)
+        problems += _part_problems(y, is_test)
+        train_events = int(y[~is_test].sum())
+        if (~is_test).any():
+            problems += _fold_feasibility_problems(train_events, int((~is_test).sum()) - train_events, None, n_folds)
+        outcome.update(is_test=is_test, train_rows=int((~is_test).sum()))
+    elif settings["method"] == "stratified":
+        try:
+            is_test = _stratified_parts(y, settings)
+        except SplitError as exc:
+            problems += exc.problems
+            return outcome
+        # Each class gives the test part at least the floor of its share (scikit-learn's
+        # stratified draw); only ties between classes depend on the seed.
+        n_test = int(is_test.sum())
+        most_events = events - (events * n_test) // n
+        most_non_events = (n - events) - ((n - events) * n_test) // n
+        problems += _fold_feasibility_problems(most_events, most_non_events, None, n_folds, bound="at most ")
+        outcome["train_rows"] = n - n_test
+    else:
+        groups = _group_codes(df, settings)
+        problems += _fold_feasibility_problems(events, n - events, int(groups.max()) + 1, n_folds, where="the data")
+        outcome["train_rows"] = n
+    return outcome
+
+
 # ---------------------------------------------------------------------------- checks
 
 
@@ -152,6 +211,12 @@ def _settings(split: dict, cross_validation: dict) -> dict:
 
 
 def _check_request(df, id_column, target, settings, n_parameters, positive_label) -> None:
+    problems = _request_problems(df, id_column, target, settings, n_parameters, positive_label)
+    if problems:
+        raise SplitError("the split cannot be made as configured:", problems)
+
+
+def _request_problems(df, id_column, target, settings, n_parameters, positive_label) -> list[str]:
     problems = _check_settings(settings, n_parameters)
     for role, column in (("id column", id_column), ("target", target)):
         if column not in df.columns:
@@ -164,17 +229,16 @@ def _check_request(df, id_column, target, settings, n_parameters, positive_label
             problems += _check_dates(df, ids, settings)
         if settings["method"] == "grouped":
             problems += _check_groups(df, ids, settings)
-    if problems:
-        raise SplitError("the split cannot be made as configured:", problems)
+    return problems
 
 
 def _check_settings(settings: dict, n_parameters) -> list[str]:
     problems = []
     fraction = settings["test_fraction"]
     if isinstance(fraction, bool) or not isinstance(fraction, (int, float)) or not 0 < fraction < 1:
-        problems.append(f"test_fraction must be strictly between 0 and 1, got {fraction!r}")
+        problems.append(f"test_fraction must be strictly between 0 and 1, got {quoted(fraction)}")
     if settings["method"] not in METHODS:
-        problems.append(f"split method must be one of {', '.join(METHODS)}, got {settings['method']!r}")
+        problems.append(f"split method must be one of {', '.join(METHODS)}, got {quoted(settings['method'])}")
     if not _is_int(settings["folds"]) or settings["folds"] < 2:
         problems.append(f"cross_validation folds must be an integer >= 2, got {settings['folds']!r}")
     if not _is_int(settings["repeats"]) or settings["repeats"] < 1:
@@ -214,7 +278,7 @@ def _check_target(values: pd.Series, ids: pd.Series, positive_label) -> list[str
     bad = ~np.isin(numeric.to_numpy(dtype=float, na_value=np.nan), (0.0, 1.0))
     if bad.any():
         shown = sorted({str(v) for v in values[bad].tolist()})[:_EXAMPLES]
-        return [f"target must hold 0/1 values; found {', '.join(shown)} at ids {_examples(ids, bad)}"]
+        return [f"target must hold 0/1 values; found {', '.join(map(quoted, shown))} at ids {_examples(ids, bad)}"]
     return []
 
 
@@ -250,7 +314,7 @@ def _check_dates(df: pd.DataFrame, ids: pd.Series, settings: dict) -> list[str]:
 def _check_cutoff(dates: pd.Series, cutoff_text) -> list[str]:
     cutoff = _parse_cutoff(cutoff_text, dates)
     if cutoff is None:
-        return [f"cutoff_date {cutoff_text!r} is not an ISO date"]
+        return [f"cutoff_date {quoted(cutoff_text)} is not an ISO date"]
     first, last = dates.min(), dates.max()
     if cutoff <= first or cutoff > last:
         empty = "training" if cutoff <= first else "test"
@@ -273,6 +337,12 @@ def _check_groups(df: pd.DataFrame, ids: pd.Series, settings: dict) -> list[str]
 
 
 def _check_parts(y: np.ndarray, is_test: np.ndarray) -> None:
+    problems = _part_problems(y, is_test)
+    if problems:
+        raise SplitError("the split leaves a part unusable:", problems)
+
+
+def _part_problems(y: np.ndarray, is_test: np.ndarray) -> list[str]:
     problems = []
     for part, mask in (("training", ~is_test), ("test", is_test)):
         n, events = int(mask.sum()), int(y[mask].sum())
@@ -282,8 +352,7 @@ def _check_parts(y: np.ndarray, is_test: np.ndarray) -> None:
             problems.append(f"the {part} part has no events (0 of {n} rows); change the split or get more events")
         elif events == n:
             problems.append(f"the {part} part has only events ({n} of {n} rows); change the split")
-    if problems:
-        raise SplitError("the split leaves a part unusable:", problems)
+    return problems
 
 
 def _check_folds(y, is_test, folds: list[np.ndarray], settings: dict) -> None:
@@ -295,9 +364,11 @@ def _check_folds(y, is_test, folds: list[np.ndarray], settings: dict) -> None:
             n, events = int(members.sum()), int(y[members].sum())
             if events == 0 or events == n:
                 kind = "no events" if events == 0 else "no non-events"
+                advice = (f"use fewer folds than {settings['folds']}" if settings["folds"] > MIN_FOLDS
+                          else "gather more events or move the split")
                 problems.append(
                     f"repeat {repeat} fold {fold} has {kind} ({events} events in {n} rows); "
-                    f"the training part has {train_events} events: use fewer folds than {settings['folds']}"
+                    f"the training part has {train_events} events: {advice}"
                 )
     if problems:
         raise SplitError("the cross-validation folds cannot be made as configured:", problems)
@@ -430,19 +501,33 @@ def _fold_splits(y, train_rows, groups, n_folds: int, seed: int):
 
 
 def _check_fold_feasible(y_train, groups_train, settings) -> None:
-    n_folds, problems = settings["folds"], []
-    events, non_events = int(y_train.sum()), int(len(y_train) - y_train.sum())
-    if events < n_folds or non_events < n_folds:
-        problems.append(
-            f"the training part has {events} events and {non_events} non-events, fewer than "
-            f"{n_folds} folds: some fold would have no events; use at most {min(events, non_events)} folds"
-        )
-    if groups_train is not None and len(np.unique(groups_train)) < n_folds:
-        problems.append(
-            f"the training part has {len(np.unique(groups_train))} groups, fewer than {n_folds} folds; use fewer folds"
-        )
+    events = int(y_train.sum())
+    n_groups = None if groups_train is None else len(np.unique(groups_train))
+    problems = _fold_feasibility_problems(events, len(y_train) - events, n_groups, settings["folds"])
     if problems:
         raise SplitError("the cross-validation folds cannot be made as configured:", problems)
+
+
+def _fold_feasibility_problems(events: int, non_events: int, n_groups: int | None, n_folds: int, *,
+                               where: str = "the training part", bound: str = "") -> list[str]:
+    """Problems of ``n_folds`` stratified folds on rows with these counts (and groups);
+    ``bound`` ("at most ") marks counts that are upper bounds."""
+    problems = []
+    if events < n_folds or non_events < n_folds:
+        fewer = min(events, non_events)
+        advice = (
+            f"use at most {fewer} folds (cross_validation.folds)" if fewer >= MIN_FOLDS
+            else f"the minimum of {MIN_FOLDS} folds needs at least {MIN_FOLDS} events and {MIN_FOLDS} "
+            f"non-events in {where}: gather more rows" + (" or move the split" if where == "the training part" else "")
+        )
+        problems.append(
+            f"{where} has {bound}{events} events and {bound}{non_events} non-events, fewer than "
+            f"{n_folds} folds (cross_validation.folds): some fold would have no events; {advice}"
+        )
+    if n_groups is not None and n_groups < n_folds:
+        advice = f"use at most {n_groups} folds" if n_groups >= MIN_FOLDS else "gather data from more groups"
+        problems.append(f"{where} has {n_groups} groups, fewer than {n_folds} folds (cross_validation.folds); {advice}")
+    return problems
 
 
 def _assignment_frame(ids: pd.Series, is_test: np.ndarray, folds: list[np.ndarray]) -> pd.DataFrame:
@@ -591,7 +676,7 @@ def _parse_dates(values: pd.Series, ids: pd.Series, column: str) -> tuple[pd.Ser
         return values, [f"date column {column!r} cannot be parsed as dates: {exc}"]
     bad = (values.notna() & parsed.isna()).to_numpy()
     if bad.any():
-        shown = ", ".join(repr(v) for v in values[bad].head(_EXAMPLES).tolist())
+        shown = ", ".join(quoted(v) for v in values[bad].head(_EXAMPLES).tolist())
         return parsed, [
             f"date column {column!r} has {int(bad.sum())} values that are not ISO dates ({shown}), "
             f"e.g. ids {_examples(ids, bad)}"
@@ -629,7 +714,7 @@ def _iso(stamp) -> str:
 
 
 def _examples(ids: pd.Series, mask) -> str:
-    return ", ".join(repr(v) for v in ids[np.asarray(mask)].head(_EXAMPLES).tolist())
+    return ", ".join(quoted(v) for v in ids[np.asarray(mask)].head(_EXAMPLES).tolist())
 
 
 def _positions(mask) -> str:

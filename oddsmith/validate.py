@@ -1,18 +1,26 @@
 """The validate stage: raw file + contract + config → typed Parquet snapshot and a report.
 
-Nothing is written unless every check passes; the raw file is only read.
+Besides the contract, validate checks what later stages will need of the data, so that a
+build stops here rather than after the fits: the split and folds (through the split's own
+checks, :func:`oddsmith.split.feasibility`), blanks in the groups to assess and in features
+that refuse them, levels seen only in a test part the cut-off date already fixes, and enough
+rows for every unpenalised candidate's parameters. Nothing is written unless every check
+passes; the raw file is only read.
 """
 
 from __future__ import annotations
 
 import logging
+import math
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from oddsmith.contract import load_contract, read_raw, validate_frame
-from oddsmith.errors import ContractError
+from oddsmith.errors import ContractError, DataError, quoted
 from oddsmith.io import sha256_file, write_bytes_atomic, write_json, write_parquet_chunks, write_text
+from oddsmith.split import feasibility
 
 log = logging.getLogger("oddsmith.validate")
 
@@ -46,17 +54,37 @@ def config_contract_problems(config: dict, contract: dict) -> list[str]:
             problems.append(f"features.{f['name']}: declared categorical, but the contract types it as {kind}")
     if data["date_column"] and declared.get(data["date_column"], {}).get("type") not in (None, "date"):
         problems.append(f"data.date_column: '{data['date_column']}' is not typed date in the contract")
+    return problems + _band_problems(config["fairness"], declared)
+
+
+def _band_problems(fairness: dict, declared: dict) -> list[str]:
+    """A numeric sensitive attribute needs bands (each value would be a group of its own);
+    bands apply to numeric columns only."""
+    bands, problems = fairness.get("bands", {}), []
+    for name in fairness["sensitive"]:
+        kind = declared.get(name, {}).get("type")
+        if kind in ("integer", "float") and name not in bands:
+            problems.append(
+                f"fairness.sensitive: '{name}' is numeric ({kind} in the contract), so every distinct value "
+                f"would be a group of its own; give bands, e.g. {{name: {name}, bands: [30, 45, 60]}}"
+            )
+        if name in bands and kind not in (None, "integer", "float"):
+            problems.append(f"fairness.sensitive: '{name}' has bands, but the contract types it as {kind}; "
+                            "bands apply to integer and float columns only")
     return problems
 
 
-def planned_parameters(config: dict, contract: dict) -> int:
+def planned_parameters(config: dict, contract: dict, *, features: list[str] | None = None) -> int:
     """Parameters of the largest planned design: intercept + every feature column + interactions.
 
     Categoricals count their declared levels − 1; a missing indicator adds one; a spline
-    adds knots − 2 columns beyond the linear term; bins add bins − 1 columns.
+    adds knots − 2 columns beyond the linear term; bins add bins − 1 columns. ``features``
+    (a candidate's subset) counts only those features and the interactions among them.
     """
     width = {}
     for f in config["features"]:
+        if features is not None and f["name"] not in features:
+            continue
         spec = contract["columns"].get(f["name"], {})
         if f["type"] == "categorical":
             n = max(len(spec.get("levels", [])) - 1, 1)
@@ -109,6 +137,123 @@ def quality_profile(df: pd.DataFrame, *, id_column: str, target: str, n_paramete
     }
 
 
+def analysis_problems(df: pd.DataFrame, *, config: dict, contract: dict) -> list[str]:
+    """Conditions later stages need, checked on the typed data before anything is written.
+
+    Uses ``config`` keys ``data``, ``features``, ``interactions``, ``fairness``, ``split``
+    (method, test_fraction, cutoff_date, group_column), ``cross_validation`` (folds) and
+    ``candidates`` (name, kind, features); no seed is read, so a change of seed needs no new
+    check.
+    """
+    data, ids = config["data"], df[config["data"]["id_column"]]
+    problems = _group_problems(df, config["fairness"], ids) + _blank_feature_problems(df, config["features"], ids)
+    plan = feasibility(
+        df, id_column=data["id_column"], target=data["target"],
+        split=config["split"] | {"date_column": data["date_column"]}, cross_validation=config["cross_validation"],
+    )
+    problems += plan["problems"]
+    if plan["is_test"] is not None:
+        problems += _test_only_level_problems(df, config["features"], plan["is_test"], ids)
+    if plan["train_rows"] is not None:
+        problems += _fit_size_problems(config, contract, plan["train_rows"])
+    return problems
+
+
+def _id_examples(ids: pd.Series, mask: np.ndarray, limit: int = 5) -> str:
+    return ", ".join(quoted(v) for v in ids[mask].head(limit).tolist())
+
+
+def _group_problems(df: pd.DataFrame, fairness: dict, ids: pd.Series) -> list[str]:
+    """Every row of an assessed attribute needs a group; and there must be two groups."""
+    problems = []
+    for key in ("sensitive", "segments"):
+        for name in fairness[key]:
+            missing = df[name].isna().to_numpy()
+            if missing.any():
+                problems.append(
+                    f"fairness.{key}: column '{name}' is blank in {int(missing.sum())} row(s), e.g. ids "
+                    f"{_id_examples(ids, missing)}; every row needs a group: fill them in the data with an "
+                    "explicit group (such as 'not stated')"
+                )
+                continue
+            edges = fairness.get("bands", {}).get(name)
+            if edges is None and df[name].nunique() < 2:
+                problems.append(f"fairness.{key}: attribute '{name}' has a single group "
+                                f"{quoted(df[name].iloc[0])}; nothing to compare")
+            elif edges is not None and _bands_used(df[name], edges) < 2:
+                problems.append(f"fairness.{key}: every value of '{name}' falls in one band of {quoted(edges)}; "
+                                "nothing to compare: choose band edges inside the values' range")
+    return problems
+
+
+def _bands_used(values: pd.Series, edges: list) -> int:
+    """How many of the bands (see :func:`oddsmith.fairness.attribute_groups`) hold a value;
+    counted here so that validate does not depend on the fairness module."""
+    numbers = values.to_numpy(dtype=float)
+    return len(np.unique(np.searchsorted(np.asarray(edges, dtype=float), numbers, side="right")))
+
+
+def _blank_feature_problems(df: pd.DataFrame, features: list, ids: pd.Series) -> list[str]:
+    problems = []
+    for f in features:
+        missing = df[f["name"]].isna().to_numpy()
+        if f["missing"] == "reject" and missing.any():
+            problems.append(
+                f"features.{f['name']}: blank in {int(missing.sum())} row(s), e.g. ids {_id_examples(ids, missing)}; "
+                "the feature has missing: reject (set missing: indicator to model blanks, or fill them in the data)"
+            )
+    return problems
+
+
+def _test_only_level_problems(df: pd.DataFrame, features: list, is_test: np.ndarray, ids: pd.Series) -> list[str]:
+    """Levels of a categorical found only in the test part, which the recipe cannot map.
+
+    The recipe maps an unseen level to 'other' only under ``missing: indicator`` and when an
+    'other' level is learned (a training level rarer than ``min_count``, or one named so).
+    """
+    problems = []
+    for f in (f for f in features if f["type"] == "categorical"):
+        text = df[f["name"]].astype("string")
+        train_counts = text[~is_test].value_counts()
+        has_other = "other" in train_counts.index or bool((train_counts < f["min_count"]).any())
+        if f["missing"] == "indicator" and has_other:
+            continue
+        unseen = (is_test & ~text.isin(train_counts.index).to_numpy() & text.notna().to_numpy())
+        if unseen.any():
+            levels = sorted(set(text[unseen].tolist()))
+            problems.append(
+                f"features.{f['name']}: level(s) {', '.join(quoted(v) for v in levels[:5])} occur only in the test "
+                f"part (dated on or after split.cutoff_date), in {int(unseen.sum())} row(s), e.g. ids "
+                f"{_id_examples(ids, unseen)}; the model cannot score a level it never saw: move the cut-off "
+                "date, or set missing: indicator so rare and unseen levels join 'other'"
+            )
+    return problems
+
+
+#: Kinds fitted by maximum likelihood without a penalty: they need more rows than parameters.
+UNPENALISED_KINDS = ("logit", "probit", "cloglog")
+
+
+def _fit_size_problems(config: dict, contract: dict, train_rows: int) -> list[str]:
+    """An unpenalised candidate with more parameters than the rows of its smallest fold fit
+    has no estimate at all (the design cannot have full column rank): a hard stop. Some fold
+    holds out at least ceil(n/k) rows, so its fit sees at most n - ceil(n/k)."""
+    folds = config["cross_validation"]["folds"]
+    fold_rows = train_rows - math.ceil(train_rows / folds)
+    too_wide = []
+    for c in config["candidates"]:
+        n_parameters = planned_parameters(config, contract, features=c.get("features"))
+        if c["kind"] in UNPENALISED_KINDS and n_parameters > fold_rows:
+            too_wide.append(f"{c['name']} ({c['kind']}, {n_parameters} parameters)")
+    if not too_wide:
+        return []
+    return [
+        f"candidates: {', '.join(too_wide)} have more parameters than the at most {fold_rows} rows a "
+        f"cross-validation fit sees ({train_rows} training rows, {folds} folds), so no unpenalised fit is "
+        "possible: use fewer features, a penalised kind (l1, l2, elastic_net), or more rows"
+    ]
+
+
 # Rows per row group of the validated Parquet snapshot.
 PARQUET_CHUNK_ROWS = 131_072
 
@@ -127,13 +272,9 @@ def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: 
         raw, contract, id_column=data["id_column"], target=data["target"],
         positive_label=data["positive_label"], extra_columns=data["extra_columns"], source=str(data_path),
     )
-    problems = [
-        f"fairness: attribute '{name}' has a single group {sorted(df[name].dropna().unique().tolist())}; nothing to compare"
-        for name in config["fairness"]["sensitive"] + config["fairness"]["segments"]
-        if df[name].nunique(dropna=True) < 2
-    ]
+    problems = analysis_problems(df, config=config, contract=contract)
     if problems:
-        raise ContractError(f"{data_path}: the groups to assess cannot be compared", problems)
+        raise DataError(f"{data_path}: the data cannot support the configured analysis", problems)
     report = quality_profile(df, id_column=data["id_column"], target=data["target"],
                              n_parameters=planned_parameters(config, contract))
     report["source"] = {"path": str(data_path), "sha256": sha256_file(data_path), "contract": str(contract_path),

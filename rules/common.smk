@@ -4,12 +4,17 @@ import sys
 
 from snakemake.io import get_wildcard_names, strip_wildcard_constraints
 
-from oddsmith.config import check_config
+from oddsmith.config import check_config, read_config_file
 from oddsmith.errors import ConfigError
 from oddsmith.manifest import build_info, environment, source_date_epoch
 from oddsmith.runner import code_fingerprint, params_hash
 
 try:
+    # Snakemake has parsed the files already; reading them again with oddsmith's reader
+    # refuses YAML aliases before anything walks the configuration (a few lines of nested
+    # aliases stand for billions of values) and names the file, line and column.
+    for _path in workflow.configfiles:
+        read_config_file(os.path.relpath(_path))
     CONFIG = check_config(config, project_dir=".")
 except ConfigError as exc:
     sys.exit(f"oddsmith: {exc}")

@@ -17,8 +17,26 @@ rule validate:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
     params:
+        # What validate checks ahead of the later stages; no seed, so a new seed alone
+        # does not rerun it.
         config={k: CONFIG[k] for k in ("data", "features", "interactions", "fairness")}
-        | {"split": {"group_column": CONFIG["split"]["group_column"]}},
-        code=code("validate", "contract", "config", script="scripts/validate.py"),
+        | {
+            "split": {
+                k: CONFIG["split"][k]
+                for k in ("method", "test_fraction", "cutoff_date", "group_column")
+            },
+            "cross_validation": {"folds": CONFIG["cross_validation"]["folds"]},
+            "candidates": [
+                {k: c[k] for k in ("name", "kind", "features") if k in c}
+                for c in CONFIG["candidates"]
+            ],
+        },
+        code=code(
+            "validate",
+            "contract",
+            "config",
+            "split",
+            script="scripts/validate.py",
+        ),
     script:
         "../scripts/validate.py"

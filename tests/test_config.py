@@ -111,3 +111,35 @@ def test_every_schema_key_has_type_and_description():
                 walk(spec["items"]["properties"], prefix + name + "[].")
 
     walk(load_schema()["properties"])
+
+
+def test_sensitive_attribute_in_bands(demo_config, root):
+    demo_config["fairness"]["sensitive"] = ["owner_age_band", {"name": "age", "bands": [30, 45, 60]}]
+    cfg = check_config(demo_config, project_dir=root)
+    assert cfg["fairness"]["sensitive"] == ["owner_age_band", "age"]
+    assert cfg["fairness"]["bands"] == {"age": [30, 45, 60]}
+
+
+def test_demo_config_keeps_its_resolved_form_without_bands(demo_config, root):
+    assert "bands" not in check_config(demo_config, project_dir=root)["fairness"]
+
+
+@pytest.mark.parametrize("entry, fragment", [
+    ({"name": "age", "bands": [45, 30]}, "fairness.sensitive.1.bands ('age'): expected strictly increasing"),
+    ({"name": "age", "bands": [30, 30]}, "expected strictly increasing finite numbers, found [30, 30]"),
+    ({"name": "age", "bands": [30, float("inf")]}, "strictly increasing finite"),
+    ({"name": "age", "bands": []}, "fairness.sensitive.1.bands: expected minItems 1"),
+    ({"name": "age"}, "'bands' is a required property"),
+    ({"name": "age", "bands": ["thirty"]}, "fairness.sensitive.1.bands.0: expected type 'number', found 'thirty'"),
+    ("owner_age_band", "'owner_age_band' is listed more than once"),
+])
+def test_bad_bands(demo_config, root, entry, fragment):
+    demo_config["fairness"]["sensitive"] = ["owner_age_band", entry]
+    assert fragment in _problems(demo_config, project_dir=root)
+
+
+def test_long_values_are_cut_in_config_messages(demo_config, root):
+    demo_config["cross_validation"]["folds"] = "9" * 100_000
+    message = _problems(demo_config, project_dir=root)
+    assert "cross_validation.folds" in message and "cut; 100,000 characters in all" in message
+    assert len(message) < 1_000

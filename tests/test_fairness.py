@@ -241,3 +241,28 @@ def test_decisions_refuse_summaries_of_other_rows():
         fairness.add_decisions(summaries, y, p, relabelled, cutoff=0.5, attribute="g")
     with pytest.raises(OddsmithError, match="cutoff must be a number or None"):
         fairness.add_decisions(summaries, y, p, g, cutoff="0.5", attribute="g")
+
+
+# ------------------------------------------------------------------ numeric attributes in bands
+
+
+def test_band_labels_and_edges_by_hand():
+    from oddsmith.fairness import attribute_groups, band_labels
+
+    assert band_labels([30, 45, 60]) == ["below 30", "30 to <45", "45 to <60", "60 and over"]
+    assert band_labels([0.5]) == ["below 0.5", "0.5 and over"]
+    ages = pd.Series([18, 29.9, 30, 44, 45, 59, 60, 90])
+    # a band holds its lower edge: 30 is in "30 to <45", 60 in "60 and over"
+    assert attribute_groups(ages, bands=[30, 45, 60]).tolist() == [
+        "below 30", "below 30", "30 to <45", "30 to <45", "45 to <60", "45 to <60", "60 and over", "60 and over"]
+
+
+def test_bands_feed_the_subgroup_table():
+    from oddsmith.fairness import attribute_groups, group_summaries
+
+    ages = pd.Series([25, 35, 50, 70] * 50)
+    y = np.array([0, 1] * 100)
+    p = np.linspace(0.05, 0.95, 200)
+    rows = group_summaries(y, p, attribute_groups(ages, bands=[30, 45, 60]), min_group_size=10, attribute="age")
+    assert [r["group"] for r in rows] == ["30 to <45", "45 to <60", "60 and over", "below 30"]
+    assert [r["n"] for r in rows] == [50, 50, 50, 50]

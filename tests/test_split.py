@@ -318,5 +318,54 @@ def test_non_binary_target_and_repeated_ids():
     with pytest.raises(SplitError) as error:
         _assign(df)
     message = str(error.value)
-    assert "0/1 values; found 2 at ids 'L00003'" in message
+    assert "0/1 values; found '2' at ids 'L00003'" in message
     assert "2 rows with repeated ids, e.g. 'L00007', 'L00007'" in message
+
+
+# ------------------------------------------------------------------ checks before any draw
+
+
+def test_fold_advice_never_goes_below_two_folds():
+    df = _loans(200, base_rate=0.0)
+    df.loc[[3], "default"] = 1  # one event in the training part of an out-of-time split
+    df.loc[df["application_date"] >= "2025-10-01", "default"] = 0
+    df.loc[df.index[df["application_date"] >= "2025-10-01"][0], "default"] = 1
+    df.loc[3, "application_date"] = "2025-01-05"
+    with pytest.raises(SplitError) as err:
+        _assign(df, _split("out_of_time", cutoff_date="2025-10-01"))
+    message = str(err.value)
+    assert "has 1 events" in message and "minimum of 2 folds needs at least 2 events" in message
+    assert "at most 1 folds" not in message
+
+
+@pytest.mark.parametrize("method", ["stratified", "out_of_time", "grouped"])
+def test_feasibility_finds_no_problem_where_the_split_succeeds(method):
+    from oddsmith.split import feasibility
+
+    df = _loans()
+    split = _split(method, cutoff_date="2025-10-01" if method == "out_of_time" else None)
+    _assign(df, split)  # succeeds
+    plan = feasibility(df, id_column="loan_id", target="default", split=split, cross_validation=CV)
+    assert plan["problems"] == []
+    assert (plan["is_test"] is not None) == (method == "out_of_time")
+    assert plan["train_rows"] == {"stratified": 600, "grouped": 800,
+                                  "out_of_time": int((df["application_date"] < "2025-10-01").sum())}[method]
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3, 4, 5, 6])
+def test_feasibility_refuses_only_what_every_seed_refuses(seed):
+    """Stratified: fold feasibility is judged on the largest training counts any seed can give,
+    so a refusal at validate is a refusal of the split for every seed."""
+    from oddsmith.split import feasibility
+
+    df = _loans(40, seed=seed, base_rate=0.15)
+    refused = 0
+    for folds in range(2, 11):
+        cv = CV | {"folds": folds}
+        plan = feasibility(df, id_column="loan_id", target="default", split=_split(), cross_validation=cv)
+        refused += bool(plan["problems"])
+        if plan["problems"]:
+            for split_seed in range(20):
+                with pytest.raises(SplitError):
+                    _assign(df, _split(seed=split_seed), cv=cv)
+    assert refused > 0

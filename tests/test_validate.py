@@ -23,6 +23,8 @@ DEMO = ROOT / "data_demo" / "lease_applications.csv"
 
 @pytest.fixture()
 def cfg(demo_config):
+    # The first 400 demo rows (most tests' data) span 2023-01-01 to 2023-02-10.
+    demo_config["split"]["cutoff_date"] = "2023-02-01"
     return check_config(demo_config, project_dir=ROOT)
 
 
@@ -167,14 +169,40 @@ def test_target_not_in_contract(cfg, tmp_path):
     _expect_failure(cfg, tmp_path, DEMO, "data.target: column 'defaulted' is not declared in the data contract")
 
 
+@pytest.mark.e2e
 def test_workflow_stops_before_any_output_on_bad_data(project):
     data = project / "data_demo" / "lease_applications.csv"
     text = data.read_text().replace("LA-000010,", "LA-000009,", 1)
     data.write_text(text)
+    before = sha256_file(data)
     result = run_snakemake(project, check=False)
     assert result.returncode != 0
-    assert "check unique" in result.stderr + (project / "logs/lease_demo/validate.log").read_text()
-    assert not (project / "results/lease_demo/validated/data.parquet").exists()
+    terminal = result.stderr + result.stdout
+    # one readable block on the terminal: the rule, the class, the column, the check, the row id
+    assert "oddsmith: rule validate stopped (ContractError)" in terminal
+    assert "column 'application_id', check unique: 2 row(s) fail, e.g. LA-000009" in terminal
+    assert "Traceback" not in terminal
+    assert "Traceback" in (project / "logs/lease_demo/validate.log").read_text()
+    assert not (project / "results").exists() or not any(p.is_file() for p in (project / "results").rglob("*"))
+    assert sha256_file(data) == before
+
+
+@pytest.mark.e2e
+def test_workflow_refuses_an_alias_bomb_in_a_config_file_before_walking_it(project):
+    """Snakemake parses --configfile itself (cheaply: aliases become shared references); the
+    workflow reads each config file again with oddsmith's reader before checking the config, so
+    the bomb is refused by name instead of exhausting memory while the config is walked."""
+    from test_io import alias_bomb
+
+    cfg = project / "config" / "config.yaml"
+    bombed = project / "config" / "bombed.yaml"
+    bombed.write_text(cfg.read_text().replace("  title: Equipment-lease", f"  title: {alias_bomb()}\n  x: ", 1))
+    result = run_snakemake(project, "--dry-run", "--configfile", "config/bombed.yaml", check=False)
+    terminal = result.stderr + result.stdout
+    assert result.returncode != 0
+    assert "configuration file config/bombed.yaml is not valid YAML: line " in terminal
+    assert "anchors and aliases are not accepted, found &a0" in terminal and "Traceback" not in terminal
+    assert not (project / "results").exists()
 
 
 def test_workflow_refuses_bad_config(project):
@@ -187,7 +215,7 @@ def test_workflow_refuses_bad_config(project):
 
 def test_sensitive_attribute_with_one_group(cfg, tmp_path):
     frame = _demo_frame().assign(owner_age_band="35-49")
-    _expect_failure(cfg, tmp_path, _write(tmp_path, frame), "attribute 'owner_age_band' has a single group ['35-49']")
+    _expect_failure(cfg, tmp_path, _write(tmp_path, frame), "attribute 'owner_age_band' has a single group '35-49'")
 
 
 def test_decoding_is_checked_piece_by_piece_with_the_file_offset(tmp_path):
@@ -225,3 +253,105 @@ def test_numbers_parse_the_same_through_the_fast_path_and_pandas():
     messy = pd.Series(["1", " 2", "three", None, "4e1"], dtype="str")
     np.testing.assert_array_equal(_to_float(messy).to_numpy(),
                                   pd.to_numeric(messy, errors="coerce").astype("float64").to_numpy())
+
+
+# ------------------------------------------------------------------ unreadable files, in our words
+
+
+def test_row_with_more_fields_than_the_header(cfg, tmp_path):
+    path = _write(tmp_path, _demo_frame(20))
+    lines = path.read_text().splitlines()
+    lines[6] += ",surplus"  # line 7 of the file (the header is line 1)
+    path.write_text("\n".join(lines) + "\n")
+    _expect_failure(cfg, tmp_path, path, "line 7", "expected 14 fields", "found 15")
+
+
+def test_repeated_header_name_is_reported_as_such(cfg, tmp_path):
+    path = _write(tmp_path, _demo_frame(20))
+    text = path.read_text().replace(",owner_age_band,", ",region,", 1)
+    path.write_text(text)
+    message = _expect_failure(cfg, tmp_path, path, "column 'region' appears 2 times in the header (positions 12, 13)")
+    assert "region.1" not in message  # pandas' renamed copy is not reported as an undeclared column
+
+
+def test_a_huge_cell_is_quoted_cut(cfg, tmp_path):
+    frame = _demo_frame(20)
+    frame.loc[2, "credit_score"] = "n/a " * 50_000
+    message = _expect_failure(cfg, tmp_path, _write(tmp_path, frame), "LA-000003=", "cut; 200,000 characters in all")
+    assert len(message) < 2_000
+
+
+# ------------------------------------------------------- what later stages need, checked at validate
+
+
+def test_blank_sensitive_attribute_is_refused_with_row_ids(cfg, tmp_path):
+    frame = _demo_frame()
+    frame.loc[[4, 9], "owner_age_band"] = ""
+    cfg["data"]["contract"] = str(tmp_path / "contract.yaml")
+    contract = CONTRACT.read_text().replace('levels: ["18-34", "35-49", "50-64", "65+"]',
+                                            'levels: ["18-34", "35-49", "50-64", "65+"], nullable: true')
+    (tmp_path / "contract.yaml").write_text(contract)
+    _expect_failure(cfg, tmp_path, _write(tmp_path, frame),
+                    "fairness.sensitive: column 'owner_age_band' is blank in 2 row(s), e.g. ids 'LA-000005', 'LA-000010'",
+                    contract=tmp_path / "contract.yaml")
+
+
+def test_five_rows_are_too_few_and_the_advice_keeps_the_minimum_of_two_folds(cfg, tmp_path):
+    cfg["split"] |= {"method": "stratified", "cutoff_date": None}
+    message = _expect_failure(cfg, tmp_path, _write(tmp_path, _demo_frame(5)), "the data cannot support")
+    assert "at most 1 folds" not in message and "at most 0 folds" not in message
+    assert "split" in message or "folds" in message
+
+
+def test_more_folds_than_a_class_has(cfg, tmp_path):
+    frame = _demo_frame()
+    events = frame.index[frame["serious_delinquency"] == "1"]
+    frame.loc[events[3:], "serious_delinquency"] = "0"  # 3 events left, all in the training part
+    _expect_failure(cfg, tmp_path, _write(tmp_path, frame),
+                    "the training part has 3 events and", "fewer than 5 folds", "use at most 3 folds",
+                    "the test part has no events")
+
+
+def test_cutoff_date_outside_the_dates(cfg, tmp_path):
+    cfg["split"]["cutoff_date"] = "2024-06-01"
+    _expect_failure(cfg, tmp_path, _write(tmp_path, _demo_frame()),
+                    "cutoff_date 2024-06-01 is outside the data's date range 2023-01-01 to 2023-02-10")
+
+
+def test_level_seen_only_in_the_test_part(cfg, tmp_path):
+    frame = _demo_frame()
+    train = frame["application_date"] < "2023-02-01"
+    frame.loc[train & (frame["region"] == "metro"), "region"] = "coastal"
+    first = frame.loc[~train & (frame["region"] == "metro"), "application_id"].iloc[0]
+    _expect_failure(cfg, tmp_path, _write(tmp_path, frame),
+                    "features.region: level(s) 'metro' occur only in the test part", f"'{first}'")
+
+
+def test_no_fit_possible_with_more_parameters_than_rows(cfg, tmp_path):
+    cfg["split"] |= {"method": "stratified", "cutoff_date": None}
+    cfg["cross_validation"]["folds"] = 2
+    frame = _demo_frame(30)
+    # 30 rows: 22 train (ceil(0.25 * 30) = 8 test); 2 folds leave at most 11 rows per fit,
+    # while logit_main has 1 + 6 + 2 (guarantor + indicator) + 5 + 3 + 1 (interaction) = 18.
+    message = _expect_failure(cfg, tmp_path, _write(tmp_path, frame),
+                              "candidates: logit_main (logit, 18 parameters), probit_main (probit, 18 parameters), "
+                              "cloglog_main (cloglog, 18 parameters) have more parameters than the at most 11 rows")
+    assert "lasso" not in message and "logit_compact" not in message
+
+
+def test_numeric_sensitive_attribute_needs_bands(cfg, tmp_path):
+    cfg["fairness"]["sensitive"] = ["credit_score"]
+    _expect_failure(cfg, tmp_path, _write(tmp_path, _demo_frame()),
+                    "fairness.sensitive: 'credit_score' is numeric (integer in the contract)", "give bands")
+
+
+def test_banded_numeric_sensitive_attribute_validates(demo_config, tmp_path):
+    demo_config["fairness"]["sensitive"] = ["owner_age_band", {"name": "credit_score", "bands": [600, 700]}]
+    demo_config["fairness"]["use_sensitive_as_features"] = True  # every numeric demo column is a feature
+    cfg = check_config(demo_config, project_dir=ROOT)
+    assert cfg["fairness"]["sensitive"] == ["owner_age_band", "credit_score"]
+    assert cfg["fairness"]["bands"] == {"credit_score": [600, 700]}
+    _run(cfg, DEMO, tmp_path)
+    assert (tmp_path / "data.parquet").exists()
+    cfg["fairness"]["bands"] = {"credit_score": [100, 200]}  # every score is 300 or more: one band
+    _expect_failure(cfg, tmp_path / "again", DEMO, "every value of 'credit_score' falls in one band")

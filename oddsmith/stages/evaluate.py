@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 
 from oddsmith import metrics
-from oddsmith.fairness import GROUP_COLUMN_PREFIX, group_summaries
+from oddsmith.fairness import GROUP_COLUMN_PREFIX, attribute_groups, group_summaries
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
 from oddsmith.predict import predict_frame
 from oddsmith.recipe import load_recipe
@@ -62,7 +62,7 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
     groups = {}
     for kind in ("sensitive", "segments"):
         for name in fairness[kind]:
-            labels = test[name].astype(str).to_numpy()
+            labels = attribute_groups(test[name], bands=fairness.get("bands", {}).get(name))
             groups[name] = {"kind": kind, "used_as_feature": name in feature_names, "rows": group_summaries(
                 y, p, labels, min_group_size=fairness["min_group_size"], attribute=name)}
             scores[GROUP_COLUMN_PREFIX + name] = labels
