@@ -81,15 +81,18 @@ def check_config(raw: dict, *, project_dir: str | Path = ".") -> dict:
 
 def _sensitive_bands(fairness: dict) -> list[str]:
     """Split ``fairness.sensitive`` into names and, for banded numeric attributes, a
-    ``fairness.bands`` mapping (name → edges; present only when some attribute has bands),
-    so every later stage reads plain names. Returns the problems of the bands."""
-    names, bands, problems = [], {}, []
+    ``fairness.bands`` mapping (name → edges; present only when some attribute has bands)
+    and a ``fairness.blank_groups`` mapping (name → label of the blank cells' group; present
+    only when some attribute declares one), so every later stage reads plain names. Returns the problems of the bands."""
+    names, bands, blank_groups, problems = [], {}, {}, []
     for i, entry in enumerate(fairness["sensitive"]):
         name = entry if isinstance(entry, str) else entry["name"]
         if name in names:
             problems.append(f"fairness.sensitive.{i}: '{name}' is listed more than once; list each attribute once")
         names.append(name)
-        if isinstance(entry, dict):
+        if isinstance(entry, dict) and "blanks" in entry:
+            blank_groups[name] = entry["blanks"]
+        if isinstance(entry, dict) and "bands" in entry:
             edges = entry["bands"]
             bad = [e for e in edges if not math.isfinite(e)]
             rising = all(a < b for a, b in zip(edges, edges[1:]))
@@ -102,6 +105,8 @@ def _sensitive_bands(fairness: dict) -> list[str]:
     fairness["sensitive"] = names
     if bands:
         fairness["bands"] = bands
+    if blank_groups:
+        fairness["blank_groups"] = blank_groups
     return problems
 
 

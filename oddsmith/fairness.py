@@ -127,10 +127,10 @@ def band_labels(bands) -> list[str]:
     return [f"below {edges[0]}", *inner, f"{edges[-1]} and over"]
 
 
-def attribute_groups(values, *, bands=None) -> np.ndarray:
+def attribute_groups(values, *, bands=None, blanks=None) -> np.ndarray:
     """The group label of every row: the value as text, or its band's label when ``bands``
     (strictly increasing edges) is given. A band holds its lower edge, not its upper one.
-    Missing values stay missing (None).
+    Missing values get the label ``blanks`` when it is given, else stay missing (None).
 
     Examples
     --------
@@ -145,7 +145,7 @@ def attribute_groups(values, *, bands=None) -> np.ndarray:
         numbers = pd.to_numeric(series, errors="raise").to_numpy(dtype=float, na_value=np.nan)
         names = np.array(band_labels(bands), dtype=object)
         labels = names[np.searchsorted(np.asarray(bands, dtype=float), np.nan_to_num(numbers), side="right")]
-    labels[missing] = None
+    labels[missing] = blanks
     return labels
 
 

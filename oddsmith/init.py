@@ -34,6 +34,7 @@ from oddsmith.io import write_text
 MAX_LEVELS = 30
 LEAK_AUC = 0.98  # univariate AUC at or above this (or at or below 1 - this) is near-perfect
 SCREEN_ROWS = 200_000  # the content screens look at a fixed sample of a larger file
+BLANK_GROUP = "not stated"  # label of the group a sensitive attribute's blank cells form
 BAND_SHARE = 0.10  # each drafted band of a numeric sensitive attribute holds at least this share
 GRID = [0.003, 0.01, 0.03, 0.1, 0.3, 1.0]
 
@@ -424,13 +425,22 @@ def _round_step(width: float) -> float:
 def _sensitive_entry(raw: pd.DataFrame, name: str, spec: dict) -> tuple[object, str]:
     kind = _protected_kind(name)
     blanks = spec["_blanks"]
-    warn = (f"; WARNING: {blanks} blank cell(s): the build refuses blanks in a sensitive attribute, fill them "
-            "(e.g. 'unknown') in a copy of the file" if blanks else "")
-    if _is_numeric(spec) and spec["_distinct"] > 10:
+    warn = (f"; {blanks} blank cell(s) form their own group '{BLANK_GROUP}' (review: a blank can hide a "
+            "group that needs assessing)" if blanks else "")
+    extra = {"blanks": BLANK_GROUP} if blanks else {}
+    if _is_numeric(spec) and spec["_distinct"] <= 10:
+        # A few numeric codes (race coded 1/2/3): each code is a group, so the contract
+        # declares them as category levels rather than numbers that would need bands.
+        for key in ("min", "max", "_min", "_max"):
+            spec.pop(key, None)
+        spec["type"] = "category"
+        spec["levels"] = sorted(raw[name].dropna().astype(str).unique().tolist())
+        return ({"name": name} | extra if extra else name), f"DRAFT {kind}: {spec['_distinct']} numeric codes, declared as category levels; each code is a group{warn}"
+    if _is_numeric(spec):
         cuts = _numeric_bands(raw[name])
         groups = [f"below {cuts[0]}"] + [f"{a} to <{b}" for a, b in zip(cuts, cuts[1:])] + [f"{cuts[-1]} and over"]
-        return {"name": name, "bands": cuts}, f"DRAFT {kind}, numeric: groups {', '.join(groups)}{warn}"
-    return name, f"DRAFT {kind}: each value is a group{warn}"
+        return {"name": name, "bands": cuts} | extra, f"DRAFT {kind}, numeric: groups {', '.join(groups)}{warn}"
+    return ({"name": name} | extra if extra else name), f"DRAFT {kind}: each value is a group{warn}"
 
 
 # --------------------------------------------------------------------------------------------
@@ -685,10 +695,9 @@ def _config_text(raw, data_path, contract_out, roles: _Roles, *, features, left_
     _section_notes(notes, roles, left_out, sizes, folds=config["cross_validation"]["folds"])
     for i, (entry, note) in enumerate(sensitive):
         notes.at[("fairness", "sensitive", i)] = note
-        if "WARNING" in note:
-            name = entry["name"] if isinstance(entry, dict) else entry
-            checks.append(f"sensitive attribute '{name}' has blank cells: the build refuses blanks in a sensitive "
-                          "attribute; fill them in a copy of the file or remove it from fairness.sensitive")
+        if isinstance(entry, dict) and "blanks" in entry:
+            checks.append(f"sensitive attribute '{entry['name']}' has blank cells: drafted as a group of their own "
+                          f"('{BLANK_GROUP}'); review whether that is right")
     header = ["DRAFT written by `oddsmith init`: review every line before use.",
               f"{sizes['rows']} rows, {events} with {roles.target} = {roles.positive} "
               f"({events / sizes['rows']:.1%}). Keys: config/README.md."]

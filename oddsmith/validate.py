@@ -66,7 +66,8 @@ def _band_problems(fairness: dict, declared: dict) -> list[str]:
         if kind in ("integer", "float") and name not in bands:
             problems.append(
                 f"fairness.sensitive: '{name}' is numeric ({kind} in the contract), so every distinct value "
-                f"would be a group of its own; give bands, e.g. {{name: {name}, bands: [30, 45, 60]}}"
+                f"would be a group of its own; give round-number bands, e.g. {{name: {name}, bands: [30, 45, 60]}}, "
+                f"or, if its numbers are codes (1 = ..., 2 = ...), declare it `type: category` in the contract"
             )
         if name in bands and kind not in (None, "integer", "float"):
             problems.append(f"fairness.sensitive: '{name}' has bands, but the contract types it as {kind}; "
@@ -169,11 +170,15 @@ def _group_problems(df: pd.DataFrame, fairness: dict, ids: pd.Series) -> list[st
     for key in ("sensitive", "segments"):
         for name in fairness[key]:
             missing = df[name].isna().to_numpy()
-            if missing.any():
+            blank_label = fairness.get("blank_groups", {}).get(name)
+            if blank_label is not None and blank_label in set(df[name].dropna().astype(str)):
+                problems.append(f"fairness.{key}: the label {quoted(blank_label)} given to the blank cells of "
+                                f"'{name}' is also one of its values; choose a label the data does not use")
+            if missing.any() and blank_label is None:
                 problems.append(
                     f"fairness.{key}: column '{name}' is blank in {int(missing.sum())} row(s), e.g. ids "
                     f"{_id_examples(ids, missing)}; every row needs a group: fill them in the data with an "
-                    "explicit group (such as 'not stated')"
+                    f"explicit group, or make the blanks a group of their own: {{name: {name}, blanks: not stated}}"
                 )
                 continue
             edges = fairness.get("bands", {}).get(name)

@@ -129,7 +129,8 @@ def test_demo_config_keeps_its_resolved_form_without_bands(demo_config, root):
     ({"name": "age", "bands": [30, 30]}, "expected strictly increasing finite numbers, found [30, 30]"),
     ({"name": "age", "bands": [30, float("inf")]}, "strictly increasing finite"),
     ({"name": "age", "bands": []}, "fairness.sensitive.1.bands: expected minItems 1"),
-    ({"name": "age"}, "'bands' is a required property"),
+    ({"name": "age", "blanks": ""}, "fairness.sensitive.1.blanks"),
+    ({"bands": [30]}, "'name' is a required property"),
     ({"name": "age", "bands": ["thirty"]}, "fairness.sensitive.1.bands.0: expected type 'number', found 'thirty'"),
     ("owner_age_band", "'owner_age_band' is listed more than once"),
 ])

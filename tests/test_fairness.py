@@ -266,3 +266,14 @@ def test_bands_feed_the_subgroup_table():
     rows = group_summaries(y, p, attribute_groups(ages, bands=[30, 45, 60]), min_group_size=10, attribute="age")
     assert [r["group"] for r in rows] == ["30 to <45", "45 to <60", "60 and over", "below 30"]
     assert [r["n"] for r in rows] == [50, 50, 50, 50]
+
+
+def test_blank_cells_take_the_declared_group_label():
+    import pandas as pd
+
+    from oddsmith.fairness import attribute_groups
+
+    labels = attribute_groups(pd.Series(["a", None, "b"]), blanks="not stated")
+    assert labels.tolist() == ["a", "not stated", "b"]
+    banded = attribute_groups(pd.Series([20.0, None, 50.0]), bands=[30], blanks="not stated")
+    assert banded.tolist() == ["below 30", "not stated", "30 and over"]

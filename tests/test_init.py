@@ -165,8 +165,8 @@ def test_blank_sensitive_cells_are_flagged(real_frames, tmp_path, monkeypatch, c
     assert _init("data.csv") == 0
     out = capsys.readouterr().out
     text, _, _ = _drafts(tmp_path)
-    assert "- Marital  # DRAFT marital status: each value is a group; WARNING: 1 blank cell(s)" in text
-    assert "sensitive attribute 'Marital' has blank cells" in out
+    assert "- {name: Marital, blanks: not stated}  # DRAFT marital status: each value is a group; 1 blank cell(s) form their own group 'not stated'" in text
+    assert "sensitive attribute 'Marital' has blank cells: drafted as a group of their own" in out
 
 
 def test_ranges_are_not_the_observed_extremes(real_frames, tmp_path, monkeypatch):

@@ -296,6 +296,22 @@ def test_blank_sensitive_attribute_is_refused_with_row_ids(cfg, tmp_path):
                     contract=tmp_path / "contract.yaml")
 
 
+def test_blank_sensitive_cells_can_form_a_declared_group(cfg, tmp_path):
+    frame = _demo_frame()
+    frame.loc[[4, 9], "owner_age_band"] = ""
+    cfg["data"]["contract"] = str(tmp_path / "contract.yaml")
+    contract = CONTRACT.read_text().replace('levels: ["18-34", "35-49", "50-64", "65+"]',
+                                            'levels: ["18-34", "35-49", "50-64", "65+"], nullable: true')
+    (tmp_path / "contract.yaml").write_text(contract)
+    cfg["fairness"]["blank_groups"] = {"owner_age_band": "not stated"}
+    _run(cfg, _write(tmp_path, frame), tmp_path / "ok", contract=tmp_path / "contract.yaml")
+    assert (tmp_path / "ok" / "data.parquet").exists()
+    cfg["fairness"]["blank_groups"] = {"owner_age_band": "65+"}  # a label the data already uses
+    _expect_failure(cfg, tmp_path, _write(tmp_path, frame),
+                    "the label '65+' given to the blank cells of 'owner_age_band' is also one of its values",
+                    contract=tmp_path / "contract.yaml")
+
+
 def test_five_rows_are_too_few_and_the_advice_keeps_the_minimum_of_two_folds(cfg, tmp_path):
     cfg["split"] |= {"method": "stratified", "cutoff_date": None}
     message = _expect_failure(cfg, tmp_path, _write(tmp_path, _demo_frame(5)), "the data cannot support")
@@ -342,7 +358,8 @@ def test_no_fit_possible_with_more_parameters_than_rows(cfg, tmp_path):
 def test_numeric_sensitive_attribute_needs_bands(cfg, tmp_path):
     cfg["fairness"]["sensitive"] = ["credit_score"]
     _expect_failure(cfg, tmp_path, _write(tmp_path, _demo_frame()),
-                    "fairness.sensitive: 'credit_score' is numeric (integer in the contract)", "give bands")
+                    "fairness.sensitive: 'credit_score' is numeric (integer in the contract)", "give round-number bands",
+                    "declare it `type: category`")
 
 
 def test_banded_numeric_sensitive_attribute_validates(demo_config, tmp_path):

@@ -62,7 +62,8 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
     groups = {}
     for kind in ("sensitive", "segments"):
         for name in fairness[kind]:
-            labels = attribute_groups(test[name], bands=fairness.get("bands", {}).get(name))
+            labels = attribute_groups(test[name], bands=fairness.get("bands", {}).get(name),
+                                      blanks=fairness.get("blank_groups", {}).get(name))
             groups[name] = {"kind": kind, "used_as_feature": name in feature_names, "rows": group_summaries(
                 y, p, labels, min_group_size=fairness["min_group_size"], attribute=name)}
             scores[GROUP_COLUMN_PREFIX + name] = labels
