@@ -4,8 +4,10 @@ The project keeps them in its top-level ``reports/`` and ``schemas/`` folders; a
 package ships the same files as the data packages ``oddsmith._reports`` and
 ``oddsmith._schemas`` (``pyproject.toml`` maps those names onto the two folders), found with
 :mod:`importlib.resources`. When this package is imported from a source checkout (an
-editable install, or the checkout on ``PYTHONPATH``), the checkout's own folders are used,
-so the templates always come from the same place as the code that renders them.
+editable install, or the checkout on ``PYTHONPATH``), the checkout's own folders are used:
+the templates then always come from the same checkout as the code that renders them, and
+setuptools' editable finder does not resolve the mapped data packages (they hold no
+``__init__.py``).
 """
 
 from __future__ import annotations
