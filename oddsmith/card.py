@@ -32,10 +32,11 @@ from weasyprint.urls import FatalURLFetchingError, URLFetcher
 from oddsmith.errors import ArtifactError, OddsmithError
 from oddsmith.io import read_json, sha256_bytes, sha256_file, write_bytes_atomic
 from oddsmith.plots import FIGURE_NAMES
+from oddsmith.resources import template_dir
 
 log = logging.getLogger("oddsmith.card")
 
-TEMPLATE_DIR = Path(__file__).resolve().parent.parent / "reports"
+TEMPLATE_DIR = template_dir()
 TEMPLATE = "model_card.html.j2"
 STYLESHEET = "model_card.css"
 

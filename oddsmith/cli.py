@@ -9,8 +9,28 @@ from oddsmith.errors import OddsmithError
 
 DESCRIPTION = """\
 oddsmith builds and checks yes/no prediction models reproducibly.
-The analysis itself runs with Snakemake (`make demo`, or `snakemake --cores 2`);
-these commands help around it."""
+
+The analysis itself (data checks, candidate models, cut-off, model card) is a Snakemake
+workflow run in the project folder: `make demo`, or `snakemake --cores 2`. Its results go to
+results/<run>/. These commands help around it: draft the inputs for new data (init), check
+a results folder (verify), freeze it (release), compare two of them (diff) and use the
+selected model on new rows (score, rescore).
+
+Run `oddsmith COMMAND --help` for the details of one command."""
+
+
+def package_version() -> str:
+    """The installed distribution's version and where the package was imported from."""
+    from importlib.metadata import PackageNotFoundError, version
+    from pathlib import Path
+
+    import oddsmith
+
+    try:
+        number = version("oddsmith")
+    except PackageNotFoundError:
+        number = "(not installed)"
+    return f"oddsmith {number} ({Path(oddsmith.__file__).resolve().parent})"
 
 
 def _cmd_init(args) -> int:
@@ -31,6 +51,8 @@ def _cmd_init(args) -> int:
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="oddsmith", description=DESCRIPTION,
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--version", action="version", version=package_version(),
+                        help="print the installed version and the package's folder, then exit")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     p = sub.add_parser("init", help="draft a data contract and a config for a new CSV file")
     p.add_argument("data", help="the CSV file to describe")

@@ -16,8 +16,9 @@ import yaml
 
 from oddsmith.errors import ConfigError, quoted
 from oddsmith.io import read_yaml
+from oddsmith.resources import schema_file
 
-SCHEMA_PATH = Path(__file__).resolve().parent.parent / "schemas" / "config.schema.yaml"
+SCHEMA_PATH = schema_file("config.schema.yaml")
 PENALISED_KINDS = ("l1", "l2", "elastic_net")
 
 

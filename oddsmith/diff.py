@@ -308,19 +308,62 @@ def _section(title: str, rows: list[str], *, unchanged: str = "unchanged") -> li
 
 # ---- command line ----
 
+#: Exit statuses of ``oddsmith diff``, as diff(1): same, different, trouble.
+SAME, DIFFERENT, TROUBLE = 0, 1, 2
+
+DIFF_DESCRIPTION = """\
+Show what changed between two results folders (results/<run>) or releases
+(releases/<run>/<version>), B relative to A: configuration keys, the data file's hash,
+code fingerprints and library versions, the selected candidate, its coefficients (each
+change also in standard errors of A), test metrics, the cut-off and subgroup flags.
+Both folders are verified against their manifests first; nothing in them is run or changed.
+
+exit status: 0 the results are the same, 1 they differ, 2 either folder cannot be read or
+does not verify (the differences are still shown when both could be read).
+
+example:
+  oddsmith diff releases/lease_demo/1.0.0 results/lease_demo"""
+
+
+def differs(diff: dict) -> bool:
+    """Whether a :func:`compare_folders` record shows any difference in what it compares."""
+    code, coefficients = diff["code"], diff["coefficients"]
+    return bool(diff["config"] or diff["data"]["changed"] or code["rules"] or code["libraries"]
+                or code["environment"] or code["git"]["changed"] or diff["selected"]["changed"]
+                or any(b["n_changed"] or not (b["in_a"] and b["in_b"]) for b in coefficients)
+                or diff["metrics"]["threshold_free"] or diff["metrics"]["at_cutoff"] or diff["cutoff"]
+                or diff["subgroups"]["flag_changes"])
+
+
 def register(sub) -> None:
     """Add ``oddsmith diff`` to the command line."""
-    p = sub.add_parser("diff", help="what changed between two results or release folders")
-    p.add_argument("a", help="the reference folder (e.g. a release)")
-    p.add_argument("b", help="the folder to compare with it")
-    p.add_argument("--json", action="store_true", help="print the differences as JSON")
+    import argparse
+
+    p = sub.add_parser("diff", help="what changed between two results or release folders (exit 0 same, 1 differ)",
+                       description=DIFF_DESCRIPTION, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("a", metavar="A", help="the reference folder, e.g. a release")
+    p.add_argument("b", metavar="B", help="the folder to compare with it, e.g. the current results")
+    p.add_argument("--json", action="store_true", help="print the differences as one JSON record")
     p.set_defaults(func=_cmd_diff)
 
 
 def _cmd_diff(args) -> int:
-    diff = compare_folders(args.a, args.b)
+    import sys
+
+    from oddsmith.errors import OddsmithError
+
+    try:
+        diff = compare_folders(args.a, args.b)
+    except OddsmithError as exc:
+        print(f"oddsmith diff: {exc}", file=sys.stderr)
+        return TROUBLE
     if args.json:
         print(json.dumps(diff, indent=2, sort_keys=True, ensure_ascii=False, allow_nan=False))
     else:
         print(format_text(diff), end="")
-    return 0
+    unverified = [diff[side] for side in ("a", "b") if not diff["verified"][side]]
+    if unverified:
+        print(f"oddsmith diff: {' and '.join(unverified)} did not verify against its manifest; the differences "
+              "shown are not trustworthy (run `oddsmith verify` on it for the details)", file=sys.stderr)
+        return TROUBLE
+    return DIFFERENT if differs(diff) else SAME

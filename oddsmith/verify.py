@@ -371,12 +371,8 @@ DEFAULT_CONFIG = "config/config.yaml"
 
 
 def default_project_dir() -> Path:
-    """The checkout to rebuild with: the working folder if it holds a Snakefile, else the
-    checkout this oddsmith package was installed from."""
-    cwd = Path.cwd()
-    if (cwd / "Snakefile").is_file():
-        return cwd
-    return Path(__file__).resolve().parent.parent
+    """The checkout to rebuild with when ``--project`` is not given: the working folder."""
+    return Path.cwd()
 
 
 def rebuild_and_compare(run_dir, *, project_dir=None, workdir=None, cores: int = 2) -> list[str]:
@@ -396,7 +392,8 @@ def rebuild_and_compare(run_dir, *, project_dir=None, workdir=None, cores: int =
         return problems
     project_dir = Path(project_dir) if project_dir else default_project_dir()
     if not (project_dir / "Snakefile").is_file():
-        return [f"cannot rebuild: {project_dir} holds no Snakefile (use --project)"]
+        return [f"cannot rebuild: {project_dir.resolve()} is not an oddsmith project checkout (no Snakefile); "
+                "run from the checkout or give --project DIR"]
     temporary = workdir is None
     work = Path(tempfile.mkdtemp(prefix="oddsmith-rebuild-")) if temporary else Path(workdir)
     try:
@@ -531,7 +528,7 @@ def register(sub) -> None:
     p.add_argument("--rebuild", action="store_true",
                    help="also rebuild from the recorded raw inputs in a temporary folder and compare every hash")
     p.add_argument("--project", help="checkout to rebuild with and to take raw inputs from "
-                                     "(default: this folder if it has a Snakefile, else the installed checkout)")
+                                     "(default: the current folder)")
     p.add_argument("--keep", metavar="DIR", help="rebuild in DIR (must be empty) and keep it")
     p.add_argument("--cores", type=int, default=2, help="cores for the rebuild (default: %(default)s)")
     p.set_defaults(func=_cmd_verify)

@@ -93,7 +93,7 @@ rule card:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
     params:
-        code=code("stages/card", "card", "plots", script="scripts/card.py"),
+        code=code("stages/card", "card", "plots", "resources", script="scripts/card.py"),
         templates=code_fingerprint(
             (), extra_files=sorted(glob("reports/*.j2") + glob("reports/*.css"))
         ),

@@ -72,6 +72,7 @@ if SCORING["data"]:
                 "contract",
                 "card",
                 "plots",
+                "resources",
                 script="scripts/score.py",
             ),
         script:

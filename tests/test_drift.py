@@ -28,7 +28,7 @@ def test_psi_hand_computed():
 
 @pytest.mark.parametrize("seed", range(5))
 def test_psi_equals_symmetrised_kullback_leibler(seed):
-    # Reference: PSI = scipy.stats.entropy(A, E) + entropy(E, A) (REFERENCES.md, PSI row).
+    # Reference: PSI = scipy.stats.entropy(A, E) + entropy(E, A) (docs/references.md).
     rng = np.random.default_rng(seed)
     e, a = rng.integers(0, 500, 12), rng.integers(0, 500, 12)
     e[rng.integers(12)] = 0  # an empty bin: the policy keeps PSI finite

@@ -42,7 +42,7 @@ def _slow_auc(y, p):
 
 
 def _slow_hosmer_lemeshow(y, p, groups):
-    """Hosmer–Lemeshow written from the definition with plain loops (see REFERENCES.md)."""
+    """Hosmer–Lemeshow written from the definition with plain loops (see docs/references.md)."""
     rows = sorted(zip(p, y), key=lambda r: r[0])
     n = len(rows)
     cuts = []
@@ -68,7 +68,7 @@ def _slow_hosmer_lemeshow(y, p, groups):
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_auc_log_loss_brier_match_sklearn(seed):
-    # scikit-learn as the reference library (REFERENCES.md)
+    # scikit-learn as the reference library (docs/references.md)
     y, p = _sample(seed)
     assert metrics.auc(y, p) == pytest.approx(skm.roc_auc_score(y, p), abs=1e-12)
     assert metrics.log_loss(y, p) == pytest.approx(skm.log_loss(y, p), rel=1e-12)

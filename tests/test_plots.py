@@ -50,7 +50,7 @@ def _no_external_reference(svg: bytes) -> None:
 
 
 def test_roc_points_match_scikit_learn_with_ties(scores):
-    # scikit-learn's roc_curve is the reference implementation (REFERENCES.md).
+    # scikit-learn's roc_curve is the reference implementation (docs/references.md).
     y, p = scores
     fpr, tpr = plots.roc_points(y, p)
     ref_fpr, ref_tpr, _ = roc_curve(y, p, drop_intermediate=False)

@@ -12,7 +12,7 @@ from pathlib import Path
 import pytest
 
 from oddsmith.cli import main
-from oddsmith.diff import compare_folders, config_changes, flatten, format_text
+from oddsmith.diff import compare_folders, config_changes, differs, flatten, format_text
 from oddsmith.io import sha256_file
 from oddsmith.release import ReleaseError, release
 from oddsmith.verify import verify_results
@@ -21,6 +21,34 @@ from conftest import run_snakemake
 
 RUN = "results/lease_demo"
 EPOCH = "1767225600"
+
+
+def _no_differences() -> dict:
+    return {"config": [], "data": {"changed": False},
+            "code": {"rules": [], "libraries": [], "environment": [], "git": {"changed": False}},
+            "selected": {"changed": False}, "coefficients": [{"n_changed": 0, "in_a": True, "in_b": True}],
+            "metrics": {"threshold_free": [], "at_cutoff": []}, "cutoff": [], "subgroups": {"flag_changes": []}}
+
+
+def test_differs_sees_a_change_in_any_compared_section():
+    assert not differs(_no_differences())
+    changes = [("config", [{"key": "run"}]), ("data", {"changed": True}), ("cutoff", [{"name": "x"}]),
+               ("selected", {"changed": True}), ("subgroups", {"flag_changes": [{"group": "g"}]}),
+               ("coefficients", [{"n_changed": 1, "in_a": True, "in_b": True}]),
+               ("coefficients", [{"n_changed": 0, "in_a": True, "in_b": False}])]
+    for key, value in changes:
+        assert differs(_no_differences() | {key: value}), key
+    for key in ("rules", "libraries", "environment"):
+        record = _no_differences()
+        record["code"][key] = [{"x": 1}]
+        assert differs(record), key
+    record = _no_differences()
+    record["code"]["git"]["changed"] = True
+    assert differs(record)
+    for key in ("threshold_free", "at_cutoff"):
+        record = _no_differences()
+        record["metrics"][key] = [{"name": "auc"}]
+        assert differs(record), key
 
 
 def test_flatten_keys_lists_of_named_items_by_name():
@@ -87,8 +115,26 @@ def test_diff_of_a_cost_change_names_only_threshold_related_changes(two_builds):
 @pytest.mark.e2e
 def test_diff_json_from_the_command_line(two_builds, capsys):
     a, b = two_builds
-    assert main(["diff", str(a), str(b), "--json"]) == 0
+    assert main(["diff", str(a), str(b), "--json"]) == 1  # they differ (diff(1) convention)
     assert json.loads(capsys.readouterr().out) == json.loads(json.dumps(compare_folders(a, b)))
+
+
+@pytest.mark.e2e
+def test_diff_exit_status_same_different_unverified(two_builds, tmp_path, capsys):
+    a, b = two_builds
+    assert main(["diff", str(a), str(a)]) == 0
+    assert main(["diff", str(a), str(b)]) == 1
+    capsys.readouterr()
+    tampered = tmp_path / "lease_demo"
+    shutil.copytree(a, tampered)
+    with open(tampered / "evaluation" / "metrics.json", "a", encoding="utf-8") as handle:
+        handle.write(" ")
+    assert main(["diff", str(a), str(tampered)]) == 2
+    captured = capsys.readouterr()
+    assert "NOT verified" in captured.out
+    assert f"{tampered} did not verify against its manifest" in captured.err
+    assert main(["diff", str(tmp_path / "missing"), str(a)]) == 2
+    assert "oddsmith diff: cannot compare" in capsys.readouterr().err
 
 
 def _listing(folder: Path) -> dict:

@@ -189,7 +189,7 @@ def test_one_changed_data_value_reruns_everything(built, every_job, tmp_path):
 # ---- every module a rule runs is in its code fingerprint (static check, no workflow run) ----
 
 #: Imports reached only from command-line entry points of a rule's modules, never by the rule.
-CLI_ONLY = {"score": {"verify", "manifest", "whatif"}}
+CLI_ONLY = {"score": {"verify", "manifest", "rescore"}}
 
 
 def _imports(path: Path) -> set[str]:

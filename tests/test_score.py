@@ -349,6 +349,13 @@ def test_cli_scores_a_verified_folder(verified_demo, tmp_path, capsys):
     assert main(["score", str(verified_demo), str(BATCH), "-o", str(out), "--top-k", "2"]) == 0
     assert "2,000 rows" in capsys.readouterr().out
     assert sorted(p.name for p in out.iterdir()) == sorted(OUTPUTS)
+    before = {p.name: (p.read_bytes(), p.stat().st_mtime_ns) for p in out.iterdir()}
+    assert main(["score", str(verified_demo), str(BATCH), "-o", str(out)]) == 1
+    message = capsys.readouterr().err
+    assert f"output folder {out} is not empty" in message and "--overwrite" in message
+    assert {p.name: (p.read_bytes(), p.stat().st_mtime_ns) for p in out.iterdir()} == before
+    assert main(["score", str(verified_demo), str(BATCH), "-o", str(out), "--top-k", "2", "--overwrite"]) == 0
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == {n: b for n, (b, _) in before.items()}
     scored = read_parquet(out / "scores.parquet")
     assert "reason_2" in scored.columns and "reason_3" not in scored.columns
     built = read_parquet(verified_demo / "scoring" / "scores.parquet")
@@ -369,6 +376,18 @@ def test_cli_refuses_a_tampered_folder_and_writes_nothing(verified_demo, tmp_pat
     assert not out.exists()
     with pytest.raises(ArtifactError, match="inside the results folder"):
         score_folder(verified_demo, BATCH, verified_demo / "scoring-again")
+
+
+def test_score_refuses_a_non_empty_output_folder_before_reading_anything(tmp_path):
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "notes.txt").write_text("keep me")
+    with pytest.raises(ArtifactError, match=f"output folder {out} is not empty \\(holds notes.txt\\).*--overwrite"):
+        score_folder(tmp_path / "no-such-results", BATCH, out)
+    assert [p.name for p in out.iterdir()] == ["notes.txt"] and (out / "notes.txt").read_text() == "keep me"
+    (tmp_path / "a-file").write_text("")
+    with pytest.raises(ArtifactError, match="exists and is not a folder"):
+        score_folder(tmp_path / "no-such-results", BATCH, tmp_path / "a-file", overwrite=True)
 
 
 def test_carried_text_from_the_batch_is_neutralised_in_csv_only():

@@ -1,4 +1,4 @@
-"""What-if: probabilities before and after a change, contributions, refusals with reasons."""
+"""rescore: probabilities before and after a change, contributions, refusals with reasons."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from oddsmith.errors import ContractError
-from oddsmith.whatif import format_what_if, parse_settings, read_record, row_from_file, row_from_record, what_if
+from oddsmith.rescore import format_rescore, parse_settings, read_record, row_from_file, row_from_record, rescore_row
 
 from test_score import BATCH, raw_rows, toy_model, verified_demo  # noqa: F401 (fixture)
 
@@ -19,7 +19,7 @@ def _logistic(eta: float) -> float:
 
 def test_change_moves_probability_and_both_interaction_partners():
     sm = toy_model()
-    result = what_if(sm, raw_rows(("R1", "3", "1", "y")), {"b": "2"})
+    result = rescore_row(sm, raw_rows(("R1", "3", "1", "y")), {"b": "2"})
     # eta before = -1 + 2.4 - 0.5 + 0.3*3 + 1.2 = 3.0; after: b = 2 -> -1 + 2.4 - 1.0 + 1.8 + 1.2 = 3.4.
     assert result["before"]["probability"] == pytest.approx(_logistic(3.0), abs=1e-15)
     assert result["after"]["probability"] == pytest.approx(_logistic(3.4), abs=1e-15)
@@ -31,19 +31,19 @@ def test_change_moves_probability_and_both_interaction_partners():
     assert rows["a"]["change"] == pytest.approx(0.45, abs=1e-12) and not rows["a"]["input_changed"]
     assert "c" not in rows
     assert sum(r["change"] for r in result["contributions"]) == pytest.approx(0.4, abs=1e-12)
-    text = format_what_if(result)
+    text = format_rescore(result)
     assert "through an interaction" in text and "log-odds" in text
 
 
 def test_decision_crosses_the_cutoff():
     sm = toy_model(cutoff=0.5)
-    result = what_if(sm, raw_rows(("R1", "0", "3", "x")), {"a": "4", "c": "y"})
+    result = rescore_row(sm, raw_rows(("R1", "0", "3", "x")), {"a": "4", "c": "y"})
     assert (result["before"]["decision"], result["after"]["decision"]) == ("pass", "flag")
 
 
 def test_missing_and_unseen_values_follow_the_recipe_and_are_flagged():
     sm = toy_model()
-    result = what_if(sm, raw_rows(("R1", "1", "1", "x")), {"c": None})
+    result = rescore_row(sm, raw_rows(("R1", "1", "1", "x")), {"c": None})
     assert result["after"]["flags"] == ["c:filled", "c:unseen"] and result["before"]["flags"] == []
     assert result["changes"][0]["after"] is None
 
@@ -52,17 +52,17 @@ def test_values_outside_the_contract_are_refused_with_the_reason():
     sm = toy_model()
     row = raw_rows(("R1", "1", "1", "x"))
     with pytest.raises(ContractError) as err:
-        what_if(sm, row, {"a": "11", "c": "purple"})
+        rescore_row(sm, row, {"a": "11", "c": "purple"})
     message = str(err.value)
     assert message.startswith("refused") and "less_than_or_equal_to(10)" in message and "'purple'" in message
     with pytest.raises(ContractError, match="expected a number"):
-        what_if(sm, row, {"b": "lots"})
+        rescore_row(sm, row, {"b": "lots"})
     with pytest.raises(ContractError, match="'colour' is not a column of the data contract"):
-        what_if(sm, row, {"colour": "red"})
+        rescore_row(sm, row, {"colour": "red"})
     with pytest.raises(ContractError, match="'id' is the id column"):
-        what_if(sm, row, {"id": "R9"})
+        rescore_row(sm, row, {"id": "R9"})
     with pytest.raises(ContractError, match="'y' is the target"):
-        what_if(sm, row, {"y": "1"})
+        rescore_row(sm, row, {"y": "1"})
 
 
 def test_parse_settings_and_records():
@@ -93,11 +93,11 @@ def test_row_from_file_finds_one_row(tmp_path):
 
 
 @pytest.mark.e2e
-def test_cli_what_if_on_the_demo(verified_demo, capsys):
+def test_cli_rescore_on_the_demo(verified_demo, capsys):
     from oddsmith.cli import main
 
     folder = verified_demo
-    args = ["what-if", str(folder), "--row", "LB-000002", "--data", str(BATCH), "--set", "debt_service_ratio=0.3"]
+    args = ["rescore", str(folder), "--row", "LB-000002", "--data", str(BATCH), "--set", "debt_service_ratio=0.3"]
     assert main(args + ["--json"]) == 0
     result = json.loads(capsys.readouterr().out)
     assert result["after"]["probability"] < result["before"]["probability"]

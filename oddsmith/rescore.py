@@ -1,4 +1,4 @@
-"""What-if: one row's probability and decision before and after changing some inputs.
+"""Rescore one row: its probability and decision before and after changing some inputs.
 
 The row comes from a data file (by id) or from a JSON record. Every changed value is
 written as the text a CSV cell would hold and goes through the same data contract and
@@ -95,7 +95,7 @@ def _as_cell(name: str, value):
     return repr(value) if isinstance(value, float) else str(value)
 
 
-def what_if(sm: ScoringModel, row: pd.DataFrame, changes: dict, *, reference: dict | None = None) -> dict:
+def rescore_row(sm: ScoringModel, row: pd.DataFrame, changes: dict, *, reference: dict | None = None) -> dict:
     """Score a raw row before and after ``changes`` (column -> CSV text or None).
 
     Returns
@@ -169,8 +169,8 @@ def _state(sm: ScoringModel, typed: pd.DataFrame, reference: dict) -> dict:
             "contrib": contributions(sm, X, reference)[0].tolist()}
 
 
-def format_what_if(result: dict) -> str:
-    """Plain-text report of a what-if result."""
+def format_rescore(result: dict) -> str:
+    """Plain-text report of a rescored row."""
     b, a = result["before"], result["after"]
     cutoff = "none (no row is flagged)" if result["cutoff"] is None else f"{result['cutoff']:.4f}"
     lines = [f"row {result['id']}: model {result['candidate']} ({result['link']} link), cut-off {cutoff}",
