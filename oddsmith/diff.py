@@ -100,7 +100,7 @@ def flatten(value, prefix: str = "") -> dict:
     Examples
     --------
     >>> flatten({"costs": {"false_positive": 1}, "candidates": [{"name": "a", "kind": "logit"}]})
-    {'costs.false_positive': 1, 'candidates[a].kind': 'logit'}
+    {'candidates[a].kind': 'logit', 'costs.false_positive': 1}
     """
     if isinstance(value, dict) and value:
         out = {}
