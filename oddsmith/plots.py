@@ -18,6 +18,7 @@ import math
 import numpy as np
 from matplotlib import rc_context
 from matplotlib.figure import Figure
+from matplotlib.ticker import LogLocator, NullFormatter
 
 #: The card's own palette: slate ink, deep teal, ochre, plum, moss, and two greys.
 PALETTE = {
@@ -227,7 +228,7 @@ def cost_curve_svg(curve, *, adopted, bayes: float, interval: tuple[float, float
         cost = np.asarray(curve["expected_cost_per_case"], dtype=float) * 1000.0
         if interval is not None:
             ax.axvspan(interval[0], interval[1], facecolor=PALETTE["mist"], hatch="\\\\\\", edgecolor=PALETTE["grey"],
-                       linewidth=0, label="bootstrap interval of the cut-off")
+                       linewidth=0, label="bootstrap interval")
         ax.plot(x, cost, color=PALETTE["teal"], linewidth=1.2, label="expected cost")
         ax.axhline(flag_none, color=PALETTE["plum"], linestyle=(0, (1, 1.5)), linewidth=0.9, label="flag none")
         ax.axhline(flag_all, color=PALETTE["moss"], linestyle=(0, (5, 1.5, 1, 1.5)), linewidth=0.9,
@@ -311,6 +312,10 @@ def coefficients_svg(model: dict, *, sds: dict | None = None) -> bytes:
         ax.grid(axis="y", visible=False)
         if log:
             ax.set_xscale("log")
+            # Plain numbers: with mathtext off, the default log labels would print their TeX source.
+            ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 1.5, 2.0, 3.0, 5.0, 7.0)))
+            ax.xaxis.set_major_formatter(lambda value, _: f"{value:g}")
+            ax.xaxis.set_minor_formatter(NullFormatter())
         ax.set_xlabel(xlabel)
         return _svg(fig)
 
@@ -320,7 +325,7 @@ def score_distribution_svg(y, p, *, cutoff=None) -> bytes:
     y, p = np.asarray(y), np.asarray(p, dtype=float)
     edges = np.linspace(0.0, 1.0, 41)
     with rc_context(STYLE):
-        fig = _figure(HALF, 2.9)
+        fig = _figure(HALF, 3.5)
         ax = fig.add_subplot()
         styles = ((0, "no event", PALETTE["teal"], "-", "////"), (1, "event", PALETTE["ochre"], (0, (3, 1.5)), None))
         for value, label, colour, line, hatch in styles:
@@ -334,7 +339,8 @@ def score_distribution_svg(y, p, *, cutoff=None) -> bytes:
         upper = min(1.0, float(np.quantile(p, 0.999)) * 1.1) if p.size else 1.0
         ax.set(xlim=(0, max(upper, (cutoff or 0) * 1.1, 0.05)), xlabel="predicted probability",
                ylabel="density", title="Predicted probabilities by outcome")
-        ax.legend(loc="upper right")
+        # Below the axes: the event distribution's long right tail runs under the upper right.
+        ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=1)
         return _svg(fig)
 
 

@@ -251,6 +251,12 @@ def test_roc_legend_sits_outside_the_axes(monkeypatch, scores):
     assert _data_points_under_legend(ax) == 0
 
 
+def test_score_distribution_legend_sits_outside_the_axes(monkeypatch, scores):
+    y, p = scores
+    ax = _drawn(monkeypatch, lambda: plots.score_distribution_svg(y, p, cutoff=0.3)).axes[0]
+    assert not ax.get_legend().get_window_extent().overlaps(ax.get_window_extent())
+
+
 def test_reliability_legend_covers_no_bin(monkeypatch):
     bins = [{"mean_predicted": m, "observed_rate": m * 1.05, "ci_low": m * 0.8, "ci_high": m * 1.3, "n": 201}
             for m in (0.04, 0.07, 0.09, 0.11, 0.13, 0.15, 0.18, 0.22, 0.28, 0.45)]  # the demo's shape
