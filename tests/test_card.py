@@ -367,7 +367,8 @@ def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
     assert "credit_score" in attention["Variance inflation"]["found"]
     assert "< 0.001" in attention["Base-rate drift between training and test"]["found"]
     assert "uncommitted changes" in attention["Code state"]["found"]
-    assert "18-34 (0.642)" in attention["Groups below the four-fifths screen"]["found"]
+    young = next(r for r in run["subgroups"]["attributes"]["owner_age_band"]["rows"] if r["group"] == "18-34")
+    assert f"18-34 ({fmt_fixed(young['adverse_impact_ratio'])})" in attention["Groups below the four-fifths screen"]["found"]
     assert all(f["advice"] for f in attention.values())
     html = card.render_html(card.build_context(run, release=None))
     for f in attention.values():
