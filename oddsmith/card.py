@@ -31,7 +31,7 @@ from weasyprint.urls import FatalURLFetchingError, URLFetcher
 
 from oddsmith.errors import ArtifactError, OddsmithError
 from oddsmith.io import read_json, sha256_bytes, sha256_file, write_bytes_atomic
-from oddsmith.plots import FIGURE_NAMES
+from oddsmith.plots import FIGURE_NAMES, cost_unit, equal_count
 from oddsmith.resources import template_dir
 
 log = logging.getLogger("oddsmith.card")
@@ -90,7 +90,7 @@ NUMBER_FORMATS = (
     "coefficients, standard errors, intervals, odds ratios and marginal effects: 4 significant digits",
     "rates and shares: percentages with 1 decimal",
     "counts: whole numbers with thousands separators",
-    "costs: whole cost units with thousands separators",
+    "costs: whole units of the declared currency with thousands separators",
     "p-values: 3 decimals; below 0.001 shown as “< 0.001”",
     "hashes: the first 12 hexadecimal digits of the SHA-256 (the full value is in the manifest)",
 )
@@ -415,7 +415,7 @@ def _subgroup_finding(run):
     flagged = [f"{clip(attr)}: {clip(row['group'])} ({fmt_fixed(row['adverse_impact_ratio'])})"
                for attr, block in run["subgroups"]["attributes"].items() for row in block["rows"]
                if row.get("adverse_impact_flag")]
-    basis = "adverse-impact ratio at least 4/5"
+    basis = "adverse-impact ratio at least 4/5 (a US employment-selection guideline, applied here by analogy)"
     if flagged:
         return _finding("attention", "Groups below the four-fifths screen", basis, "; ".join(flagged),
                         "Investigate why these groups are flagged more often: differences in the inputs, in "
@@ -494,7 +494,9 @@ def _decision_findings(run):
     trivial = min(costs["flag_none"], costs["flag_all"])
     if costs["adopted"] is not None and costs["adopted"] >= trivial:
         out.append(_finding("attention", "Cost against trivial rules (training, out-of-fold)",
-                            "below flag-none and flag-all", f"{fmt_fixed(costs['adopted'], 0)} per 1,000 cases",
+                            "below flag-none and flag-all, on the same out-of-fold predictions",
+                            f"{fmt_fixed(costs['adopted'], 0)} {cost_unit((run['config'].get('costs') or {}).get('currency'))} "
+                            f"per 1,000 cases",
                             "The model does not lower the expected cost of decisions; it adds no value at these costs."))
     if run["selected"]["candidate"] == "baseline" or run["model"].get("kind") == "baseline":
         out.append(_finding("attention", "Selected candidate", "a model with inputs", "the intercept-only baseline",
@@ -529,6 +531,26 @@ def _contract_rows(run: dict) -> list[dict]:
     return rows
 
 
+def trivial_costs_on_test(metrics: dict, costs: dict) -> dict:
+    """Cost per 1,000 test cases of flagging none and of flagging all, from the test counts.
+
+    The threshold stage prices the two trivial rules on out-of-fold training predictions;
+    the realised cost of the adopted cut-off is on the test part. These are the trivial
+    rules on the same test cases: flag none costs c_FN per event and c_TN per non-event,
+    flag all c_TP per event and c_FP per non-event (exact arithmetic on stored counts).
+
+    Examples
+    --------
+    >>> trivial_costs_on_test({"n": 10, "events": 2}, {"cost_fp": 1.0, "cost_fn": 5.0, "cost_tp": 0.0, "cost_tn": 0.0})
+    {'flag_none': 1000.0, 'flag_all': 800.0}
+    """
+    n, events = metrics["n"], metrics["events"]
+    non_events = n - events
+    none = events * costs["cost_fn"] + non_events * costs["cost_tn"]
+    every = events * costs["cost_tp"] + non_events * costs["cost_fp"]
+    return {"flag_none": 1000.0 * none / n, "flag_all": 1000.0 * every / n}
+
+
 def build_context(run: dict, *, release: dict | None) -> dict:
     """Everything the template shows, taken from the artifacts without computation."""
     config, manifest = run["config"], run["manifest"]
@@ -554,6 +576,9 @@ def build_context(run: dict, *, release: dict | None) -> dict:
         "slope_band": CALIBRATION_SLOPE_BAND, "min_epv": MIN_EVENTS_PER_PARAMETER, "hl_alpha": HL_ALPHA,
         "number_formats": NUMBER_FORMATS, "text_limit": TEXT_LIMIT, "name_limit": NAME_LIMIT,
         "is_logit": bool(model.get("coef_table")) and model["coef_table"][0].get("odds_ratio") is not None,
+        "cost_unit": cost_unit((config.get("costs") or {}).get("currency")),
+        "test_costs": trivial_costs_on_test(run["metrics"], run["choice"]["costs"]),
+        "equal_count_bins": equal_count(run["metrics"]["reliability"]),
     }
 
 

@@ -18,6 +18,7 @@ import math
 import numpy as np
 from matplotlib import rc_context
 from matplotlib.figure import Figure
+from matplotlib.ticker import LogLocator, NullFormatter
 
 #: The card's own palette: slate ink, deep teal, ochre, plum, moss, and two greys.
 PALETTE = {
@@ -110,7 +111,7 @@ def roc_svg(y, p, *, auc: float, auc_low: float, auc_high: float, cutoff=None, o
     by the apply_cutoff stage; it is drawn only when ``cutoff`` is not None.
     """
     with rc_context(STYLE):
-        fig = _figure(HALF, 2.9)
+        fig = _figure(HALF, 3.5)
         ax = fig.add_subplot()
         fpr, tpr = roc_points(y, p)
         ax.plot([0, 1], [0, 1], color=PALETTE["grey"], linestyle=(0, (4, 3)), linewidth=0.8, label="chance")
@@ -122,7 +123,8 @@ def roc_svg(y, p, *, auc: float, auc_low: float, auc_high: float, cutoff=None, o
         ax.set(xlim=(0, 1), ylim=(0, 1.01), xlabel="false-positive rate (1 − specificity)",
                ylabel="true-positive rate (sensitivity)", title="Discrimination on the test part")
         ax.set_aspect("equal")
-        ax.legend(loc="lower right")
+        # Below the axes: in the lower right it would cover the curve of a weak model.
+        ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=1)
         return _svg(fig)
 
 
@@ -151,11 +153,31 @@ def error_bar_lengths(centre, low, high) -> np.ndarray:
     return np.vstack([np.maximum(centre - low, 0.0), np.maximum(high - centre, 0.0)])
 
 
+def equal_count(bins: list[dict]) -> bool:
+    """Whether the bins hold the same number of cases, give or take one (quantile bins).
+
+    Examples
+    --------
+    >>> equal_count([{"n": 201}, {"n": 200}]), equal_count([{"n": 50}, {"n": 300}])
+    (True, False)
+    """
+    counts = [b["n"] for b in bins]
+    return not counts or max(counts) - min(counts) <= 1
+
+
 def reliability_svg(bins: list[dict]) -> bytes:
-    """Observed event rate against mean predicted probability per bin, with bin counts."""
+    """Observed event rate against mean predicted probability per bin.
+
+    A panel of bin counts is drawn below only when the bins differ in size; equal-count bins
+    would give a row of identical bars, and their count is stated in the card's caption.
+    """
     with rc_context(STYLE):
         fig = _figure(HALF, 2.9)
-        top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=[3, 1])
+        with_counts = not equal_count(bins)
+        if with_counts:
+            top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=[3, 1])
+        else:
+            top, bottom = fig.add_subplot(), None
         x = np.array([b["mean_predicted"] for b in bins], dtype=float)
         obs = np.array([b["observed_rate"] for b in bins], dtype=float)
         low, high = interval_arrays(bins)
@@ -166,6 +188,9 @@ def reliability_svg(bins: list[dict]) -> bytes:
                      linewidth=1.0, capsize=2, label="observed rate, 95% interval")
         top.set(xlim=(0, upper), ylim=(0, upper), ylabel="observed event rate", title="Calibration on the test part")
         top.legend(loc="upper left")
+        if bottom is None:
+            top.set_xlabel("mean predicted probability in bin")
+            return _svg(fig)
         width = upper / max(len(bins), 1) * 0.55
         bottom.bar(x, [b["n"] for b in bins], width=width, color=PALETTE["mist"], edgecolor=PALETTE["ink"],
                    linewidth=0.5, hatch="////")
@@ -174,52 +199,98 @@ def reliability_svg(bins: list[dict]) -> bytes:
         return _svg(fig)
 
 
-def cost_curve_svg(curve, *, adopted, bayes: float, interval: tuple[float, float] | None, flag_none: float,
-                   flag_all: float, cost_label: str = "expected cost per case") -> bytes:
-    """Expected cost per case against the cut-off, with the chosen cut-offs marked.
+def cost_unit(currency: str | None) -> str:
+    """The printed unit of costs: the configured currency, or "cost units" for ``unit``.
 
-    ``curve`` has columns ``cutoff`` and ``expected_cost_per_case``; ``adopted`` may be None
-    (flag none). ``interval`` is the bootstrap interval of the cut-off, None when there is
-    none. ``flag_none`` and ``flag_all`` are costs per case of the two trivial rules.
+    Examples
+    --------
+    >>> cost_unit("EUR"), cost_unit("unit"), cost_unit(None)
+    ('EUR', 'cost units', 'cost units')
     """
+    return "cost units" if currency in (None, "", "unit") else str(currency)
+
+
+def cost_curve_svg(curve, *, adopted, bayes: float, interval: tuple[float, float] | None, flag_none: float,
+                   flag_all: float, currency: str | None = None) -> bytes:
+    """Expected cost per 1,000 cases against the cut-off, with the chosen cut-offs marked.
+
+    ``curve`` has columns ``cutoff`` and ``expected_cost_per_case``; it is drawn per 1,000
+    cases, the unit of the card's cost tables. ``adopted`` may be None (flag none).
+    ``interval`` is the bootstrap interval of the cut-off, None when there is none.
+    ``flag_none`` and ``flag_all`` are costs per 1,000 cases of the two trivial rules;
+    ``currency`` as in :func:`cost_unit`.
+    """
+    unit = cost_unit(currency)
     with rc_context(STYLE):
         fig = _figure(HALF, 3.4)
         ax = fig.add_subplot()
         x = np.asarray(curve["cutoff"], dtype=float)
-        cost = np.asarray(curve["expected_cost_per_case"], dtype=float)
+        cost = np.asarray(curve["expected_cost_per_case"], dtype=float) * 1000.0
         if interval is not None:
             ax.axvspan(interval[0], interval[1], facecolor=PALETTE["mist"], hatch="\\\\\\", edgecolor=PALETTE["grey"],
-                       linewidth=0, label="bootstrap interval of the cut-off")
-        ax.plot(x, cost, color=PALETTE["teal"], linewidth=1.2, label=cost_label)
+                       linewidth=0, label="bootstrap interval")
+        ax.plot(x, cost, color=PALETTE["teal"], linewidth=1.2, label="expected cost")
         ax.axhline(flag_none, color=PALETTE["plum"], linestyle=(0, (1, 1.5)), linewidth=0.9, label="flag none")
         ax.axhline(flag_all, color=PALETTE["moss"], linestyle=(0, (5, 1.5, 1, 1.5)), linewidth=0.9,
                    label="flag all")
         ax.axvline(bayes, color=PALETTE["ink"], linestyle=(0, (4, 2)), linewidth=0.9, label=f"Bayes cut-off {bayes:.4f}")
         if adopted is not None:
             ax.axvline(adopted, color=PALETTE["ochre"], linewidth=1.4, label=f"adopted cut-off {adopted:.4f}")
-        ax.set(xlim=(0, 1), xlabel="cut-off (flag when p ≥ cut-off)", ylabel="expected cost per case",
+        ax.yaxis.set_major_formatter(lambda value, _: f"{value:,.0f}")
+        ax.set(xlim=(0, 1), xlabel="cut-off (flag when p ≥ cut-off)", ylabel=f"expected cost per 1,000 cases ({unit})",
                title="Cost of decisions (out-of-fold)")
         ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=2)
         return _svg(fig)
 
 
-def coefficients_svg(model: dict) -> bytes:
-    """Interval chart of the selected model's terms (intercept left out).
+def per_sd_values(rows: list[dict], sds: dict) -> list[tuple]:
+    """(term, estimate, interval low, interval high) per training SD of each design column.
 
-    Logit: odds ratios with 95% intervals on a log axis. Probit and complementary log-log:
-    coefficients with 95% intervals. Penalised fits: standardised coefficients as points
-    (no Wald intervals exist for them). A model without terms gets a labelled empty panel.
+    A coefficient b per unit of a column with training SD s is b·s per SD; a Wald interval
+    scales the same way (s > 0). Odds ratios per SD are exp(b·s) with the interval ends
+    exp(low·s), exp(high·s).
+
+    Examples
+    --------
+    >>> per_sd_values([{"term": "x", "estimate": 0.5, "ci_low": 0.1, "ci_high": 0.9, "odds_ratio": 1.6}], {"x": 2.0})
+    [('x', 2.718281828459045, 1.2214027581601699, 6.0496474644129465)]
+    """
+    out = []
+    for r in rows:
+        sd = float(sds[r["term"]])
+        values = [r["estimate"] * sd, r["ci_low"] * sd, r["ci_high"] * sd]
+        if r.get("odds_ratio") is not None:
+            values = [math.exp(v) for v in values]
+        out.append((r["term"], *values))
+    return out
+
+
+def coefficients_svg(model: dict, *, sds: dict | None = None) -> bytes:
+    """Interval chart of the selected model's terms (intercept left out), per SD of each input.
+
+    With ``sds`` (design column → training SD, from the recipe) every term is drawn per
+    standard deviation of its design column, so terms on different units compare: logit as
+    odds ratios per SD with 95% intervals on a log axis, probit and complementary log-log as
+    coefficients per SD with 95% intervals. Without ``sds``, per unit of the design column.
+    Penalised fits: their standardised coefficients (already per SD) as points (no Wald
+    intervals exist for them). A model without terms gets a labelled empty panel.
     """
     rows = [r for r in model.get("coef_table") or [] if r["term"] != "intercept"]
-    if rows and rows[0].get("odds_ratio") is not None:
+    per = "per SD of the design column" if sds is not None else "per unit of the design column"
+    logit = bool(rows) and rows[0].get("odds_ratio") is not None
+    if rows and sds is not None:
+        values = per_sd_values(rows, sds)
+    elif logit:
         values = [(r["term"], r["odds_ratio"], r["or_ci_low"], r["or_ci_high"]) for r in rows]
-        reference, xlabel, log = 1.0, "odds ratio (95% interval, log scale)", True
-    elif rows:
+    else:
         values = [(r["term"], r["estimate"], r["ci_low"], r["ci_high"]) for r in rows]
-        reference, xlabel, log = 0.0, f"coefficient on the {model.get('link', '')} scale (95% interval)", False
+    if logit:
+        reference, xlabel, log = 1.0, f"odds ratio {per} (95% interval, log scale)", True
+    elif rows:
+        reference, xlabel, log = 0.0, f"coefficient on the {model.get('link', '')} scale {per} (95% interval)", False
     else:
         values = [(t, c, None, None) for t, c in sorted((model.get("coefficients") or {}).items())]
-        reference, xlabel, log = 0.0, "standardised coefficient (penalised, no interval)", False
+        reference, xlabel, log = 0.0, "standardised coefficient: per SD of the design column (penalised, no interval)", False
     with rc_context(STYLE):
         fig = _figure(WIDE, max(1.4, 0.7 + 0.165 * len(values)))
         ax = fig.add_subplot()
@@ -241,6 +312,10 @@ def coefficients_svg(model: dict) -> bytes:
         ax.grid(axis="y", visible=False)
         if log:
             ax.set_xscale("log")
+            # Plain numbers: with mathtext off, the default log labels would print their TeX source.
+            ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 1.5, 2.0, 3.0, 5.0, 7.0)))
+            ax.xaxis.set_major_formatter(lambda value, _: f"{value:g}")
+            ax.xaxis.set_minor_formatter(NullFormatter())
         ax.set_xlabel(xlabel)
         return _svg(fig)
 
@@ -250,7 +325,7 @@ def score_distribution_svg(y, p, *, cutoff=None) -> bytes:
     y, p = np.asarray(y), np.asarray(p, dtype=float)
     edges = np.linspace(0.0, 1.0, 41)
     with rc_context(STYLE):
-        fig = _figure(HALF, 2.9)
+        fig = _figure(HALF, 3.5)
         ax = fig.add_subplot()
         styles = ((0, "no event", PALETTE["teal"], "-", "////"), (1, "event", PALETTE["ochre"], (0, (3, 1.5)), None))
         for value, label, colour, line, hatch in styles:
@@ -264,7 +339,8 @@ def score_distribution_svg(y, p, *, cutoff=None) -> bytes:
         upper = min(1.0, float(np.quantile(p, 0.999)) * 1.1) if p.size else 1.0
         ax.set(xlim=(0, max(upper, (cutoff or 0) * 1.1, 0.05)), xlabel="predicted probability",
                ylabel="density", title="Predicted probabilities by outcome")
-        ax.legend(loc="upper right")
+        # Below the axes: the event distribution's long right tail runs under the upper right.
+        ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=1)
         return _svg(fig)
 
 

@@ -13,6 +13,7 @@ rule model_figures:
     input:
         probability_metrics="results/{run}/evaluation/probability_metrics.json",
         selected="results/{run}/comparison/selected.json",
+        recipe="results/{run}/features/recipe.json",
         models=expand(
             "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
         ),
@@ -59,6 +60,7 @@ rule figures:
         runtime=RES["runtime"],
     params:
         figures=DECISION_FIGURES,
+        currency=CONFIG["costs"]["currency"],
         code=code("stages/figures", "plots", script="scripts/figures.py"),
     script:
         "../scripts/figures.py"

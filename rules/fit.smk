@@ -42,6 +42,9 @@ rule compare:
         oof=expand(
             "results/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
         ),
+        models=expand(
+            "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
+        ),
     output:
         table="results/{run}/comparison/table.json",
         selected="results/{run}/comparison/selected.json",
@@ -57,6 +60,12 @@ rule compare:
     params:
         candidates=CANDIDATES,
         selection=CONFIG["selection"],
-        code=code("stages/compare", "metrics", "solvers", script="scripts/compare.py"),
+        code=code(
+            "stages/compare",
+            "selection",
+            "metrics",
+            "solvers",
+            script="scripts/compare.py",
+        ),
     script:
         "../scripts/compare.py"

@@ -6,4 +6,5 @@ from oddsmith.stages.compare import run_compare
 sm = snakemake  # noqa: F821 (provided by Snakemake)
 names = sm.params.candidates
 stage(sm, run_compare, cv_paths=dict(zip(names, sm.input.cv)), oof_paths=dict(zip(names, sm.input.oof)),
-      selection=sm.params.selection, out_table=sm.output.table, out_selected=sm.output.selected)
+      model_paths=dict(zip(names, sm.input.models)), selection=sm.params.selection, out_table=sm.output.table,
+      out_selected=sm.output.selected)

@@ -23,7 +23,7 @@ from oddsmith import card
 from oddsmith.card import (CardError, RunFolderFetcher, clip, fmt_count, fmt_fixed, fmt_p, fmt_pct, fmt_sig,
                            render_card, render_pdf)
 from oddsmith.errors import ArtifactError
-from oddsmith.stages import compare
+from oddsmith import selection
 
 ROOT = Path(__file__).resolve().parent.parent
 RUN = Path("results") / "lease_demo"
@@ -126,6 +126,15 @@ def test_template_carries_the_cautions_verbatim():
     assert _squash(_cautions()) in _squash(template)
 
 
+def test_trivial_costs_are_priced_on_the_same_test_cases():
+    # 339 events in 2,010 cases, c_FN 6,000, c_FP 1,200 (the demo's): flag none costs
+    # 339 · 6,000 / 2,010 per case = 1,011,940.30 per 1,000; flag all 1,671 · 1,200 / 2,010 per case.
+    costs = {"cost_fp": 1200.0, "cost_fn": 6000.0, "cost_tp": 0.0, "cost_tn": 0.0}
+    got = card.trivial_costs_on_test({"n": 2010, "events": 339}, costs)
+    assert got["flag_none"] == pytest.approx(339 * 6000 / 2010 * 1000)
+    assert got["flag_all"] == pytest.approx(1671 * 1200 / 2010 * 1000)
+
+
 # ---------------------------------------------------------------------------------------------
 # the demo card (end to end)
 
@@ -171,12 +180,16 @@ def test_pdf_shows_key_numbers_exactly_as_formatted_from_the_artifacts(demo_run,
         fmt_fixed(metrics["cost_per_1000"], 0),
         fmt_fixed(metrics["overall"]["calibration_slope"], 3),
     ]
-    row = next(r for r in model["coef_table"] if r["term"] == "credit_score")
-    expected += [fmt_sig(row["estimate"]), fmt_sig(row["std_error"])]
-    for value in expected:
+    if model["coef_table"]:
+        row = next(r for r in model["coef_table"] if r["term"] == "credit_score")
+        on_row = [fmt_sig(row["estimate"]), fmt_sig(row["std_error"])]
+    else:  # a penalised selection: standardised coefficient, then per unit of the design column
+        on_row = [fmt_sig(model["coefficients"]["credit_score"]),
+                  fmt_sig(model["original_scale"]["coefficients"]["credit_score"])]
+    for value in expected + on_row:
         assert _squash(value) in text, value
     # the coefficient sits on the credit_score row of the coefficient table
-    assert _squash(f"credit_score {fmt_sig(row['estimate'])} {fmt_sig(row['std_error'])}") in text
+    assert _squash("credit_score " + " ".join(on_row)) in text
 
 
 @pytest.mark.e2e
@@ -258,8 +271,15 @@ def _poison(run: Path) -> None:
         s["attributes"][HOSTILE["file"]] = block
 
     def model(m):
-        m["coef_table"][1]["term"] = HOSTILE["image"]
-        m["coef_table"][2]["term"] = HOSTILE["long"]
+        if m["coef_table"]:
+            m["coef_table"][1]["term"] = HOSTILE["image"]
+            m["coef_table"][2]["term"] = HOSTILE["long"]
+        else:  # a penalised selection: rename two design columns everywhere the card reads them
+            for index, label in ((0, HOSTILE["image"]), (1, HOSTILE["long"])):
+                old = m["design_columns"][index]
+                m["design_columns"][index] = label
+                m["coefficients"][label] = m["coefficients"].pop(old)
+                m["original_scale"]["coefficients"][label] = m["original_scale"]["coefficients"].pop(old)
         m["warnings"] = [HOSTILE["script"]]
 
     def diagnostics(d):
@@ -333,7 +353,7 @@ def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
     first = run["table"]["rows"][0]
     failed_cv = {k: first[k] for k in ("candidate", "kind", "n_parameters")} | {
         "status": "failed", "reason": "quasi-complete separation on <x>", "folds": [], "pooled": None}
-    run["table"]["rows"][0] = compare._row(failed_cv) | {"selected": False}  # exactly as compare writes it
+    run["table"]["rows"][0] = selection.comparison_row(failed_cv) | {"selected": False}  # exactly as compare writes it
     assert "log_loss_mean" not in run["table"]["rows"][0]
     run["diagnostics"]["leakage"]["suspected"] = [{"feature": "days_past_due_at_review", "auc": 0.99}]
     run["diagnostics"]["vif"]["flagged"] = [{"column": "credit_score", "vif": 14.2}]
@@ -347,7 +367,8 @@ def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
     assert "credit_score" in attention["Variance inflation"]["found"]
     assert "< 0.001" in attention["Base-rate drift between training and test"]["found"]
     assert "uncommitted changes" in attention["Code state"]["found"]
-    assert "18-34 (0.642)" in attention["Groups below the four-fifths screen"]["found"]
+    young = next(r for r in run["subgroups"]["attributes"]["owner_age_band"]["rows"] if r["group"] == "18-34")
+    assert f"18-34 ({fmt_fixed(young['adverse_impact_ratio'])})" in attention["Groups below the four-fifths screen"]["found"]
     assert all(f["advice"] for f in attention.values())
     html = card.render_html(card.build_context(run, release=None))
     for f in attention.values():
@@ -365,3 +386,25 @@ def test_a_penalised_selection_shows_its_penalty_instead_of_wald_intervals(demo_
     penalty = run["model"]["penalty"]
     assert f"C = {penalty['C']:g} chosen from" in html and "Standardised coefficient" in html
     assert "Odds ratio" not in html
+
+
+@pytest.mark.e2e
+def test_card_states_its_definitions_units_and_the_deciding_numbers(demo_run, demo_text):
+    text = _squash(demo_text)
+    choice, metrics = _load(demo_run, "threshold/choice.json"), _load(demo_run, "evaluation/metrics.json")
+    selected, table = _load(demo_run, "comparison/selected.json"), _load(demo_run, "comparison/table.json")
+    assert _squash("Kolmogorov–Smirnov statistic (KS): the largest gap between the cumulative score distributions "
+                   "of events and non-events") in text
+    assert _squash("The four-fifths rule comes from US employment-selection guidelines (29 CFR 1607.4(D)); applied "
+                   "here to lending/clinical decisions by analogy.") in text
+    # costs carry their unit (the demo declares no currency), and the tile compares like with like
+    assert _squash("Cost per 1,000 cases (cost units)") in text and _squash("Cost per case (cost units)") in text
+    flag_none = card.trivial_costs_on_test(metrics, choice["costs"])["flag_none"]
+    assert _squash(f"flag none on the same test cases: {fmt_fixed(flag_none, 0)} cost units") in text
+    assert _squash(f"flag none: {fmt_fixed(choice['cost_per_1000']['flag_none'], 0)} (training)") not in text
+    # the reason with its numbers, and the baseline's calibration shown as not applicable
+    decision = selected["decision"]
+    assert _squash(f"one standard error {decision['standard_error']:.5f}") in text
+    assert "notapplicable" in text and "-4.001" not in demo_text and "−4.001" not in demo_text
+    baseline = next(r for r in table["rows"] if r["candidate"] == "baseline")
+    assert baseline["calibration_slope_pooled"] is None and baseline["not_applicable"]["calibration_slope"]

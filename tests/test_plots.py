@@ -136,7 +136,7 @@ def test_the_two_figure_rules_draw_every_figure_once():
     assert sorted(figures.MODEL_FIGURES + figures.DECISION_FIGURES) == sorted(plots.FIGURE_NAMES)
     with pytest.raises(ValueError, match=r"missing \['coefficients'\], unknown \['roc'\]"):
         figures.run_model_figures(probability_metrics_path="unused", selected_path="unused", model_paths={},
-                                  out={"reliability": "a.svg", "roc": "b.svg"})
+                                  recipe_path="unused", out={"reliability": "a.svg", "roc": "b.svg"})
 
 
 @pytest.mark.e2e
@@ -151,11 +151,12 @@ run = {str(run)!r}
 out = {str(tmp_path)!r} + "/"
 run_figures(predictions_path=run + "/evaluation/predictions.parquet", metrics_path=run + "/evaluation/metrics.json",
             subgroups_path=run + "/evaluation/subgroups.json", choice_path=run + "/threshold/choice.json",
-            curve_path=run + "/threshold/cost_curve.parquet", out={{n: out + n + ".svg" for n in DECISION_FIGURES}})
+            curve_path=run + "/threshold/cost_curve.parquet", out={{n: out + n + ".svg" for n in DECISION_FIGURES}},
+            currency="unit")
 run_model_figures(probability_metrics_path=run + "/evaluation/probability_metrics.json",
                   selected_path=run + "/comparison/selected.json",
                   model_paths={{c: run + "/candidates/" + c + "/model.json" for c in {candidates!r}}},
-                  out={{n: out + n + ".svg" for n in MODEL_FIGURES}})
+                  recipe_path=run + "/features/recipe.json", out={{n: out + n + ".svg" for n in MODEL_FIGURES}})
 """
     env = dict(os.environ, PYTHONHASHSEED="4242", SOURCE_DATE_EPOCH="1")
     subprocess.run([sys.executable, "-c", script], check=True, cwd=tmp_path, env=env, capture_output=True)
@@ -217,3 +218,81 @@ def test_reliability_figure_with_empty_and_full_bins_and_a_single_bin():
     for shape in (bins, bins[:1], bins[2:], []):
         svg = plots.reliability_svg(shape)
         assert svg.startswith(b"<?xml") and b"<svg" in svg
+
+
+def _drawn(monkeypatch, make):
+    """The matplotlib figure a plotting function builds (instead of its SVG), laid out."""
+    captured = {}
+    monkeypatch.setattr(plots, "_svg", lambda fig: captured.setdefault("fig", fig) and b"")
+    make()
+    fig = captured["fig"]
+    fig.canvas.draw()
+    return fig
+
+
+def _data_points_under_legend(ax) -> int:
+    legend = ax.get_legend().get_window_extent()
+    inside = 0
+    for line in ax.get_lines():
+        if line.get_label() in ("chance", "perfect calibration"):  # reference lines cross the whole panel
+            continue
+        xy = ax.transData.transform(np.column_stack(line.get_data()).astype(float))
+        inside += sum(legend.x0 <= x <= legend.x1 and legend.y0 <= y <= legend.y1 for x, y in xy)
+    return inside
+
+
+def test_roc_legend_sits_outside_the_axes(monkeypatch, scores):
+    y, p = scores
+    fig = _drawn(monkeypatch, lambda: plots.roc_svg(y, p, auc=0.74, auc_low=0.7, auc_high=0.78, cutoff=0.3,
+                                                    operating_point=(0.3, 0.7)))
+    ax = fig.axes[0]
+    legend, axes = ax.get_legend().get_window_extent(), ax.get_window_extent()
+    assert legend.y1 <= axes.y0 and not legend.overlaps(axes)  # below the axes: covers no part of the curve
+    assert _data_points_under_legend(ax) == 0
+
+
+def test_score_distribution_legend_sits_outside_the_axes(monkeypatch, scores):
+    y, p = scores
+    ax = _drawn(monkeypatch, lambda: plots.score_distribution_svg(y, p, cutoff=0.3)).axes[0]
+    assert not ax.get_legend().get_window_extent().overlaps(ax.get_window_extent())
+
+
+def test_reliability_legend_covers_no_bin(monkeypatch):
+    bins = [{"mean_predicted": m, "observed_rate": m * 1.05, "ci_low": m * 0.8, "ci_high": m * 1.3, "n": 201}
+            for m in (0.04, 0.07, 0.09, 0.11, 0.13, 0.15, 0.18, 0.22, 0.28, 0.45)]  # the demo's shape
+    fig = _drawn(monkeypatch, lambda: plots.reliability_svg(bins))
+    assert _data_points_under_legend(fig.axes[0]) == 0
+
+
+def test_count_panel_only_when_the_bins_differ_in_size(monkeypatch):
+    equal = [{"mean_predicted": m, "observed_rate": m, "n": n} for m, n in ((0.1, 201), (0.2, 200), (0.3, 201))]
+    unequal = [{"mean_predicted": m, "observed_rate": m, "n": n} for m, n in ((0.1, 900), (0.2, 80), (0.3, 12))]
+    assert plots.equal_count(equal) and not plots.equal_count(unequal)
+    assert len(_drawn(monkeypatch, lambda: plots.reliability_svg(equal)).axes) == 1
+    assert len(_drawn(monkeypatch, lambda: plots.reliability_svg(unequal)).axes) == 2
+
+
+def test_cost_curve_is_drawn_per_1000_cases_in_the_declared_currency(monkeypatch):
+    curve = pd.DataFrame({"cutoff": [0.1, 0.5, 0.9], "expected_cost_per_case": [0.9, 0.7, 0.95]})
+    fig = _drawn(monkeypatch, lambda: plots.cost_curve_svg(curve, adopted=0.5, bayes=0.4, interval=None,
+                                                           flag_none=1000.0, flag_all=990.0, currency="EUR"))
+    ax = fig.axes[0]
+    expected = next(line for line in ax.get_lines() if line.get_label() == "expected cost")
+    assert expected.get_ydata().tolist() == pytest.approx([900.0, 700.0, 950.0])  # per case × 1,000
+    assert ax.get_ylabel() == "expected cost per 1,000 cases (EUR)"
+    assert plots.cost_unit("unit") == "cost units"
+
+
+def test_coefficients_are_drawn_per_sd_of_the_design_column(monkeypatch):
+    # x: estimate 0.01 per unit, training SD 100 → 1.0 per SD; z: 0.8 per unit, SD 0.5 → 0.4 per SD
+    rows = [_coef_row("intercept", -1.0, logit=False), _coef_row("x", 0.01, logit=False),
+            _coef_row("z", 0.8, logit=False)]
+    model = {"candidate": "c", "kind": "cloglog", "link": "cloglog", "coef_table": rows}
+    fig = _drawn(monkeypatch, lambda: plots.coefficients_svg(model, sds={"x": 100.0, "z": 0.5}))
+    ax = fig.axes[0]
+    points = sorted(float(line.get_xdata()[0]) for line in ax.get_lines() if line.get_marker() in ("o", "s"))
+    assert points == pytest.approx([0.4, 1.0])
+    assert "per SD of the design column" in ax.get_xlabel()
+    # logit: odds ratio per SD = exp(b · SD), interval ends likewise (hand-computed)
+    assert plots.per_sd_values([_coef_row("x", 0.01, logit=True)], {"x": 100.0})[0][1:] == pytest.approx(
+        (np.exp(1.0), np.exp((0.01 - 0.2) * 100), np.exp((0.01 + 0.2) * 100)))

@@ -42,10 +42,12 @@ def _cutoff_interval(bootstrap: dict | None) -> tuple[float, float] | None:
     return tuple(1.0 if end is None else end for end in (bootstrap["cutoff_low"], bootstrap["cutoff_high"]))
 
 
-def run_model_figures(*, probability_metrics_path: str, selected_path: str, model_paths: dict, out: dict) -> dict:
+def run_model_figures(*, probability_metrics_path: str, selected_path: str, model_paths: dict, recipe_path: str,
+                      out: dict) -> dict:
     """Write the figures of :data:`MODEL_FIGURES` to ``out[name]``.
 
-    ``model_paths`` maps candidate name → model.json; only the selected one is drawn.
+    ``model_paths`` maps candidate name → model.json; only the selected one is drawn, its
+    terms per training SD of each design column (``sds`` of the recipe).
     Returns {name: number of bytes written}.
     """
     _check_out(out, MODEL_FIGURES)
@@ -53,14 +55,16 @@ def run_model_figures(*, probability_metrics_path: str, selected_path: str, mode
     if selected not in model_paths:
         raise ValueError(f"selected candidate {selected!r} has no model path; known: {sorted(model_paths)}")
     evaluation = read_json(probability_metrics_path)
+    sds = read_json(recipe_path)["sds"]
     return _write(out, {"reliability": plots.reliability_svg(evaluation["reliability"]),
-                        "coefficients": plots.coefficients_svg(read_json(model_paths[selected]))})
+                        "coefficients": plots.coefficients_svg(read_json(model_paths[selected]), sds=sds)})
 
 
 def run_figures(*, predictions_path: str, metrics_path: str, subgroups_path: str, choice_path: str,
-                curve_path: str, out: dict) -> dict:
+                curve_path: str, out: dict, currency: str | None = None) -> dict:
     """Write the figures of :data:`DECISION_FIGURES` to ``out[name]``.
 
+    ``currency`` is printed with the costs (``costs.currency``; None or ``unit``: cost units).
     Returns {name: number of bytes written}.
     """
     _check_out(out, DECISION_FIGURES)
@@ -74,8 +78,8 @@ def run_figures(*, predictions_path: str, metrics_path: str, subgroups_path: str
         "cost_curve": plots.cost_curve_svg(
             read_parquet(curve_path, columns=["cutoff", "expected_cost_per_case"]),
             adopted=choice["adopted_cutoff"], bayes=choice["bayes"]["cutoff"],
-            interval=_cutoff_interval(choice["bootstrap"]),
-            flag_none=choice["cost_per_1000"]["flag_none"] / 1000, flag_all=choice["cost_per_1000"]["flag_all"] / 1000),
+            interval=_cutoff_interval(choice["bootstrap"]), flag_none=choice["cost_per_1000"]["flag_none"],
+            flag_all=choice["cost_per_1000"]["flag_all"], currency=currency),
         "score_distribution": plots.score_distribution_svg(y, p, cutoff=cutoff),
         "subgroups": plots.subgroups_svg(read_json(subgroups_path)["attributes"]),
     }
