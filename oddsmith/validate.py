@@ -32,6 +32,8 @@ def config_contract_problems(config: dict, contract: dict) -> list[str]:
         used.append(("data.date_column", data["date_column"]))
     if config["split"].get("group_column"):
         used.append(("split.group_column", config["split"]["group_column"]))
+    if (config.get("inference") or {}).get("cluster_column"):
+        used.append(("inference.cluster_column", config["inference"]["cluster_column"]))
     used += [("fairness.sensitive", n) for n in config["fairness"]["sensitive"]]
     used += [("fairness.segments", n) for n in config["fairness"]["segments"]]
     used += [("features", f["name"]) for f in config["features"]]
@@ -47,6 +49,23 @@ def config_contract_problems(config: dict, contract: dict) -> list[str]:
     if data["date_column"] and declared.get(data["date_column"], {}).get("type") not in (None, "date"):
         problems.append(f"data.date_column: '{data['date_column']}' is not typed date in the contract")
     return problems
+
+
+def cluster_problems(df: pd.DataFrame, config: dict) -> list[str]:
+    """A cluster column (inference.cluster_column) needs a label on every row and two clusters."""
+    column = (config.get("inference") or {}).get("cluster_column")
+    if not column:
+        return []
+    labels = df[column]
+    missing = labels.isna().to_numpy()
+    if missing.any():
+        ids = df.loc[missing, config["data"]["id_column"]].head(5).tolist()
+        return [f"inference.cluster_column: '{column}' is empty on {int(missing.sum())} rows (e.g. ids {ids}); "
+                "every row needs a cluster"]
+    if labels.nunique() < 2:
+        return [f"inference.cluster_column: '{column}' has a single value {labels.iloc[0]!r}; cluster-robust "
+                "standard errors need at least two clusters"]
+    return []
 
 
 def planned_parameters(config: dict, contract: dict) -> int:
@@ -132,8 +151,9 @@ def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: 
         for name in config["fairness"]["sensitive"] + config["fairness"]["segments"]
         if df[name].nunique(dropna=True) < 2
     ]
+    problems += cluster_problems(df, config)
     if problems:
-        raise ContractError(f"{data_path}: the groups to assess cannot be compared", problems)
+        raise ContractError(f"{data_path}: the groups to assess or the clusters cannot be formed", problems)
     report = quality_profile(df, id_column=data["id_column"], target=data["target"],
                              n_parameters=planned_parameters(config, contract))
     report["source"] = {"path": str(data_path), "sha256": sha256_file(data_path), "contract": str(contract_path),

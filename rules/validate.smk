@@ -18,7 +18,13 @@ rule validate:
         runtime=RES["runtime"],
     params:
         config={k: CONFIG[k] for k in ("data", "features", "interactions", "fairness")}
-        | {"split": {"group_column": CONFIG["split"]["group_column"]}},
+        | {"split": {"group_column": CONFIG["split"]["group_column"]}}
+        # Only when set, so that configurations without clusters keep their params.
+        | (
+            {"inference": {"cluster_column": CONFIG["inference"]["cluster_column"]}}
+            if CONFIG["inference"]["cluster_column"]
+            else {}
+        ),
         code=code("validate", "contract", "config", script="scripts/validate.py"),
     script:
         "../scripts/validate.py"
