@@ -24,7 +24,6 @@ rule fit:
         inference=CONFIG["inference"],
         code=code(
             "stages/fit",
-            "stages/features",
             "models",
             "solvers",
             "metrics",

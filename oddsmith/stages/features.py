@@ -11,7 +11,7 @@ import pandas as pd
 
 from oddsmith.diagnostics import design_diagnostics, leakage_screen
 from oddsmith.io import read_parquet, write_json, write_parquet_chunks
-from oddsmith.recipe import apply_recipe, dump_recipe, learn_recipe
+from oddsmith.recipe import CLUSTER_LABELS, apply_recipe, dump_recipe, learn_recipe
 
 log = logging.getLogger("oddsmith.features")
 
@@ -21,10 +21,6 @@ log = logging.getLogger("oddsmith.features")
 CHUNK_ROWS = 131_072
 # Smaller pieces while building: applying the recipe makes a few temporary copies of a piece.
 BUILD_ROWS = 32_768
-# Name of the cluster labels in the design file (inference.cluster_column): no design column
-# can be called this (the recipe's names are feature names, '=' levels and ':' products), and
-# the cluster column keeps its labels even when it is also a feature.
-CLUSTER_LABELS = "<cluster>"
 
 
 def _design(recipe: dict, train: pd.DataFrame) -> pd.DataFrame:

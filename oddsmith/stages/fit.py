@@ -14,9 +14,8 @@ from oddsmith import metrics, solvers
 from oddsmith.errors import ArtifactError, FitError
 from oddsmith.io import read_parquet, read_parquet_matrix, sha256_file, write_json, write_parquet
 from oddsmith.models import PENALISED_KINDS, fit_design, inverse_link
-from oddsmith.recipe import design_columns, load_recipe
+from oddsmith.recipe import CLUSTER_LABELS, design_columns, load_recipe
 from oddsmith.split import fold_columns
-from oddsmith.stages.features import CLUSTER_LABELS
 
 log = logging.getLogger("oddsmith.fit")
 OPTION_KEYS = ("grid", "inner_folds", "l1_ratio", "max_iter")
