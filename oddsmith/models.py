@@ -5,7 +5,9 @@ Seven kinds of candidate are supported:
 - ``baseline``: intercept only; every row gets the training event rate.
 - ``logit``, ``probit``, ``cloglog``: unpenalised maximum likelihood by Newton's method with
   the observed Hessian, with a coefficient table of Wald statistics and average marginal
-  effects (delta method).
+  effects (delta method). The covariance behind the table is model-based, robust (sandwich)
+  or cluster-robust, from the observed or the expected information (``check_inference``);
+  the baseline follows the same choice.
 - ``l1``, ``l2``, ``elastic_net``: penalised logistic regression minimising scikit-learn's
   objective ``C * sum(log loss) + l1_ratio * |b|_1 + (1 - l1_ratio) / 2 * |b|_2^2`` with an
   unpenalised intercept, by proximal Newton. The inverse penalty strength ``C`` is chosen
