@@ -145,7 +145,23 @@ def _cross_key_problems(config: dict, project_dir: Path) -> list[str]:
     problems += _split_problems(config)
     problems += _cost_problems(config["costs"])
     problems += _path_problems(data, project_dir)
+    problems += _inference_problems(config)
     return problems
+
+
+def _inference_problems(config: dict) -> list[str]:
+    inference, data = config["inference"], config["data"]
+    column, how = inference["cluster_column"], inference["standard_errors"]
+    if how == "cluster" and not column:
+        return ["inference.standard_errors: cluster needs inference.cluster_column, a contract column naming "
+                "each row's cluster"]
+    if column and how != "cluster":
+        return [f"inference.cluster_column: only used by standard_errors: cluster, not '{how}'"]
+    if column in (data["id_column"], data["target"]):
+        role = "id_column" if column == data["id_column"] else "target"
+        return [f"inference.cluster_column: '{column}' is the {role}; clusters group rows by another column "
+                "(for one cluster per row use standard_errors: robust)"]
+    return []
 
 
 def _feature_problems(config: dict, names: list[str]) -> list[str]:

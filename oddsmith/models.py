@@ -5,7 +5,9 @@ Seven kinds of candidate are supported:
 - ``baseline``: intercept only; every row gets the training event rate.
 - ``logit``, ``probit``, ``cloglog``: unpenalised maximum likelihood by Newton's method with
   the observed Hessian, with a coefficient table of Wald statistics and average marginal
-  effects (delta method).
+  effects (delta method). The covariance behind the table is model-based, robust (sandwich)
+  or cluster-robust, from the observed or the expected information (``check_inference``);
+  the baseline follows the same choice.
 - ``l1``, ``l2``, ``elastic_net``: penalised logistic regression minimising scikit-learn's
   objective ``C * sum(log loss) + l1_ratio * |b|_1 + (1 - l1_ratio) / 2 * |b|_2^2`` with an
   unpenalised intercept, by proximal Newton. The inverse penalty strength ``C`` is chosen
@@ -79,6 +81,13 @@ _LIBRARIES = ("numpy", "scipy", "pandas", "scikit-learn")
 # Fitted probabilities this close to 0 or 1 are reported in the model's warnings.
 _EXTREME_PROBABILITY = 1e-15
 
+# Standard errors of the maximum-likelihood kinds (see ``check_inference``).
+STANDARD_ERRORS = ("model_based", "robust", "cluster")
+INFORMATION = ("observed", "expected")
+ROBUST_KINDS = ("HC0", "HC1")
+DEFAULT_INFERENCE = {"standard_errors": "model_based", "information": "observed",
+                     "robust_kind": "HC0", "cluster_column": None}
+
 
 @dataclass
 class FittedModel:
@@ -106,6 +115,9 @@ class FittedModel:
     coef_table : list of dict
         Baseline and ML kinds: one row per term, see ``COEF_TABLE_KEYS``.
     warnings : list of str
+    covariance : dict or None
+        Baseline and ML kinds: how the covariance behind ``coef_table`` was estimated, see
+        ``covariance_record``; None for penalised kinds (they have no standard errors).
     """
 
     kind: str
@@ -121,6 +133,7 @@ class FittedModel:
     coef_table: list[dict] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
     library_versions: dict[str, str] = field(default_factory=dict)
+    covariance: dict | None = None
 
     def linear_predictor(self, X: pd.DataFrame) -> np.ndarray:
         """Return the linear predictor ``intercept + X @ coefficients`` for each row."""
@@ -144,6 +157,7 @@ class FittedModel:
             "n_events": int(self.n_events),
             "log_likelihood": None if self.log_likelihood is None else float(self.log_likelihood),
             "converged": bool(self.converged),
+            "covariance": None if self.covariance is None else dict(self.covariance),
             "library_versions": dict(self.library_versions or _library_versions()),
         }
 
@@ -234,6 +248,7 @@ def model_from_dict(d: dict) -> FittedModel:
         converged=bool(d.get("converged", True)), n_obs=int(d.get("n_obs", 0)),
         n_events=int(d.get("n_events", 0)), log_likelihood=d.get("log_likelihood"),
         penalty=d.get("penalty"), library_versions=dict(d.get("library_versions") or {}),
+        covariance=d.get("covariance"),
     )
 
 
@@ -312,7 +327,7 @@ def _library_versions() -> dict[str, str]:
 # --------------------------------------------------------------------------------------
 
 def fit_candidate(X: pd.DataFrame, y, *, kind: str, options: dict | None = None,
-                  seed: int = 0) -> FittedModel:
+                  seed: int = 0, inference: dict | None = None, clusters=None) -> FittedModel:
     """Fit one candidate model to a design matrix and a 0/1 outcome.
 
     Parameters
@@ -333,6 +348,12 @@ def fit_candidate(X: pd.DataFrame, y, *, kind: str, options: dict | None = None,
         (default 0.5, strictly between 0 and 1).
     seed : int, default 0
         Seeds the inner folds of penalised kinds.
+    inference : dict, optional
+        How the baseline and ML kinds estimate the covariance of their estimates (see
+        :func:`check_inference`); model-based from the observed information by default.
+        Penalised kinds have no standard errors and ignore it.
+    clusters : array_like, optional
+        One cluster label per row of ``X``; required by ``standard_errors: cluster``.
 
     Returns
     -------
@@ -353,11 +374,13 @@ def fit_candidate(X: pd.DataFrame, y, *, kind: str, options: dict | None = None,
     if kind not in KINDS:
         raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
     values, names = _design_values(X)
-    return fit_design(values, names, y, kind=kind, options=options, seed=seed)
+    return fit_design(values, names, y, kind=kind, options=options, seed=seed,
+                      inference=inference, clusters=clusters)
 
 
 def fit_design(values: np.ndarray, names: list[str], y, *, kind: str, rows=None,
-               options: dict | None = None, seed: int = 0) -> FittedModel:
+               options: dict | None = None, seed: int = 0, inference: dict | None = None,
+               clusters=None) -> FittedModel:
     """``fit_candidate`` on rows ``rows`` of a design array, without copying those rows.
 
     Parameters
@@ -371,8 +394,10 @@ def fit_design(values: np.ndarray, names: list[str], y, *, kind: str, rows=None,
         Outcome, 0 or 1, one per row of ``values`` (all rows, not only ``rows``).
     rows : array_like of int, optional
         The rows to fit on (e.g. the training rows of one fold); all rows by default.
-    kind, options, seed
+    kind, options, seed, inference
         As for :func:`fit_candidate`.
+    clusters : array_like, optional
+        One cluster label per row of ``values`` (all rows, like ``y``).
     """
     if kind not in KINDS:
         raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
@@ -396,13 +421,17 @@ def fit_design(values: np.ndarray, names: list[str], y, *, kind: str, rows=None,
     used = _outcome_values(outcome if rows is None else outcome[rows],
                            n_rows=values.shape[0] if rows is None else rows.size)
     settings = _settings(kind, options, seed=seed, outcome=used)
+    spec = check_inference(inference)
+    codes = _cluster_codes(clusters, n_rows=values.shape[0]) if spec["standard_errors"] == "cluster" \
+        else None
     if kind == "baseline":
-        return _fit_baseline(list(names), used)
+        return _fit_baseline(list(names), used, values=values, outcome=outcome.astype(np.float64),
+                             rows=rows, spec=spec, codes=codes)
     outcome = outcome.astype(np.float64)
     try:
         if kind in ML_KINDS:
             return _fit_maximum_likelihood(values, outcome, rows, list(names), used, kind=kind,
-                                           **settings)
+                                           spec=spec, codes=codes, **settings)
         return _fit_penalised(values, outcome, rows, list(names), used, kind=kind, **settings)
     except (ValueError, ArithmeticError) as exc:
         # The arguments were checked above: what fails from here on is the arithmetic of this
@@ -520,19 +549,24 @@ def _l1_ratio(kind: str, value) -> float:
 # --------------------------------------------------------------------------------------
 
 
-def _fit_baseline(names: list[str], outcome: np.ndarray) -> FittedModel:
-    n_obs, n_events = outcome.size, int(outcome.sum())
+def _fit_baseline(names: list[str], used: np.ndarray, *, values: np.ndarray, outcome: np.ndarray,
+                  rows, spec: dict, codes: np.ndarray | None) -> FittedModel:
+    n_obs, n_events = used.size, int(used.sum())
     rate = n_events / n_obs
     intercept = math.log(n_events) - math.log(n_obs - n_events)
     log_likelihood = n_events * math.log(rate) + (n_obs - n_events) * math.log1p(-rate)
-    # Closed form of the intercept-only logit: Var(b0) = 1 / (n p (1 - p)).
-    std_error = 1.0 / math.sqrt(n_obs * rate * (1.0 - rate))
-    row = _table_row(INTERCEPT_TERM, intercept, std_error, link="logit", ame=None)
+    # Closed form of the intercept-only logit: Var(b0) = 1 / (n p (1 - p)), observed and
+    # expected information alike (canonical link).
+    model_cov = np.array([[1.0 / (n_obs * rate * (1.0 - rate))]])
+    # The intercept-only design: no columns of ``values``, a view, never a copy.
+    cov, record = _covariance("logit", values[:, :0], outcome, rows, np.array([intercept]),
+                              model_cov, spec=spec, codes=codes, kind="baseline")
+    row = _table_row(INTERCEPT_TERM, intercept, math.sqrt(cov[0, 0]), link="logit", ame=None)
     return FittedModel(
         kind="baseline", link="logit", feature_names=list(names), intercept=intercept,
         coefficients={name: 0.0 for name in names}, converged=True, n_obs=n_obs,
         n_events=n_events, log_likelihood=log_likelihood, coef_table=[row],
-        library_versions=_library_versions(),
+        library_versions=_library_versions(), covariance=record,
     )
 
 
@@ -561,7 +595,8 @@ def _table_row(term: str, estimate: float, std_error: float, *, link: str,
 
 
 def _fit_maximum_likelihood(values: np.ndarray, outcome: np.ndarray, rows, names: list[str],
-                            used: np.ndarray, *, kind: str, max_iter: int) -> FittedModel:
+                            used: np.ndarray, *, kind: str, max_iter: int, spec: dict,
+                            codes: np.ndarray | None) -> FittedModel:
     """Newton's method on the row blocks (``solvers.newton_ml``); ``used`` = outcome[rows]."""
     link = _LINK_OF_KIND.get(kind, "logit")
     low, high = solvers.column_ranges(values, outcome, rows)
@@ -580,7 +615,9 @@ def _fit_maximum_likelihood(values: np.ndarray, outcome: np.ndarray, rows, names
         if not fit["converged"]:
             raise FitError(f"{kind} fit did not converge in max_iter={max_iter} Newton "
                            f"iterations ({'; '.join(fit['trouble'])})")
-    params, cov = fit["params"], fit["cov"]
+    params = fit["params"]
+    cov, record = _covariance(link, values, outcome, rows, params, fit["cov"], spec=spec, codes=codes,
+                              kind=kind)
     notes = _boundary_note(values, rows, params, link=link)
     n, density_sum, slope_sum = solvers.marginal_effect_sums(link, values, rows, params)
     ame, ame_se = _ame_from_sums(params, cov, n, density_sum, slope_sum)
@@ -593,7 +630,7 @@ def _fit_maximum_likelihood(values: np.ndarray, outcome: np.ndarray, rows, names
         coefficients={name: float(b) for name, b in zip(names, params[1:])},
         converged=True, n_obs=int(used.size), n_events=int(used.sum()),
         log_likelihood=float(fit["llf"]), coef_table=table, warnings=notes,
-        library_versions=_library_versions(),
+        library_versions=_library_versions(), covariance=record,
     )
 
 
@@ -660,6 +697,129 @@ def _ame_from_sums(params: np.ndarray, cov: np.ndarray, n: int, density_sum: flo
     jacobian[:, 1:] += mean_density * np.eye(params.size - 1)
     variance = np.einsum("jk,kl,jl->j", jacobian, cov, jacobian)
     return ame, np.sqrt(np.maximum(variance, 0.0))
+
+
+# --------------------------------------------------------------------------------------
+# Covariance of the estimates: model-based, robust (sandwich) or cluster-robust
+# --------------------------------------------------------------------------------------
+
+
+def check_inference(inference: dict | None) -> dict:
+    """Return the covariance settings with defaults filled in; ValueError names a bad one.
+
+    Keys: ``standard_errors`` (``model_based``: the inverse information; ``robust``: the
+    sandwich bread · meat · bread of Huber and White, meat = sum of the outer products of
+    the per-row scores; ``cluster``: the same with the scores summed within each cluster
+    first), ``information`` (``observed``: minus the Hessian of the log-likelihood, or
+    ``expected``: the Fisher information; it is the bread of every kind), ``robust_kind``
+    (``HC0``: no correction; ``HC1``: the sandwich times n / (n - k)) and
+    ``cluster_column`` (the name recorded for ``cluster``).
+    """
+    spec = dict(DEFAULT_INFERENCE) | dict(inference or {})
+    unknown = sorted(set(spec) - set(DEFAULT_INFERENCE))
+    if unknown:
+        raise ValueError(f"inference keys {unknown} are not known; valid: {sorted(DEFAULT_INFERENCE)}")
+    for key, allowed in (("standard_errors", STANDARD_ERRORS), ("information", INFORMATION),
+                         ("robust_kind", ROBUST_KINDS)):
+        if spec[key] not in allowed:
+            raise ValueError(f"inference.{key} must be one of {allowed}, got {spec[key]!r}")
+    if spec["standard_errors"] == "cluster" and not spec["cluster_column"]:
+        raise ValueError("inference.standard_errors: cluster needs inference.cluster_column")
+    return spec
+
+
+def _cluster_codes(clusters, *, n_rows: int) -> np.ndarray:
+    """Integer codes 0..G-1 of the cluster labels of every row (labels sorted)."""
+    if clusters is None:
+        raise ValueError("standard_errors: cluster needs one cluster label per row (clusters=...)")
+    labels = pd.Series(np.asarray(clusters))
+    if labels.size != n_rows:
+        raise ValueError(f"clusters must hold {n_rows} labels (one per row of X), got {labels.size}")
+    missing = int(labels.isna().sum())
+    if missing:
+        raise ValueError(f"clusters has {missing} missing labels; every row needs a cluster")
+    return pd.factorize(labels, sort=True)[0].astype(np.intp)
+
+
+def _covariance(link: str, values: np.ndarray, outcome: np.ndarray, rows, params: np.ndarray,
+                model_cov: np.ndarray | None, *, spec: dict, codes: np.ndarray | None,
+                kind: str) -> tuple[np.ndarray, dict]:
+    """The covariance of ``params`` that ``spec`` asks for, and the record of how it was made.
+
+    ``model_cov`` is the inverse observed information the solver ends with; the default
+    (model-based, observed) uses it as it is, with no further pass over the rows.
+    """
+    how, information = spec["standard_errors"], spec["information"]
+    n_obs = outcome.size if rows is None else rows.size
+    if how == "model_based" and information == "observed":
+        return model_cov, covariance_record(spec, n_obs=n_obs, n_params=params.size)
+    meat_kind = {"model_based": None, "robust": "rows", "cluster": "clusters"}[how]
+    if meat_kind and n_obs <= params.size:
+        raise FitError(f"{kind}: {how} standard errors need more rows than parameters, found "
+                       f"{n_obs} rows and {params.size} parameters")
+    n_clusters, n_groups = 0, None
+    if how == "cluster":
+        n_clusters = int(codes.max()) + 1
+        n_groups = int(np.unique(codes if rows is None else codes[rows]).size)
+        if n_groups < 2:
+            raise FitError(f"{kind}: cluster-robust standard errors need at least 2 clusters of "
+                           f"{spec['cluster_column']!r} in the {n_obs} rows fitted, found {n_groups}")
+    info, meat = solvers.information_and_meat(link, values, outcome, rows, params,
+                                              information=information, meat=meat_kind,
+                                              clusters=codes, n_clusters=n_clusters)
+    bread = _inverse_information(info, information=information, kind=kind)
+    record = covariance_record(spec, n_obs=n_obs, n_params=params.size, n_clusters=n_groups)
+    if meat is None:
+        return bread, record
+    return record["small_sample_factor"] * (bread @ meat @ bread), record
+
+
+def _inverse_information(info: np.ndarray, *, information: str, kind: str) -> np.ndarray:
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", scipy.linalg.LinAlgWarning)
+            bread = scipy.linalg.inv(info)
+    except (np.linalg.LinAlgError, scipy.linalg.LinAlgWarning, ValueError) as exc:
+        raise FitError(f"{kind}: the {information} information matrix is singular at the "
+                       f"estimates ({exc}); no standard errors can be formed") from exc
+    if not np.all(np.isfinite(bread)) or np.any(np.diag(bread) <= 0):
+        raise FitError(f"{kind}: the {information} information matrix is not positive definite "
+                       "at the estimates; no standard errors can be formed")
+    return bread
+
+
+def covariance_record(spec: dict, *, n_obs: int, n_params: int, n_clusters: int | None = None) -> dict:
+    """What the model JSON and the card say about the covariance of a fit.
+
+    ``small_sample_factor`` multiplies the sandwich: 1 for HC0, n / (n - k) for HC1 and
+    G / (G - 1) · (N - 1) / (N - K) for clusters (statsmodels' default ``use_correction``
+    for ``cov_type="cluster"``, the CRV1 form); 1 for model-based errors.
+
+    Examples
+    --------
+    >>> spec = check_inference({"standard_errors": "cluster", "cluster_column": "branch_id"})
+    >>> covariance_record(spec, n_obs=1000, n_params=5, n_clusters=412)["description"]
+    'cluster-robust by branch_id (412 clusters), observed information'
+    """
+    how, information = spec["standard_errors"], spec["information"]
+    record = {"kind": how, "information": information}
+    if how == "model_based":
+        record["description"] = f"model-based, inverse of the {information} information"
+        return record
+    if how == "robust":
+        kind = spec["robust_kind"]
+        factor = n_obs / (n_obs - n_params) if kind == "HC1" else 1.0
+        correction = " × n/(n − k)" if kind == "HC1" else ""
+        record |= {"robust_kind": kind, "small_sample_factor": factor,
+                   "description": f"heteroskedasticity-robust sandwich ({kind}{correction}), "
+                                  f"{information} information"}
+        return record
+    factor = n_clusters / (n_clusters - 1) * (n_obs - 1) / (n_obs - n_params)
+    column = spec["cluster_column"]
+    record |= {"column": column, "clusters": n_clusters, "small_sample_factor": factor,
+               "description": f"cluster-robust by {column} ({n_clusters} clusters), "
+                              f"{information} information"}
+    return record
 
 
 # --------------------------------------------------------------------------------------

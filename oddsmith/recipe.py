@@ -68,6 +68,10 @@ OTHER_LEVEL = "<other>"
 #: The pooled level's name in recipes that do not record ``pooled_level``.
 LEGACY_OTHER_LEVEL = "other"
 TRANSFORMS = ("none", "log", "log1p", "spline", "bins")
+# The training design file's column of cluster labels (inference.cluster_column), after the
+# design columns: no design column is called this (they are feature names, 'name=level',
+# 'a:b', 'name_rcsj', 'f(name)'), and a cluster column that is also a feature keeps its labels.
+CLUSTER_LABELS = "<cluster>"
 # Knot quantiles by number of knots: Harrell, Regression Modeling Strategies, 2nd ed. (2015),
 # Table 2.3 (values reproduced from memory of that table).
 KNOT_QUANTILES = {

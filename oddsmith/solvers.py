@@ -15,6 +15,8 @@ Two solvers:
   rise). The covariance of the estimates is the inverse of the negative observed Hessian at
   the maximum, as in statsmodels' ``Logit``, ``Probit`` and ``GLM(..., method="newton")``,
   against which the tests check estimates, standard errors and log-likelihoods.
+  ``information_and_meat`` adds, in one more pass, the expected information and the middle
+  of a robust or cluster-robust sandwich (``oddsmith.models`` assembles the covariance).
 - ``proximal_newton_path``: penalised logistic regression minimising scikit-learn's
   objective ``C * sum(log loss) + l1_ratio * |w|_1 + (1 - l1_ratio) / 2 * |w|^2`` (intercept
   not penalised) along an ascending grid of C, each fit started from the previous one. Each
@@ -41,17 +43,28 @@ _NEWTON_TOL = 1e-9
 _CLOGLOG_ETA_CAP = 700.0
 
 
-def blocks(values: np.ndarray, outcome: np.ndarray | None, rows: np.ndarray | None):
-    """Yield (rows of ``values``, matching outcome) block by block."""
+def block_indices(n_rows: int, rows: np.ndarray | None):
+    """Yield the index of each block: a slice (``rows is None``) or at most ROW_BLOCK rows."""
     if rows is None:
-        for start in range(0, values.shape[0], ROW_BLOCK):
-            index = slice(start, start + ROW_BLOCK)
-            yield values[index], (None if outcome is None else outcome[index])
+        for start in range(0, n_rows, ROW_BLOCK):
+            yield slice(start, start + ROW_BLOCK)
         return
     for start in range(0, rows.size, ROW_BLOCK):
-        index = rows[start:start + ROW_BLOCK]
-        # np.take gathers rows about a third faster than fancy indexing.
-        yield np.take(values, index, axis=0), (None if outcome is None else np.take(outcome, index))
+        yield rows[start:start + ROW_BLOCK]
+
+
+def take(array: np.ndarray, index) -> np.ndarray:
+    """Rows ``index`` of ``array``: a view for a slice, a gather for an index array."""
+    if isinstance(index, slice):
+        return array[index]
+    # np.take gathers rows about a third faster than fancy indexing.
+    return np.take(array, index, axis=0)
+
+
+def blocks(values: np.ndarray, outcome: np.ndarray | None, rows: np.ndarray | None):
+    """Yield (rows of ``values``, matching outcome) block by block."""
+    for index in block_indices(values.shape[0], rows):
+        yield take(values, index), (None if outcome is None else take(outcome, index))
 
 
 def linear_predictor(values: np.ndarray, rows: np.ndarray | None, coef: np.ndarray) -> np.ndarray:
@@ -137,10 +150,8 @@ def _ml_pass(link: str, values, outcome, rows, coef, *, derivatives: bool):
         if derivatives:
             gradient[0] += first.sum()
             gradient[1:] += block.T @ first
-            hessian[0, 0] += second.sum()
-            hessian[0, 1:] += block.T @ second
-            hessian[1:, 1:] += block.T @ (block * second[:, None])
-    hessian[1:, 0] = hessian[0, 1:]
+            _add_weighted_cross(hessian, block, second)
+    _mirror(hessian)
     return total, gradient, hessian
 
 
@@ -197,6 +208,82 @@ def newton_ml(link: str, values: np.ndarray, outcome: np.ndarray, rows: np.ndarr
         trouble.append("non-finite estimates or log-likelihood")
     return {"params": coef, "cov": cov, "llf": llf, "converged": converged and not trouble,
             "iterations": iterations, "trouble": trouble}
+
+
+def expected_information_weight(link: str, eta: np.ndarray) -> np.ndarray:
+    """Per row: f(eta)^2 / (P (1 - P)), the expected information of one Bernoulli row.
+
+    f is the derivative of the inverse link. For the logit (the canonical link) it equals
+    P (1 - P), the negative second derivative of the log-likelihood, so observed and
+    expected information coincide; for probit and cloglog they differ away from the
+    maximum of the density. Computed on the log scale so that no row overflows.
+    """
+    if link == "logit":
+        p = scipy.special.expit(eta)
+        return p * (1.0 - p)
+    if link == "probit":
+        log_density = -0.5 * eta * eta - 0.5 * math.log(2.0 * math.pi)
+        return np.exp(2.0 * log_density - scipy.special.log_ndtr(eta)
+                      - scipy.special.log_ndtr(-eta))
+    if link == "cloglog":
+        # With mu = exp(eta): f = mu exp(-mu), P = 1 - exp(-mu), so the weight is
+        # mu^2 / (exp(mu) - 1) = exp(2 eta - log(expm1(mu))).
+        eta = np.clip(eta, -_CLOGLOG_ETA_CAP, _CLOGLOG_ETA_CAP)
+        mu = np.exp(eta)
+        large = mu > 1.0
+        log_expm1 = np.where(large, mu + np.log1p(-np.exp(-np.where(large, mu, 1.0))),
+                             np.log(np.expm1(np.where(large, 1.0, mu))))
+        return np.exp(2.0 * eta - log_expm1)
+    raise ValueError(f"link must be logit, probit or cloglog, got {link!r}")
+
+
+def information_and_meat(link: str, values: np.ndarray, outcome: np.ndarray, rows, coef: np.ndarray,
+                         *, information: str, meat: str | None, clusters: np.ndarray | None = None,
+                         n_clusters: int = 0) -> tuple[np.ndarray, np.ndarray | None]:
+    """The information matrix at ``coef`` and, optionally, the middle of the sandwich.
+
+    One blocked pass over the rows. ``information`` is ``"observed"`` (minus the Hessian of
+    the log-likelihood) or ``"expected"`` (sum of ``expected_information_weight`` x x').
+    ``meat`` is None, ``"rows"`` (sum over rows of the outer product of each row's score
+    s_i = d l_i / d eta_i [1, x_i]) or ``"clusters"`` (sum over clusters of the outer
+    product of the summed scores; ``clusters`` holds one code in 0..n_clusters-1 per row of
+    ``values``, like ``outcome``). Scores are summed per cluster column by column with
+    ``np.bincount``, so the working memory is n_clusters × (columns + 1), not a copy of the
+    scores.
+    """
+    size = coef.size
+    info = np.zeros((size, size))
+    rows_meat = np.zeros((size, size)) if meat == "rows" else None
+    sums = np.zeros((n_clusters, size)) if meat == "clusters" else None
+    for index in block_indices(values.shape[0], rows):
+        block, y = take(values, index), take(outcome, index)
+        eta = coef[0] + block @ coef[1:]
+        _, first, second = likelihood_terms(link, eta, y)
+        weight = -second if information == "observed" else expected_information_weight(link, eta)
+        _add_weighted_cross(info, block, weight)
+        if rows_meat is not None:
+            _add_weighted_cross(rows_meat, block, first * first)
+        elif sums is not None:
+            codes = take(clusters, index)
+            sums[:, 0] += np.bincount(codes, weights=first, minlength=n_clusters)
+            for j in range(block.shape[1]):
+                sums[:, j + 1] += np.bincount(codes, weights=first * block[:, j], minlength=n_clusters)
+    _mirror(info)
+    if rows_meat is not None:
+        _mirror(rows_meat)
+        return info, rows_meat
+    return info, (None if sums is None else sums.T @ sums)
+
+
+def _add_weighted_cross(out: np.ndarray, block: np.ndarray, weight: np.ndarray) -> None:
+    """Add sum_i weight_i [1, x_i][1, x_i]' to the upper triangle of ``out`` (intercept first)."""
+    out[0, 0] += weight.sum()
+    out[0, 1:] += block.T @ weight
+    out[1:, 1:] += block.T @ (block * weight[:, None])
+
+
+def _mirror(matrix: np.ndarray) -> None:
+    matrix[1:, 0] = matrix[0, 1:]
 
 
 def link_derivatives(link: str, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -259,10 +346,8 @@ def _penalised_pass(values, outcome, rows, coef, *, C: float, l1_ratio: float,
         weight = p * (1.0 - p)
         gradient[0] += np.sum(p - y)
         gradient[1:] += block.T @ (p - y)
-        hessian[0, 0] += np.sum(weight)
-        hessian[0, 1:] += block.T @ weight
-        hessian[1:, 1:] += block.T @ (block * weight[:, None])
-    hessian[1:, 0] = hessian[0, 1:]
+        _add_weighted_cross(hessian, block, weight)
+    _mirror(hessian)
     return C * loss + penalty_value(coef, l1_ratio), C * gradient, C * hessian
 
 

@@ -40,6 +40,8 @@ def config_contract_problems(config: dict, contract: dict) -> list[str]:
         used.append(("data.date_column", data["date_column"]))
     if config["split"].get("group_column"):
         used.append(("split.group_column", config["split"]["group_column"]))
+    if (config.get("inference") or {}).get("cluster_column"):
+        used.append(("inference.cluster_column", config["inference"]["cluster_column"]))
     used += [("fairness.sensitive", n) for n in config["fairness"]["sensitive"]]
     used += [("fairness.segments", n) for n in config["fairness"]["segments"]]
     used += [("features", f["name"]) for f in config["features"]]
@@ -73,6 +75,23 @@ def _band_problems(fairness: dict, declared: dict) -> list[str]:
             problems.append(f"fairness.sensitive: '{name}' has bands, but the contract types it as {kind}; "
                             "bands apply to integer and float columns only")
     return problems
+
+
+def cluster_problems(df: pd.DataFrame, config: dict) -> list[str]:
+    """A cluster column (inference.cluster_column) needs a label on every row and two clusters."""
+    column = (config.get("inference") or {}).get("cluster_column")
+    if not column:
+        return []
+    labels = df[column]
+    missing = labels.isna().to_numpy()
+    if missing.any():
+        ids = df.loc[missing, config["data"]["id_column"]].head(5).tolist()
+        return [f"inference.cluster_column: '{column}' is empty on {int(missing.sum())} rows (e.g. ids {ids}); "
+                "every row needs a cluster"]
+    if labels.nunique() < 2:
+        return [f"inference.cluster_column: '{column}' has a single value {labels.iloc[0]!r}; cluster-robust "
+                "standard errors need at least two clusters"]
+    return []
 
 
 def planned_parameters(config: dict, contract: dict, *, features: list[str] | None = None) -> int:
@@ -278,6 +297,7 @@ def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: 
         positive_label=data["positive_label"], extra_columns=data["extra_columns"], source=str(data_path),
     )
     problems = analysis_problems(df, config=config, contract=contract)
+    problems += cluster_problems(df, config)
     if problems:
         raise DataError(f"{data_path}: the data cannot support the configured analysis", problems)
     report = quality_profile(df, id_column=data["id_column"], target=data["target"],

@@ -21,6 +21,7 @@ rule fit:
         candidate=lambda wc: candidate_settings(wc.candidate),
         data={k: CONFIG["data"][k] for k in ("id_column", "target")},
         seed=CONFIG["cross_validation"]["seed"],
+        inference=CONFIG["inference"],
         code=code(
             "stages/fit",
             "models",

@@ -41,6 +41,11 @@ rule features:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
     params:
+        **(
+            {"cluster_column": CONFIG["inference"]["cluster_column"]}
+            if CONFIG["inference"]["cluster_column"]
+            else {}
+        ),
         features=CONFIG["features"],
         interactions=CONFIG["interactions"],
         target=CONFIG["data"]["target"],

@@ -30,7 +30,13 @@ rule validate:
                 {k: c[k] for k in ("name", "kind", "features") if k in c}
                 for c in CONFIG["candidates"]
             ],
-        },
+        }
+        # Only when set, so that configurations without clusters keep their params.
+        | (
+            {"inference": {"cluster_column": CONFIG["inference"]["cluster_column"]}}
+            if CONFIG["inference"]["cluster_column"]
+            else {}
+        ),
         code=code(
             "validate",
             "contract",

@@ -343,7 +343,7 @@ def test_to_dict_schema(fitted_every_kind):
     _, _, models = fitted_every_kind
     expected_keys = {"format", "kind", "link", "intercept", "coefficients", "feature_names",
                      "penalty", "n_obs", "n_events", "log_likelihood", "converged",
-                     "library_versions"}
+                     "covariance", "library_versions"}
     for kind, model in models.items():
         d = model.to_dict()
         assert set(d) == expected_keys and d["format"] == MODEL_FORMAT
@@ -351,6 +351,11 @@ def test_to_dict_schema(fitted_every_kind):
         assert {"numpy", "scipy", "scikit-learn"} <= set(d["library_versions"])
         assert (d["penalty"] is None) == (kind not in PENALISED_KINDS)
         assert (d["log_likelihood"] is None) == (kind in PENALISED_KINDS)
+        # Penalised kinds have no standard errors, so no covariance record either.
+        assert (d["covariance"] is None) == (kind in PENALISED_KINDS)
+        if kind not in PENALISED_KINDS:
+            assert d["covariance"]["kind"] == "model_based"
+            assert d["covariance"]["information"] == "observed"
 
 
 def test_linear_predictor_accepts_dict_or_model_and_column_order(fitted_every_kind):

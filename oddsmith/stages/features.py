@@ -11,7 +11,7 @@ import pandas as pd
 
 from oddsmith.diagnostics import design_diagnostics, leakage_screen
 from oddsmith.io import read_parquet, write_json, write_parquet_chunks
-from oddsmith.recipe import apply_recipe, dump_recipe, learn_recipe
+from oddsmith.recipe import CLUSTER_LABELS, apply_recipe, dump_recipe, learn_recipe
 
 log = logging.getLogger("oddsmith.features")
 
@@ -34,11 +34,13 @@ def _design(recipe: dict, train: pd.DataFrame) -> pd.DataFrame:
 
 
 def run_features(*, data_path: str, assignment_path: str, features: list, interactions: list, target: str,
-                 id_column: str, diagnostics: dict, out_recipe: str, out_diagnostics: str, out_design: str) -> dict:
+                 id_column: str, diagnostics: dict, out_recipe: str, out_diagnostics: str, out_design: str,
+                 cluster_column: str | None = None) -> dict:
     """Learn the recipe from training rows; diagnose and write the training design matrix.
 
     The design file holds the id and target columns, then every design column (not
-    standardised), one row per training row in data order.
+    standardised), one row per training row in data order; with a ``cluster_column``
+    (standard errors clustered by it) its labels follow as a last column ``CLUSTER_LABELS``.
     """
     names = [f["name"] for f in features]
     is_train = (read_parquet(assignment_path, columns=["part"])["part"] == "train").to_numpy()
@@ -56,8 +58,12 @@ def run_features(*, data_path: str, assignment_path: str, features: list, intera
     dump_recipe(recipe, out_recipe)
     write_json(out_diagnostics, report)
     ids = read_parquet(data_path, columns=[id_column], rows=is_train)[id_column]
+    clusters = None if not cluster_column else \
+        read_parquet(data_path, columns=[cluster_column], rows=is_train)[cluster_column].to_numpy()
     write_parquet_chunks(out_design, (
         pd.concat([pd.DataFrame({id_column: ids.iloc[s:s + CHUNK_ROWS].to_numpy(), target: y[s:s + CHUNK_ROWS]}),
-                   X.iloc[s:s + CHUNK_ROWS].reset_index(drop=True)], axis=1)
+                   X.iloc[s:s + CHUNK_ROWS].reset_index(drop=True)]
+                  + ([] if clusters is None else [pd.DataFrame({CLUSTER_LABELS: clusters[s:s + CHUNK_ROWS]})]),
+                  axis=1)
         for s in range(0, max(len(X), 1), CHUNK_ROWS)))
     return report

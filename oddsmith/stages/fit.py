@@ -14,7 +14,7 @@ from oddsmith import metrics, solvers
 from oddsmith.errors import ArtifactError, FitError
 from oddsmith.io import read_parquet, read_parquet_matrix, sha256_file, write_json, write_parquet
 from oddsmith.models import PENALISED_KINDS, fit_design, inverse_link
-from oddsmith.recipe import design_columns, load_recipe
+from oddsmith.recipe import CLUSTER_LABELS, design_columns, load_recipe
 from oddsmith.split import fold_columns
 
 log = logging.getLogger("oddsmith.fit")
@@ -107,19 +107,32 @@ def original_scale(intercept: float, coefficients: dict, names: list[str], recip
                      "adjusted by the training means (features/recipe.json)"}
 
 
+def cluster_labels(design_path: str, inference: dict | None):
+    """The cluster label of every training row (features stage), or None unless clustering."""
+    if (inference or {}).get("standard_errors") != "cluster":
+        return None
+    return read_parquet(design_path, columns=[CLUSTER_LABELS])[CLUSTER_LABELS].to_numpy()
+
+
 def run_fit(*, design_path: str, assignment_path: str, recipe_path: str, candidate: dict, id_column: str,
-            target: str, seed: int, out_model: str, out_cv: str, out_oof: str) -> dict:
-    """Cross-validate and refit one candidate; write model JSON, CV results and OOF predictions."""
+            target: str, seed: int, out_model: str, out_cv: str, out_oof: str, inference: dict | None = None) -> dict:
+    """Cross-validate and refit one candidate; write model JSON, CV results and OOF predictions.
+
+    ``inference`` (the config section) sets how the final fit's standard errors are
+    estimated; the fold fits need only their coefficients, so they skip that work.
+    """
     values, names, y, ids, folds, recipe = training_design(
         design_path=design_path, assignment_path=assignment_path, recipe_path=recipe_path, candidate=candidate,
         id_column=id_column, target=target)
     kind, options = candidate["kind"], _options(candidate)
+    clusters = None if kind in PENALISED_KINDS else cluster_labels(design_path, inference)
     header = {"candidate": candidate["name"], "kind": kind, "settings": candidate, "n_parameters": len(names) + 1,
               "recipe_sha256": sha256_file(recipe_path), "design_columns": list(names)}
     log.info("candidate %s (%s): %d rows, %d design columns", candidate["name"], kind, len(y), len(names))
     try:
         oof, per_fold = cross_validate(values, names, y, folds, kind=kind, options=options, seed=seed)
-        final = fit_design(values, names, y, kind=kind, options=options, seed=seed)
+        final = fit_design(values, names, y, kind=kind, options=options, seed=seed,
+                           inference=None if kind in PENALISED_KINDS else inference, clusters=clusters)
     except FitError as exc:
         log.warning("candidate %s failed: %s", candidate["name"], exc)
         failed = header | {"status": "failed", "reason": str(exc)}
