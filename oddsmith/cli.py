@@ -3,14 +3,17 @@
 from __future__ import annotations
 
 import argparse
+import shlex
+import subprocess
 import sys
+from pathlib import Path
 
 from oddsmith.errors import OddsmithError
 
 DESCRIPTION = """\
 oddsmith builds and checks yes/no prediction models reproducibly.
-The analysis itself runs with Snakemake (`make demo`, or `snakemake --cores 2`);
-these commands help around it."""
+`oddsmith build CONFIG` runs the analysis with Snakemake (`make demo` builds the demo's
+config/demo.yaml); the other commands help around it."""
 
 
 def _cmd_init(args) -> int:
@@ -18,8 +21,39 @@ def _cmd_init(args) -> int:
 
     contract, config = draft(args.data, contract_out=args.contract, config_out=args.config, run=args.run)
     print(f"drafted {contract} and {config}; review both (marked DRAFT), then run:\n"
-          f"  snakemake --cores 2 --configfile {config}")
+          f"  oddsmith build {config}")
     return 0
+
+
+def _register_build(sub) -> None:
+    p = sub.add_parser("build", help="check a configuration file, then build its analysis with Snakemake",
+                       description="Check CONFIG (schema and cross-key rules) and stop with every problem at once, "
+                                   "or run `python -m snakemake --cores N --configfile CONFIG` with this interpreter. "
+                                   "Arguments after `--` go to Snakemake (targets, --dry-run, --rerun-incomplete, ...).")
+    p.add_argument("config", help="the configuration file, e.g. config/demo.yaml")
+    p.add_argument("--cores", type=int, default=2, help="cores Snakemake may use (default: %(default)s)")
+    p.add_argument("snakemake_args", nargs=argparse.REMAINDER, metavar="-- SNAKEMAKE_ARGS",
+                   help="further arguments for Snakemake, after --")
+    p.set_defaults(func=_cmd_build)
+
+
+def _cmd_build(args) -> int:
+    from oddsmith.config import check_config, read_config_file
+    from oddsmith.errors import ConfigError
+
+    if not Path("Snakefile").is_file():
+        print(f"oddsmith build: no Snakefile in {Path.cwd()}; run it from the project folder", file=sys.stderr)
+        return 1
+    try:
+        check_config(read_config_file(args.config), project_dir=".")
+    except ConfigError as exc:
+        print(f"oddsmith build: {args.config} is not a usable configuration; nothing was built.\n{exc}",
+              file=sys.stderr)
+        return 1
+    extra = args.snakemake_args[1:] if args.snakemake_args[:1] == ["--"] else args.snakemake_args
+    cmd = [sys.executable, "-m", "snakemake", "--cores", str(args.cores), "--configfile", args.config, *extra]
+    print("oddsmith build: " + " ".join(shlex.quote(part) for part in cmd[2:]), file=sys.stderr)
+    return subprocess.run(cmd, check=False).returncode
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -32,6 +66,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--config", default="config/draft.yaml", help="where to write the draft config (default: %(default)s)")
     p.add_argument("--run", help="run name (default: the file's stem)")
     p.set_defaults(func=_cmd_init)
+    _register_build(sub)
     for register in _REGISTRARS:
         register(sub)
     return parser

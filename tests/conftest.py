@@ -1,4 +1,7 @@
-"""Shared fixtures: the repository root, demo config, and project copies for workflow runs."""
+"""Shared fixtures: the repository root, demo config, and project copies for workflow runs.
+
+A build reads exactly one configuration file; ``run_snakemake`` passes the demo's
+(``config/demo.yaml``) unless told another (``config=``) or none (``config=None``)."""
 
 from __future__ import annotations
 
@@ -14,6 +17,7 @@ import yaml
 
 ROOT = Path(__file__).resolve().parent.parent
 BIN = Path(sys.executable).parent
+DEMO_CONFIG = "config/demo.yaml"
 PROJECT_PARTS = ("Snakefile", "rules", "scripts", "schemas", "config", "reports", "data_demo")
 
 
@@ -24,7 +28,7 @@ def root() -> Path:
 
 @pytest.fixture()
 def demo_config() -> dict:
-    return copy.deepcopy(yaml.safe_load((ROOT / "config" / "config.yaml").read_text()))
+    return copy.deepcopy(yaml.safe_load((ROOT / DEMO_CONFIG).read_text()))
 
 
 def copy_project(dest: Path) -> Path:
@@ -39,12 +43,14 @@ def copy_project(dest: Path) -> Path:
     return dest
 
 
-def run_snakemake(project: Path, *args, env=None, check=True) -> subprocess.CompletedProcess:
-    """Run the project's workflow with this interpreter's Snakemake."""
+def run_snakemake(project: Path, *args, env=None, check=True, config: str | None = DEMO_CONFIG) -> subprocess.CompletedProcess:
+    """Run the project's workflow with this interpreter's Snakemake and one configuration file."""
     full_env = dict(os.environ)
     full_env.setdefault("SOURCE_DATE_EPOCH", "1767225600")
     full_env.update(env or {})
     cmd = [str(BIN / "snakemake"), "--cores", "2", "--nocolor", *args]
+    if config is not None:
+        cmd += ["--configfile", config]
     result = subprocess.run(cmd, cwd=project, env=full_env, capture_output=True, text=True)
     if check and result.returncode != 0:
         raise AssertionError(f"snakemake failed ({result.returncode}):\n{result.stdout[-4000:]}\n{result.stderr[-6000:]}")
