@@ -27,13 +27,12 @@ def _cmd_init(args) -> int:
 
 def _register_build(sub) -> None:
     p = sub.add_parser("build", help="check a configuration file, then build its analysis with Snakemake",
+                       usage="oddsmith build [-h] [--cores N] CONFIG [-- SNAKEMAKE_ARGS ...]",
                        description="Check CONFIG (schema and cross-key rules) and stop with every problem at once, "
                                    "or run `python -m snakemake --cores N --configfile CONFIG` with this interpreter. "
                                    "Arguments after `--` go to Snakemake (targets, --dry-run, --rerun-incomplete, ...).")
     p.add_argument("config", help="the configuration file, e.g. config/demo.yaml")
     p.add_argument("--cores", type=int, default=2, help="cores Snakemake may use (default: %(default)s)")
-    p.add_argument("snakemake_args", nargs=argparse.REMAINDER, metavar="-- SNAKEMAKE_ARGS",
-                   help="further arguments for Snakemake, after --")
     p.set_defaults(func=_cmd_build)
 
 
@@ -50,8 +49,8 @@ def _cmd_build(args) -> int:
         print(f"oddsmith build: {args.config} is not a usable configuration; nothing was built.\n{exc}",
               file=sys.stderr)
         return 1
-    extra = args.snakemake_args[1:] if args.snakemake_args[:1] == ["--"] else args.snakemake_args
-    cmd = [sys.executable, "-m", "snakemake", "--cores", str(args.cores), "--configfile", args.config, *extra]
+    cmd = [sys.executable, "-m", "snakemake", "--cores", str(args.cores), "--configfile", args.config,
+           *args.snakemake_args]
     print("oddsmith build: " + " ".join(shlex.quote(part) for part in cmd[2:]), file=sys.stderr)
     return subprocess.run(cmd, check=False).returncode
 
@@ -90,7 +89,12 @@ _REGISTRARS.append(_register_scoring)
 
 def main(argv=None) -> int:
     parser = build_parser()
+    argv = list(sys.argv[1:] if argv is None else argv)
+    passthrough = []
+    if argv[:1] == ["build"] and "--" in argv:  # what follows `--` goes to Snakemake untouched
+        argv, passthrough = argv[:argv.index("--")], argv[argv.index("--") + 1:]
     args = parser.parse_args(argv)
+    args.snakemake_args = passthrough
     if not getattr(args, "func", None):
         parser.print_help()
         return 2

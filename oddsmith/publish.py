@@ -102,6 +102,11 @@ def publish(run: str, *, project_dir: str | Path = ".") -> str:
     unsafe = [n for n in names if unsafe_path_reason(n)]
     if unsafe:
         raise PublishError(f"{where['staging']} names files outside itself; not published", unsafe)
+    missing = [name for name in names if not (where["staging"] / name).is_file()]
+    if missing:
+        raise PublishError(f"{STAGING_DIR}/{run} does not verify, so it was not published; "
+                           + describe_current(run, project_dir=project_dir),
+                           [f"missing: {name} (listed in its manifest or card/card.sha256)" for name in missing])
     try:
         for name in names:
             _link_or_copy(where["staging"] / name, where["incoming"] / name)
