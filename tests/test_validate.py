@@ -174,11 +174,12 @@ def test_workflow_stops_before_any_output_on_bad_data(project):
     result = run_snakemake(project, check=False)
     assert result.returncode != 0
     assert "check unique" in result.stderr + (project / "logs/lease_demo/validate.log").read_text()
-    assert not (project / "results/lease_demo/validated/data.parquet").exists()
+    assert not (project / "work/lease_demo/validated/data.parquet").exists()
+    assert not (project / "results/lease_demo").exists()
 
 
 def test_workflow_refuses_bad_config(project):
-    cfg = project / "config" / "config.yaml"
+    cfg = project / "config" / "demo.yaml"
     cfg.write_text(cfg.read_text() + "\nsurprise: 1\n")
     result = run_snakemake(project, "--dry-run", check=False)
     assert result.returncode != 0

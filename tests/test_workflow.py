@@ -201,3 +201,13 @@ def test_a_build_reads_only_its_own_configuration(tmp_path):
     leaked = {value for value in demo_values
               if value.encode() in manifest_bytes or value in card or value in json.dumps(manifest)}
     assert leaked == set(), f"demo values reached the build of another configuration: {leaked}"
+
+    # the recorded configuration file is the one a rebuild and a release use
+    rebuilt = subprocess.run([str(BIN / "oddsmith"), "verify", "results/card_default", "--rebuild"], cwd=project,
+                             capture_output=True, text=True)
+    assert rebuilt.returncode == 0 and rebuilt.stdout.strip().endswith("rebuild reproduced every hash"), \
+        rebuilt.stdout[-3000:] + rebuilt.stderr[-3000:]
+    released = subprocess.run([str(BIN / "oddsmith"), "release", "results/card_default"], cwd=project, env=env,
+                              capture_output=True, text=True)
+    assert released.returncode == 0, released.stderr[-3000:]
+    assert verify_results(project / "releases" / "card_default" / "0.3.0") == []
