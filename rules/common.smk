@@ -25,7 +25,11 @@ def config_files():
 
 if len(config_files()) != 1:
     given = ", ".join(config_files())
-    found = f"several configuration files given ({given})" if given else "no configuration file given"
+    found = (
+        f"several configuration files given ({given})"
+        if given
+        else "no configuration file given"
+    )
     sys.exit(f"oddsmith: {found}; {CHOOSE_CONFIG}")
 
 try:

@@ -36,9 +36,7 @@ rule fit:
 
 rule compare:
     input:
-        cv=expand(
-            "work/{{run}}/candidates/{candidate}/cv.json", candidate=CANDIDATES
-        ),
+        cv=expand("work/{{run}}/candidates/{candidate}/cv.json", candidate=CANDIDATES),
         oof=expand(
             "work/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
         ),

@@ -8,6 +8,7 @@ from oddsmith.publish import after_build, describe_current, pending
 # card is built, and would differ on every build).
 PUBLISH_PENDING = pending(RUN)
 
+
 rule publish:
     input:
         manifest="work/{run}/manifest.json",
@@ -25,6 +26,12 @@ rule publish:
         runtime=RES["runtime"],
     params:
         pending=PUBLISH_PENDING,
-        code=code("stages/publish", "publish", "verify", "manifest", script="scripts/publish.py"),
+        code=code(
+            "stages/publish",
+            "publish",
+            "verify",
+            "manifest",
+            script="scripts/publish.py",
+        ),
     script:
         "../scripts/publish.py"
