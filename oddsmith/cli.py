@@ -49,8 +49,9 @@ def _cmd_build(args) -> int:
         print(f"oddsmith build: {args.config} is not a usable configuration; nothing was built.\n{exc}",
               file=sys.stderr)
         return 1
-    cmd = [sys.executable, "-m", "snakemake", "--cores", str(args.cores), "--configfile", args.config,
-           *args.snakemake_args]
+    # --configfile takes one or more values: it comes last, so that no target is read as a config file
+    cmd = [sys.executable, "-m", "snakemake", "--cores", str(args.cores), *args.snakemake_args,
+           "--configfile", args.config]
     print("oddsmith build: " + " ".join(shlex.quote(part) for part in cmd[2:]), file=sys.stderr)
     return subprocess.run(cmd, check=False).returncode
 

@@ -482,7 +482,8 @@ def _run_rebuild(manifest: dict, run_dir: Path, work: Path, *, cores: int) -> li
     targets = [f"{STAGING_DIR}/{run}/{MANIFEST_NAME}"]
     if (run_dir / CARD_HASHES).is_file():
         targets.append(f"{STAGING_DIR}/{run}/{CARD_HASHES}")
-    cmd = [sys.executable, "-m", "snakemake", "--cores", str(cores), "--nocolor", "--configfile", configs[0], *targets]
+    # --configfile takes one or more values: it comes last, so that no target is read as a config file
+    cmd = [sys.executable, "-m", "snakemake", "--cores", str(cores), "--nocolor", *targets, "--configfile", configs[0]]
     env = dict(os.environ)
     env["SOURCE_DATE_EPOCH"] = str(manifest["source_date_epoch"])
     env[GIT_OVERRIDE_ENV] = json.dumps(manifest["git"])

@@ -153,11 +153,12 @@ def test_build_runs_snakemake_with_the_one_config_and_extra_arguments(tmp_path):
     subprocess.run([str(bin_dir / "oddsmith"), "init", "data_demo/lease_applications.csv", "--contract",
                     "schemas/contracts/mine.yaml", "--config", "config/mine.yaml"], cwd=project, env=env, check=True,
                    capture_output=True)
-    done = subprocess.run([str(bin_dir / "oddsmith"), "build", "config/mine.yaml", "--cores", "1", "--", "--dry-run"],
-                          cwd=project, env=env, capture_output=True, text=True)
+    done = subprocess.run([str(bin_dir / "oddsmith"), "build", "config/mine.yaml", "--cores", "1", "--", "--dry-run",
+                           "work/lease_applications/split/summary.json"], cwd=project, env=env, capture_output=True, text=True)
     assert done.returncode == 0, done.stderr[-3000:]
-    assert "oddsmith build: snakemake --cores 1 --configfile config/mine.yaml --dry-run" in done.stderr
-    assert "rule validate:" in done.stdout and "This was a dry-run" in done.stdout
+    assert ("oddsmith build: snakemake --cores 1 --dry-run work/lease_applications/split/summary.json "
+            "--configfile config/mine.yaml") in done.stderr
+    assert "rule split:" in done.stdout and "rule fit:" not in done.stdout and "This was a dry-run" in done.stdout
     assert "lease_demo" not in done.stdout, "the demo's run reached a build of another configuration"
 
 
