@@ -225,9 +225,10 @@ def test_a_broken_data_file_keeps_the_last_good_result(first, tmp_path):
 
 def test_a_broken_config_keeps_the_last_good_result(first, tmp_path):
     project, env, before = _good_build(first, tmp_path / "broken_config")
+    targets = _targets(project)
     config = project / DEMO_CONFIG
     config.write_text(config.read_text().replace("false_positive: 1200", "false_positive: -1"))
-    done = run_snakemake(project, *_targets(project), env=env, check=False)
+    done = run_snakemake(project, *targets, env=env, check=False)
     assert done.returncode != 0 and "costs.false_positive" in done.stderr
     _still_holds(project, before, done.stderr)
 
