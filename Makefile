@@ -4,13 +4,13 @@ PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
 CORES ?= 2
-SNAKEMAKE := $(BIN)/snakemake --cores $(CORES) --rerun-incomplete
+DEMO_CONFIG := config/demo.yaml
 
 .PHONY: demo test setup check-system lint lock clean
 
 ## demo: set up, then build the whole demo analysis (ends in results/lease_demo/card/model_card.pdf)
 demo: setup
-	$(SNAKEMAKE)
+	$(BIN)/oddsmith build $(DEMO_CONFIG) --cores $(CORES) -- --rerun-incomplete
 	@echo "Model card: results/lease_demo/card/model_card.pdf"
 
 ## test: set up, then run the test suite
@@ -34,7 +34,7 @@ $(VENV)/.installed: requirements.lock pyproject.toml
 
 ## lint: Snakemake's linter and snakefmt
 lint: setup
-	$(BIN)/snakemake --lint
+	$(BIN)/snakemake --lint --configfile $(DEMO_CONFIG)
 	$(BIN)/snakefmt --check Snakefile rules/
 
 ## lock: re-resolve requirements.in into requirements.lock (needs network)
@@ -44,4 +44,4 @@ lock:
 	  --python-platform x86_64-manylinux_2_28 requirements.in -o requirements.lock
 
 clean:
-	rm -rf results logs benchmarks .snakemake
+	rm -rf results work logs benchmarks .snakemake

@@ -1,11 +1,15 @@
 # oddsmith workflow: validate → split → features → fit (one job per candidate) → compare
-# → threshold → evaluate → apply_cutoff → figures → manifest → card. See DEVELOPERS.md for the map.
+# → threshold → evaluate → apply_cutoff → figures → manifest → card → publish. Every job
+# writes under work/<run>/; publish copies a complete, verified build to results/<run>/.
+# There is no default configuration: name one with --configfile (config/demo.yaml is the
+# demo's). See DEVELOPERS.md for the map.
+import time
+
 from snakemake.utils import min_version
 
 min_version("9.0")
 
-
-configfile: "config/config.yaml"
+STARTED = time.time()
 
 
 include: "rules/common.smk"
@@ -16,10 +20,17 @@ include: "rules/decide.smk"
 include: "rules/score.smk"
 include: "rules/manifest.smk"
 include: "rules/card.smk"
+include: "rules/publish.smk"
 
 
 rule all:
     input:
-        f"results/{RUN}/card/model_card.pdf",
-        f"results/{RUN}/card/card.sha256",
-        SCORING_OUTPUTS,
+        f"work/{RUN}.published",
+
+
+onsuccess:
+    print(f"oddsmith: {after_build(RUN, since=STARTED)}", file=sys.stderr)
+
+
+onerror:
+    print(f"oddsmith: the build failed; {describe_current(RUN)}", file=sys.stderr)

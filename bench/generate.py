@@ -5,7 +5,7 @@ Writes three files into a project folder:
 - ``data/portfolio.csv``: ``loan_id``, 30 numeric features ``f01`` … ``f30``, two
   categoricals (``region``, 5 levels; ``channel``, 3 levels) and the outcome ``default_12m``;
 - ``schemas/contracts/portfolio.yaml``: its data contract;
-- ``config/config.yaml``: the benchmark configuration (five candidates: logit, probit,
+- ``config/bench.yaml``: the benchmark configuration (five candidates: logit, probit,
   cloglog, l1, l2; 5-fold cross-validation; stratified 75/25 split).
 
 Nothing here is real. The numeric features are standard normal with a few correlated pairs;
@@ -114,7 +114,7 @@ def config(n: int) -> dict:
 def write(out: Path, n: int, *, seed: int = 20261202) -> dict:
     """Write data, contract and config under ``out``; return the paths written."""
     paths = {"data": out / "data/portfolio.csv", "contract": out / "schemas/contracts/portfolio.yaml",
-             "config": out / "config/config.yaml"}
+             "config": out / "config/bench.yaml"}
     for path in paths.values():
         path.parent.mkdir(parents=True, exist_ok=True)
     draw(n, seed=seed).to_csv(paths["data"], index=False, lineterminator="\n")

@@ -30,7 +30,7 @@ def main() -> None:
     parser.add_argument("candidate")
     parser.add_argument("--top", type=int, default=25)
     args = parser.parse_args()
-    config = check_config(yaml.safe_load((args.project / "config/config.yaml").read_text()),
+    config = check_config(yaml.safe_load((args.project / "config/bench.yaml").read_text()),
                           project_dir=str(args.project))
     run = args.project / "results" / config["run"]
     candidate = next(c for c in config["candidates"] if c["name"] == args.candidate)

@@ -36,7 +36,7 @@ from oddsmith.recipe import apply_recipe, learn_recipe
 from oddsmith.score import ScoringModel, check_batch, csv_bytes, reason_reference, score_frame
 
 ROOT = Path(__file__).resolve().parent.parent
-CONFIG = yaml.safe_load((ROOT / "config" / "config.yaml").read_text(encoding="utf-8"))
+CONFIG = yaml.safe_load((ROOT / "config" / "demo.yaml").read_text(encoding="utf-8"))
 CONTRACT = load_contract(ROOT / CONFIG["data"]["contract"])
 ID, TARGET = CONFIG["data"]["id_column"], CONFIG["data"]["target"]
 

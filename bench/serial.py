@@ -124,7 +124,7 @@ def main() -> None:
     parser.add_argument("--out", type=Path, required=True)
     args = parser.parse_args()
     started = time.perf_counter()
-    cfg = yaml.safe_load((args.project / "config/config.yaml").read_text())
+    cfg = yaml.safe_load((args.project / "config/bench.yaml").read_text())
     data, features = cfg["data"], cfg["features"]
     df = pd.read_csv(args.project / data["path"], dtype={data["id_column"]: str, data["target"]: str})
     assert df[data["id_column"]].is_unique and not df.isna().any().any()

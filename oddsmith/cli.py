@@ -3,7 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import shlex
+import subprocess
 import sys
+from pathlib import Path
 
 from oddsmith.errors import OddsmithError
 
@@ -11,8 +14,9 @@ DESCRIPTION = """\
 oddsmith builds and checks yes/no prediction models reproducibly.
 
 The analysis itself (data checks, candidate models, cut-off, model card) is a Snakemake
-workflow run in the project folder: `make demo`, or `snakemake --cores 2`. Its results go to
-results/<run>/. These commands help around it: draft the inputs for new data (init), check
+workflow run in the project folder: `oddsmith build CONFIG` (`make demo` builds the demo's
+config/demo.yaml). It builds in work/<run>/ and publishes a complete, verified result to
+results/<run>/. The other commands help around it: draft the inputs for new data (init), check
 a results folder (verify), freeze it (release), compare two of them (diff) and use the
 selected model on new rows (score, rescore).
 
@@ -44,8 +48,39 @@ def _cmd_init(args) -> int:
     for line in result.checks:
         print(f"CHECK: {line}")
     print(f"review both (marked DRAFT; guesses marked GUESSED, costs PLACEHOLDER), then run:\n"
-          f"  snakemake --cores 2 --configfile {result.config}")
+          f"  oddsmith build {result.config}")
     return 0
+
+
+def _register_build(sub) -> None:
+    p = sub.add_parser("build", help="check a configuration file, then build its analysis with Snakemake",
+                       usage="oddsmith build [-h] [--cores N] CONFIG [-- SNAKEMAKE_ARGS ...]",
+                       description="Check CONFIG (schema and cross-key rules) and stop with every problem at once, "
+                                   "or run `python -m snakemake --cores N --configfile CONFIG` with this interpreter. "
+                                   "Arguments after `--` go to Snakemake (targets, --dry-run, --rerun-incomplete, ...).")
+    p.add_argument("config", help="the configuration file, e.g. config/demo.yaml")
+    p.add_argument("--cores", type=int, default=2, help="cores Snakemake may use (default: %(default)s)")
+    p.set_defaults(func=_cmd_build)
+
+
+def _cmd_build(args) -> int:
+    from oddsmith.config import check_config, read_config_file
+    from oddsmith.errors import ConfigError
+
+    if not Path("Snakefile").is_file():
+        print(f"oddsmith build: no Snakefile in {Path.cwd()}; run it from the project folder", file=sys.stderr)
+        return 1
+    try:
+        check_config(read_config_file(args.config), project_dir=".")
+    except ConfigError as exc:
+        print(f"oddsmith build: {args.config} is not a usable configuration; nothing was built.\n{exc}",
+              file=sys.stderr)
+        return 1
+    # --configfile takes one or more values: it comes last, so that no target is read as a config file
+    cmd = [sys.executable, "-m", "snakemake", "--cores", str(args.cores), *args.snakemake_args,
+           "--configfile", args.config]
+    print("oddsmith build: " + " ".join(shlex.quote(part) for part in cmd[2:]), file=sys.stderr)
+    return subprocess.run(cmd, check=False).returncode
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -64,6 +99,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="the target's value that is the event, the adverse outcome (default: guessed by meaning)")
     p.add_argument("--id", metavar="COLUMN", help="the column with one distinct value per row (default: guessed)")
     p.set_defaults(func=_cmd_init)
+    _register_build(sub)
     for register in _REGISTRARS:
         register(sub)
     return parser
@@ -87,7 +123,12 @@ _REGISTRARS.append(_register_scoring)
 
 def main(argv=None) -> int:
     parser = build_parser()
+    argv = list(sys.argv[1:] if argv is None else argv)
+    passthrough = []
+    if argv[:1] == ["build"] and "--" in argv:  # what follows `--` goes to Snakemake untouched
+        argv, passthrough = argv[:argv.index("--")], argv[argv.index("--") + 1:]
     args = parser.parse_args(argv)
+    args.snakemake_args = passthrough
     if not getattr(args, "func", None):
         parser.print_help()
         return 2

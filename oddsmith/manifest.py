@@ -1,10 +1,13 @@
 """The provenance manifest of a run: every artifact's SHA-256 joined with the stamp of the job
 that wrote it, plus the raw inputs, the resolved configuration and the environment.
 
-``results/<run>/manifest.json`` is written by the ``manifest`` rule after every other stage
-except the card. It covers every file under ``results/<run>/`` except ``card/`` (rendered
-after it) and itself; the card prints the manifest's SHA-256 and ``card/card.sha256`` binds
-the card's files to that hash. Every path in it is relative (artifacts to the run folder,
+The workflow builds in the staging folder ``work/<run>/``; ``manifest.json`` is written there
+by the ``manifest`` rule after every other stage except the card, and the whole folder is
+published as ``results/<run>/`` only when it is complete and verifies (``oddsmith.publish``).
+The manifest covers every file of the run folder except ``card/`` (rendered after it) and
+itself; the card prints the manifest's SHA-256 and ``card/card.sha256`` binds the card's
+files to that hash. Stamps record the paths the jobs wrote (``work/<run>/...``); files are
+listed relative to the run folder, so the published copy verifies like the staging folder. Every path in it is relative (artifacts to the run folder,
 raw inputs to the project), keys are sorted and nothing depends on the clock, the folder or
 the host, so two clean builds of the same inputs give the same bytes.
 """
@@ -18,6 +21,7 @@ import logging
 import os
 import platform
 import re
+import shlex
 import stat
 import subprocess
 from pathlib import Path, PurePosixPath
@@ -32,6 +36,17 @@ FORMAT_VERSION = 1
 FORMAT = f"{FORMAT_NAME}/{FORMAT_VERSION}"
 MANIFEST_NAME = "manifest.json"
 CARD_DIR = "card"
+#: Where the workflow builds (one folder per run) and where finished, verified builds are published.
+STAGING_DIR = "work"
+RESULTS_DIR = "results"
+#: The folders a stamp may name its run's files under: the staging folder, and the results
+#: folder itself for results built before builds were staged.
+BUILD_ROOTS = (STAGING_DIR, RESULTS_DIR)
+#: What the "uncommitted code" warning looks at (git pathspecs, relative to the project): the
+#: package, the workflow, its scripts, templates and schemas, and the packaging files. Data,
+#: configuration and data contracts are recorded by their hashes instead (raw inputs).
+CODE_PATHS = ("oddsmith", "Snakefile", "rules", "scripts", "reports", "schemas", ":(exclude)schemas/contracts",
+              "pyproject.toml", "requirements.in", "requirements.lock", "Makefile")
 #: Environment variable through which ``oddsmith verify --rebuild`` carries the recorded git
 #: state into a rebuild made from a copy of the checkout (which has no repository).
 GIT_OVERRIDE_ENV = "ODDSMITH_BUILD_GIT"
@@ -74,7 +89,9 @@ def git_state(project_dir: str | Path = ".") -> dict | None:
     """The commit checked out in ``project_dir`` and whether the work tree differs from it.
 
     Returns None outside a git repository (or without git). ``dirty`` counts modified,
-    staged, deleted and untracked files that are not ignored.
+    staged, deleted and untracked files that are not ignored, among the code only
+    (:data:`CODE_PATHS`): a data or config file the user added is not code, and the manifest
+    records it by its hash.
     """
     override = os.environ.get(GIT_OVERRIDE_ENV)
     if override is not None:
@@ -82,7 +99,7 @@ def git_state(project_dir: str | Path = ".") -> dict | None:
     commit = _git(project_dir, "rev-parse", "HEAD")
     if commit is None:
         return None
-    status = _git(project_dir, "status", "--porcelain")
+    status = _git(project_dir, "status", "--porcelain", "--", *CODE_PATHS)
     return {"commit": commit, "dirty": bool(status)}
 
 
@@ -183,14 +200,28 @@ def run_files(run_dir: str | Path) -> tuple[list[str], list[str], list[str]]:
     return sorted(files), sorted(partial), problems
 
 
-def _run_relative(path: str, prefix: str) -> str | None:
-    return path[len(prefix):] if path.startswith(prefix) else None
+def run_relative(path: str, run: str) -> str | None:
+    """``path`` (as a stamp records it) relative to the run folder, or None when it names no
+    file of the run (a raw input, or another folder).
+
+    Examples
+    --------
+    >>> run_relative("work/demo/split/summary.json", "demo")
+    'split/summary.json'
+    >>> run_relative("data/raw.csv", "demo") is None
+    True
+    """
+    for root in BUILD_ROOTS:
+        prefix = f"{root}/{run}/"
+        if path.startswith(prefix):
+            return path[len(prefix):]
+    return None
 
 
 def _file_entries(run: str, run_dir: Path, stamps: list[str | Path]) -> tuple[dict, dict]:
     """One entry per file claimed by a stamp (its outputs and the stamp itself), and the
     output hashes the stamps recorded."""
-    prefix = f"results/{run}/"
+    prefix = f"{run_dir.as_posix()}/"
     entries, recorded = {}, {}
     for stamp_path in stamps:
         stamp_path = Path(stamp_path)
@@ -204,9 +235,9 @@ def _file_entries(run: str, run_dir: Path, stamps: list[str | Path]) -> tuple[di
             "code_sha256": stamp["code_sha256"],
         }
         for output in [*stamp["outputs"], prefix + stamp_rel]:
-            rel = _run_relative(output, prefix)
+            rel = output[len(prefix):] if output.startswith(prefix) else None
             if rel is None or unsafe_path_reason(rel):
-                raise ManifestError(f"stamp {stamp_rel} names an output outside results/{run}/: {output!r}")
+                raise ManifestError(f"stamp {stamp_rel} names an output outside {prefix}: {output!r}")
             if rel in entries:
                 raise ManifestError(f"{rel} is claimed by two stamps: {entries[rel]['stamp']} and {stamp_rel}")
             entries[rel] = dict(links)
@@ -217,7 +248,7 @@ def _file_entries(run: str, run_dir: Path, stamps: list[str | Path]) -> tuple[di
 def raw_input_entries(roles: dict, *, project_dir: str | Path = ".") -> dict:
     """``{project-relative path: {"sha256", "size", "role"}}`` of the raw inputs.
 
-    ``roles`` maps each path the build read from outside the results folder to what it is
+    ``roles`` maps each path the build read from outside the run folder to what it is
     (``data``, ``contract``, ``config``, ``scoring batch``).
     """
     project_dir = Path(project_dir).resolve()
@@ -231,7 +262,7 @@ def raw_input_entries(roles: dict, *, project_dir: str | Path = ".") -> dict:
 
 def build_manifest(*, run: str, run_dir: str | Path, stamps, raw_inputs, config: dict, build: dict,
                    card_rule: dict | None = None, project_dir: str | Path = ".") -> dict:
-    """Assemble the manifest of ``run_dir`` (``results/<run>``) from the job stamps.
+    """Assemble the manifest of ``run_dir`` (``work/<run>``, as the stamps name it) from the job stamps.
 
     ``raw_inputs`` maps each raw input path (data, contract, config files, a scoring batch) to
     its role.
@@ -247,8 +278,8 @@ def build_manifest(*, run: str, run_dir: str | Path, stamps, raw_inputs, config:
         log.info("removing %s, left by an interrupted write", rel)
         (run_dir / rel).unlink()
     claimed, recorded = _file_entries(run, run_dir, stamps)
-    problems += [f"{rel} is in the results folder but no job of this build wrote it "
-                 "(left over from an earlier configuration? delete it)"
+    problems += [f"{rel} is in the run folder but no job of this build wrote it "
+                 f"(left over from an earlier configuration? delete it: rm {shlex.quote(str(run_dir / rel))})"
                  for rel in on_disk if rel not in claimed]
     problems += [f"{rel} is recorded by stamp {claimed[rel]['stamp']} but missing" for rel in claimed if rel not in on_disk]
     if problems:

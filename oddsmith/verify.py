@@ -18,6 +18,7 @@ import json
 import os
 import posixpath
 import re
+import shlex
 import shutil
 import stat
 import subprocess
@@ -28,7 +29,7 @@ from pathlib import Path
 
 from oddsmith.io import canonical_json, sha256_file
 from oddsmith.manifest import (CARD_DIR, FORMAT_NAME, FORMAT_VERSION, GIT_OVERRIDE_ENV, MANIFEST_NAME,
-                               PARTIAL_WRITE, config_sha256, git_state, is_hex_digest, run_files,
+                               STAGING_DIR, config_sha256, git_state, is_hex_digest, run_files, run_relative,
                                unsafe_path_reason)
 
 MAX_MANIFEST_BYTES = 64 << 20
@@ -82,8 +83,11 @@ def check_results(run_dir) -> Verification:
     entries = _check_structure(manifest, raw, report.problems)
     on_disk, partial, link_problems = run_files(run_dir)
     report.problems += link_problems
-    report.notes += [f"{p}: leftover of an interrupted write (not an artifact)" for p in partial]
+    # A leftover of an interrupted write is an extra file like any other: a verified folder
+    # holds exactly what its manifest lists (the manifest stage clears them while building).
+    on_disk = sorted(on_disk + partial)
     hashes = _check_files(run_dir, entries, on_disk, report.problems)
+    report.problems += _extra_folders(run_dir, set(entries))
     report.n_files = len(hashes)
     report.n_stamps = _check_links(run_dir, manifest, entries, hashes, set(on_disk), report.problems)
     report.card = _check_card(run_dir, report.manifest_sha256, report.problems, report.notes)
@@ -209,7 +213,7 @@ def _check_files(run_dir: Path, entries: dict, on_disk: list[str], problems: lis
         found[rel] = sha256_file(run_dir / rel)
         expected = entries.get(rel)
         if expected is None:
-            problems.append(f"extra file not in the manifest: {rel} (sha256 {found[rel]})")
+            problems.append(f"extra file not in the manifest: {rel} (sha256 {found[rel]}); {_clean_hint(run_dir, rel)}")
         elif expected["sha256"] != found[rel]:
             problems.append(f"changed: {rel} expected sha256 {expected['sha256']}, found {found[rel]}")
         elif expected["size"] != (run_dir / rel).stat().st_size:
@@ -219,9 +223,35 @@ def _check_files(run_dir: Path, entries: dict, on_disk: list[str], problems: lis
     return found
 
 
+def _clean_hint(run_dir: Path, rel: str, *, folder: bool = False) -> str:
+    """How to remove something oddsmith did not write from a results folder."""
+    command = "rm -r" if folder else "rm"
+    return (f"oddsmith did not write it as part of this result; delete it ({command} {shlex.quote(str(run_dir / rel))}) "
+            "or publish the build again")
+
+
+def _extra_folders(run_dir: Path, listed: set[str]) -> list[str]:
+    """Folders (outside ``card/``) under which the manifest lists no file: empty ones, or ones
+    holding only extra files (those are reported one by one as well)."""
+    needed = {str(parent) for rel in listed for parent in Path(rel).parents if str(parent) != "."}
+    problems = []
+    for dirpath, dirnames, _ in os.walk(run_dir, followlinks=False):
+        rel_dir = Path(dirpath).relative_to(run_dir)
+        if rel_dir == Path("."):
+            dirnames[:] = [d for d in dirnames if d != CARD_DIR]
+        for name in sorted(dirnames):
+            rel = (rel_dir / name).as_posix()
+            if rel not in needed and not (Path(dirpath) / name).is_symlink():
+                empty = not any(os.scandir(Path(dirpath) / name))
+                problems.append(f"extra folder not in the manifest: {rel}/ ({'empty' if empty else 'no listed file under it'}); "
+                                + _clean_hint(run_dir, rel, folder=True))
+                dirnames.remove(name)
+    return problems
+
+
 def _check_links(run_dir: Path, manifest: dict, entries: dict, hashes: dict, on_disk: set, problems: list[str]) -> int:
     """Follow each stamp's recorded outputs and inputs; return the number of stamps read."""
-    prefix = f"results/{manifest.get('run')}/"
+    run = str(manifest.get("run"))
     raw_inputs = {posixpath.normpath(k): v for k, v in (manifest.get("raw_inputs") or {}).items()
                   if isinstance(v, dict)}
     by_stamp: dict[str, list[str]] = {}
@@ -233,7 +263,7 @@ def _check_links(run_dir: Path, manifest: dict, entries: dict, hashes: dict, on_
             continue
         outputs = {}
         for path, digest in sorted(stamp["outputs"].items()):
-            rel = path[len(prefix):] if path.startswith(prefix) else None
+            rel = run_relative(path, run)
             if rel is None or unsafe_path_reason(rel):
                 problems.append(f"stamp {stamp_rel} names an output outside the results folder: {path!r} (refused)")
                 continue
@@ -250,7 +280,7 @@ def _check_links(run_dir: Path, manifest: dict, entries: dict, hashes: dict, on_
             if disagree:
                 problems.append(f"broken link: stamp {stamp_rel} and the manifest disagree on {key} "
                                 f"for {', '.join(disagree)}")
-        _check_inputs(stamp_rel, stamp["inputs"], prefix, entries, hashes, raw_inputs, problems)
+        _check_inputs(stamp_rel, stamp["inputs"], run, entries, hashes, raw_inputs, problems)
     return len(by_stamp)
 
 
@@ -273,10 +303,10 @@ def _read_stamp(run_dir: Path, stamp_rel: str, entries: dict, on_disk: set, prob
     return stamp
 
 
-def _check_inputs(stamp_rel, inputs, prefix, entries, hashes, raw_inputs, problems) -> None:
+def _check_inputs(stamp_rel, inputs, run, entries, hashes, raw_inputs, problems) -> None:
     for path, digest in sorted(inputs.items()):
-        if path.startswith(prefix):
-            rel = path[len(prefix):]
+        rel = run_relative(path, run)
+        if rel is not None:
             if unsafe_path_reason(rel) or rel not in entries:
                 problems.append(f"broken link: stamp {stamp_rel} read {path}, which the manifest lacks")
                 continue
@@ -302,7 +332,7 @@ def _check_card(run_dir: Path, manifest_sha256: str, problems: list[str], notes:
     if card_dir.is_symlink() or not card_dir.is_dir():
         problems.append(f"{CARD_DIR} is a symlink or not a folder; refused")
         return "refused"
-    present = _card_files(card_dir, problems, notes)
+    present = _card_files(card_dir, problems)
     if CARD_HASHES not in present:
         problems.append(f"{CARD_HASHES} is missing, so the card's files cannot be checked")
         return "unchecked"
@@ -320,11 +350,11 @@ def _check_card(run_dir: Path, manifest_sha256: str, problems: list[str], notes:
         elif (found := sha256_file(run_dir / rel)) != digest:
             problems.append(f"changed: {rel} expected sha256 {digest} (from {CARD_HASHES}), found {found}")
     for rel in sorted(present - set(listed) - {CARD_HASHES}):
-        problems.append(f"extra file in {CARD_DIR}/ not listed in {CARD_HASHES}: {rel}")
+        problems.append(f"extra file in {CARD_DIR}/ not listed in {CARD_HASHES}: {rel}; {_clean_hint(run_dir, rel)}")
     return f"bound to this manifest ({len(listed) - 1} files)" if listed.get(MANIFEST_NAME) == manifest_sha256 else "NOT bound"
 
 
-def _card_files(card_dir: Path, problems: list[str], notes: list[str]) -> set[str]:
+def _card_files(card_dir: Path, problems: list[str]) -> set[str]:
     present = set()
     for dirpath, dirnames, filenames in os.walk(card_dir, followlinks=False):
         for name in sorted(dirnames + filenames):
@@ -334,11 +364,12 @@ def _card_files(card_dir: Path, problems: list[str], notes: list[str]) -> set[st
             if stat.S_ISLNK(mode):
                 problems.append(f"{rel} is a symlink (to {os.readlink(full)}); a results folder holds only regular files")
             elif stat.S_ISREG(mode):
-                if PARTIAL_WRITE.match(name):
-                    notes.append(f"{rel}: leftover of an interrupted write (not an artifact)")
-                else:
-                    present.add(rel)
-            elif not stat.S_ISDIR(mode):
+                present.add(rel)
+            elif stat.S_ISDIR(mode):
+                if not any(os.scandir(full)):
+                    problems.append(f"extra folder in {CARD_DIR}/: {rel}/ (empty); "
+                                    + _clean_hint(card_dir.parent, rel, folder=True))
+            else:
                 problems.append(f"{rel} is not a regular file")
     return present
 
@@ -367,7 +398,6 @@ def _card_hash_lines(data: bytes, problems: list[str]) -> dict[str, str]:
 
 #: What a rebuild copies from the checkout (never from the folder being checked).
 PROJECT_PARTS = ("Snakefile", "rules", "scripts", "schemas", "config", "reports", "oddsmith")
-DEFAULT_CONFIG = "config/config.yaml"
 
 
 def default_project_dir() -> Path:
@@ -382,8 +412,9 @@ def rebuild_and_compare(run_dir, *, project_dir=None, workdir=None, cores: int =
     (default: ``default_project_dir()``), the raw data and config files recorded in the
     manifest are taken from the same checkout after checking their hashes, and the build runs
     in ``workdir`` (default: a temporary folder, removed afterwards) with the recorded
-    SOURCE_DATE_EPOCH and git state. Every file hash, the manifest and ``card.sha256`` are
-    compared with the recorded ones.
+    configuration file, SOURCE_DATE_EPOCH and git state. The rebuild's staging folder
+    (``work/<run>``) is compared with the recorded one: every file hash, the manifest and
+    ``card.sha256``.
     """
     run_dir = Path(run_dir)
     problems: list[str] = []
@@ -403,7 +434,7 @@ def rebuild_and_compare(run_dir, *, project_dir=None, workdir=None, cores: int =
         problems += _run_rebuild(manifest, run_dir, work, cores=cores)
         if problems:
             return problems
-        return _compare_runs(run_dir, work / "results" / manifest["run"])
+        return _compare_runs(run_dir, work / STAGING_DIR / manifest["run"])
     finally:
         if temporary:
             shutil.rmtree(work, ignore_errors=True)
@@ -440,13 +471,16 @@ def _stage_project(manifest: dict, project_dir: Path, work: Path) -> list[str]:
 
 def _run_rebuild(manifest: dict, run_dir: Path, work: Path, *, cores: int) -> list[str]:
     run = manifest["run"]
-    targets = [f"results/{run}/{MANIFEST_NAME}"]
+    configs = _config_files(manifest)
+    if len(configs) != 1:
+        return [f"cannot rebuild: the manifest records {len(configs)} configuration files ({', '.join(configs) or 'none'}); "
+                "a build reads exactly one (results made by an oddsmith that merged a base configuration "
+                "are rebuilt with the checkout they were made with)"]
+    targets = [f"{STAGING_DIR}/{run}/{MANIFEST_NAME}"]
     if (run_dir / CARD_HASHES).is_file():
-        targets.append(f"results/{run}/{CARD_HASHES}")
-    extra_configs = [p for p in _config_files(manifest) if p != DEFAULT_CONFIG]
-    cmd = [sys.executable, "-m", "snakemake", "--cores", str(cores), "--nocolor", *targets]
-    if extra_configs:
-        cmd += ["--configfile", *extra_configs]
+        targets.append(f"{STAGING_DIR}/{run}/{CARD_HASHES}")
+    # --configfile takes one or more values: it comes last, so that no target is read as a config file
+    cmd = [sys.executable, "-m", "snakemake", "--cores", str(cores), "--nocolor", *targets, "--configfile", configs[0]]
     env = dict(os.environ)
     env["SOURCE_DATE_EPOCH"] = str(manifest["source_date_epoch"])
     env[GIT_OVERRIDE_ENV] = json.dumps(manifest["git"])

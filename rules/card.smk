@@ -11,16 +11,16 @@ FIGURES = DECISION_FIGURES + MODEL_FIGURES
 
 rule model_figures:
     input:
-        probability_metrics="results/{run}/evaluation/probability_metrics.json",
-        selected="results/{run}/comparison/selected.json",
-        recipe="results/{run}/features/recipe.json",
+        probability_metrics="work/{run}/evaluation/probability_metrics.json",
+        selected="work/{run}/comparison/selected.json",
+        recipe="work/{run}/features/recipe.json",
         models=expand(
-            "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
+            "work/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
         ),
     output:
-        reliability="results/{run}/figures/reliability.svg",
-        coefficients="results/{run}/figures/coefficients.svg",
-        stamp="results/{run}/provenance/model_figures.json",
+        reliability="work/{run}/figures/reliability.svg",
+        coefficients="work/{run}/figures/coefficients.svg",
+        stamp="work/{run}/provenance/model_figures.json",
     log:
         "logs/{run}/model_figures.log",
     benchmark:
@@ -39,17 +39,17 @@ rule model_figures:
 
 rule figures:
     input:
-        predictions="results/{run}/evaluation/predictions.parquet",
-        metrics="results/{run}/evaluation/metrics.json",
-        subgroups="results/{run}/evaluation/subgroups.json",
-        choice="results/{run}/threshold/choice.json",
-        curve="results/{run}/threshold/cost_curve.parquet",
+        predictions="work/{run}/evaluation/predictions.parquet",
+        metrics="work/{run}/evaluation/metrics.json",
+        subgroups="work/{run}/evaluation/subgroups.json",
+        choice="work/{run}/threshold/choice.json",
+        curve="work/{run}/threshold/cost_curve.parquet",
     output:
-        roc="results/{run}/figures/roc.svg",
-        cost_curve="results/{run}/figures/cost_curve.svg",
-        score_distribution="results/{run}/figures/score_distribution.svg",
-        subgroups="results/{run}/figures/subgroups.svg",
-        stamp="results/{run}/provenance/figures.json",
+        roc="work/{run}/figures/roc.svg",
+        cost_curve="work/{run}/figures/cost_curve.svg",
+        score_distribution="work/{run}/figures/score_distribution.svg",
+        subgroups="work/{run}/figures/subgroups.svg",
+        stamp="work/{run}/provenance/figures.json",
     log:
         "logs/{run}/figures.log",
     benchmark:
@@ -68,24 +68,24 @@ rule figures:
 
 rule card:
     input:
-        manifest="results/{run}/manifest.json",
-        report="results/{run}/validated/report.json",
-        split="results/{run}/split/summary.json",
-        recipe="results/{run}/features/recipe.json",
-        diagnostics="results/{run}/features/diagnostics.json",
+        manifest="work/{run}/manifest.json",
+        report="work/{run}/validated/report.json",
+        split="work/{run}/split/summary.json",
+        recipe="work/{run}/features/recipe.json",
+        diagnostics="work/{run}/features/diagnostics.json",
         models=expand(
-            "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
+            "work/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
         ),
-        table="results/{run}/comparison/table.json",
-        selected="results/{run}/comparison/selected.json",
-        choice="results/{run}/threshold/choice.json",
-        metrics="results/{run}/evaluation/metrics.json",
-        subgroups="results/{run}/evaluation/subgroups.json",
-        figures=expand("results/{{run}}/figures/{figure}.svg", figure=FIGURES),
+        table="work/{run}/comparison/table.json",
+        selected="work/{run}/comparison/selected.json",
+        choice="work/{run}/threshold/choice.json",
+        metrics="work/{run}/evaluation/metrics.json",
+        subgroups="work/{run}/evaluation/subgroups.json",
+        figures=expand("work/{{run}}/figures/{figure}.svg", figure=FIGURES),
     output:
-        html="results/{run}/card/model_card.html",
-        pdf="results/{run}/card/model_card.pdf",
-        sha256="results/{run}/card/card.sha256",
+        html="work/{run}/card/model_card.html",
+        pdf="work/{run}/card/model_card.pdf",
+        sha256="work/{run}/card/card.sha256",
     log:
         "logs/{run}/card.log",
     benchmark:

@@ -7,7 +7,30 @@ from snakemake.io import get_wildcard_names, strip_wildcard_constraints
 from oddsmith.config import check_config, read_config_file
 from oddsmith.errors import ConfigError
 from oddsmith.manifest import build_info, environment, source_date_epoch
+from oddsmith.publish import current_result_note
 from oddsmith.runner import code_fingerprint, params_hash
+
+CHOOSE_CONFIG = """a build reads exactly one configuration file, complete on its own (the schema's
+defaults fill in the keys it leaves out). Name it:
+  oddsmith build config/demo.yaml                       the demo
+  oddsmith build config/<yours>.yaml                    your own (`oddsmith init DATA.csv` drafts one)
+or, with Snakemake directly: snakemake --cores 2 --configfile config/demo.yaml"""
+
+
+def config_files():
+    """The configuration files this build read, relative to the project (in load order)."""
+    rel = [os.path.relpath(os.path.abspath(p)) for p in workflow.configfiles]
+    return list(dict.fromkeys(rel))
+
+
+if len(config_files()) != 1:
+    given = ", ".join(config_files())
+    found = (
+        f"several configuration files given ({given})"
+        if given
+        else "no configuration file given"
+    )
+    sys.exit(f"oddsmith: {found}; {CHOOSE_CONFIG}")
 
 try:
     # Snakemake has parsed the files already; reading them again with oddsmith's reader
@@ -17,7 +40,7 @@ try:
         read_config_file(os.path.relpath(_path))
     CONFIG = check_config(config, project_dir=".")
 except ConfigError as exc:
-    sys.exit(f"oddsmith: {exc}")
+    sys.exit(f"oddsmith: {exc}\n{current_result_note(config)}")
 
 RUN = CONFIG["run"]
 CANDIDATES = [c["name"] for c in CONFIG["candidates"]]
@@ -78,12 +101,6 @@ def stamps(run):
         elif names == {"run", "candidate"}:
             paths += expand(pattern, run=run, candidate=CANDIDATES)
     return sorted(set(paths))
-
-
-def config_files():
-    """The configuration files this build read, relative to the project (in load order)."""
-    rel = [os.path.relpath(os.path.abspath(p)) for p in workflow.configfiles]
-    return list(dict.fromkeys(rel))
 
 
 def scoring_batches():

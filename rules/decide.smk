@@ -1,13 +1,13 @@
 rule threshold:
     input:
-        selected="results/{run}/comparison/selected.json",
+        selected="work/{run}/comparison/selected.json",
         oof=expand(
-            "results/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
+            "work/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
         ),
     output:
-        choice="results/{run}/threshold/choice.json",
-        curve="results/{run}/threshold/cost_curve.parquet",
-        stamp="results/{run}/provenance/threshold.json",
+        choice="work/{run}/threshold/choice.json",
+        curve="work/{run}/threshold/cost_curve.parquet",
+        stamp="work/{run}/provenance/threshold.json",
     log:
         "logs/{run}/threshold.log",
     benchmark:
@@ -35,17 +35,17 @@ rule threshold:
 # apply_cutoff, not evaluate. Neither threshold nor compare reads an evaluation artifact.
 rule evaluate:
     input:
-        data="results/{run}/validated/data.parquet",
-        assignment="results/{run}/split/assignment.parquet",
-        recipe="results/{run}/features/recipe.json",
-        selected="results/{run}/comparison/selected.json",
+        data="work/{run}/validated/data.parquet",
+        assignment="work/{run}/split/assignment.parquet",
+        recipe="work/{run}/features/recipe.json",
+        selected="work/{run}/comparison/selected.json",
         models=expand(
-            "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
+            "work/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
         ),
     output:
-        scores="results/{run}/evaluation/scores.parquet",
-        probability_metrics="results/{run}/evaluation/probability_metrics.json",
-        stamp="results/{run}/provenance/evaluate.json",
+        scores="work/{run}/evaluation/scores.parquet",
+        probability_metrics="work/{run}/evaluation/probability_metrics.json",
+        stamp="work/{run}/provenance/evaluate.json",
     log:
         "logs/{run}/evaluate.log",
     benchmark:
@@ -78,14 +78,14 @@ rule evaluate:
 
 rule apply_cutoff:
     input:
-        scores="results/{run}/evaluation/scores.parquet",
-        probability_metrics="results/{run}/evaluation/probability_metrics.json",
-        choice="results/{run}/threshold/choice.json",
+        scores="work/{run}/evaluation/scores.parquet",
+        probability_metrics="work/{run}/evaluation/probability_metrics.json",
+        choice="work/{run}/threshold/choice.json",
     output:
-        metrics="results/{run}/evaluation/metrics.json",
-        subgroups="results/{run}/evaluation/subgroups.json",
-        predictions="results/{run}/evaluation/predictions.parquet",
-        stamp="results/{run}/provenance/apply_cutoff.json",
+        metrics="work/{run}/evaluation/metrics.json",
+        subgroups="work/{run}/evaluation/subgroups.json",
+        predictions="work/{run}/evaluation/predictions.parquet",
+        stamp="work/{run}/provenance/apply_cutoff.json",
     log:
         "logs/{run}/apply_cutoff.log",
     benchmark:

@@ -1,13 +1,13 @@
 rule fit:
     input:
-        design="results/{run}/features/train_design.parquet",
-        assignment="results/{run}/split/assignment.parquet",
-        recipe="results/{run}/features/recipe.json",
+        design="work/{run}/features/train_design.parquet",
+        assignment="work/{run}/split/assignment.parquet",
+        recipe="work/{run}/features/recipe.json",
     output:
-        model="results/{run}/candidates/{candidate}/model.json",
-        cv="results/{run}/candidates/{candidate}/cv.json",
-        oof="results/{run}/candidates/{candidate}/oof.parquet",
-        stamp="results/{run}/provenance/fit-{candidate}.json",
+        model="work/{run}/candidates/{candidate}/model.json",
+        cv="work/{run}/candidates/{candidate}/cv.json",
+        oof="work/{run}/candidates/{candidate}/oof.parquet",
+        stamp="work/{run}/provenance/fit-{candidate}.json",
     log:
         "logs/{run}/fit/{candidate}.log",
     benchmark:
@@ -37,19 +37,17 @@ rule fit:
 
 rule compare:
     input:
-        cv=expand(
-            "results/{{run}}/candidates/{candidate}/cv.json", candidate=CANDIDATES
-        ),
+        cv=expand("work/{{run}}/candidates/{candidate}/cv.json", candidate=CANDIDATES),
         oof=expand(
-            "results/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
+            "work/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
         ),
         models=expand(
             "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
         ),
     output:
-        table="results/{run}/comparison/table.json",
-        selected="results/{run}/comparison/selected.json",
-        stamp="results/{run}/provenance/compare.json",
+        table="work/{run}/comparison/table.json",
+        selected="work/{run}/comparison/selected.json",
+        stamp="work/{run}/provenance/compare.json",
     log:
         "logs/{run}/compare.log",
     benchmark:

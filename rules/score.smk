@@ -1,7 +1,7 @@
 # Scoring a later batch with this build's selected model: scores with reason codes and a
 # drift page. Defined only when scoring.data is set. The batch file, the drift template and
 # the card stylesheet enter through params (path + SHA-256): a changed file reruns the rule,
-# and the job's stamp lists only files of the results folder (the summary records the
+# and the job's stamp lists only files of the run folder (the summary records the
 # batch's hash).
 import os
 
@@ -21,28 +21,28 @@ SCORING_FILES = {
 }
 
 if SCORING["data"]:
-    SCORING_OUTPUTS = expand("results/{run}/scoring/summary.json", run=RUN)
+    SCORING_OUTPUTS = expand("work/{run}/scoring/summary.json", run=RUN)
 
     rule score:
         input:
-            recipe="results/{run}/features/recipe.json",
-            selected="results/{run}/comparison/selected.json",
+            recipe="work/{run}/features/recipe.json",
+            selected="work/{run}/comparison/selected.json",
             models=expand(
-                "results/{{run}}/candidates/{candidate}/model.json",
+                "work/{{run}}/candidates/{candidate}/model.json",
                 candidate=CANDIDATES,
             ),
-            choice="results/{run}/threshold/choice.json",
-            contract="results/{run}/validated/contract.yaml",
-            data="results/{run}/validated/data.parquet",
-            assignment="results/{run}/split/assignment.parquet",
+            choice="work/{run}/threshold/choice.json",
+            contract="work/{run}/validated/contract.yaml",
+            data="work/{run}/validated/data.parquet",
+            assignment="work/{run}/split/assignment.parquet",
         output:
-            scores="results/{run}/scoring/scores.parquet",
-            csv="results/{run}/scoring/scores.csv",
-            summary="results/{run}/scoring/summary.json",
-            drift="results/{run}/scoring/drift.json",
-            html="results/{run}/scoring/drift.html",
-            pdf="results/{run}/scoring/drift.pdf",
-            stamp="results/{run}/provenance/score.json",
+            scores="work/{run}/scoring/scores.parquet",
+            csv="work/{run}/scoring/scores.csv",
+            summary="work/{run}/scoring/summary.json",
+            drift="work/{run}/scoring/drift.json",
+            html="work/{run}/scoring/drift.html",
+            pdf="work/{run}/scoring/drift.pdf",
+            stamp="work/{run}/provenance/score.json",
         log:
             "logs/{run}/score.log",
         benchmark:

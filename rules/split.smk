@@ -1,11 +1,11 @@
 rule split:
     input:
-        data="results/{run}/validated/data.parquet",
-        report="results/{run}/validated/report.json",
+        data="work/{run}/validated/data.parquet",
+        report="work/{run}/validated/report.json",
     output:
-        assignment="results/{run}/split/assignment.parquet",
-        summary="results/{run}/split/summary.json",
-        stamp="results/{run}/provenance/split.json",
+        assignment="work/{run}/split/assignment.parquet",
+        summary="work/{run}/split/summary.json",
+        stamp="work/{run}/provenance/split.json",
     log:
         "logs/{run}/split.log",
     benchmark:
@@ -25,13 +25,13 @@ rule split:
 
 rule features:
     input:
-        data="results/{run}/validated/data.parquet",
-        assignment="results/{run}/split/assignment.parquet",
+        data="work/{run}/validated/data.parquet",
+        assignment="work/{run}/split/assignment.parquet",
     output:
-        recipe="results/{run}/features/recipe.json",
-        diagnostics="results/{run}/features/diagnostics.json",
-        design="results/{run}/features/train_design.parquet",
-        stamp="results/{run}/provenance/features.json",
+        recipe="work/{run}/features/recipe.json",
+        diagnostics="work/{run}/features/diagnostics.json",
+        design="work/{run}/features/train_design.parquet",
+        stamp="work/{run}/provenance/features.json",
     log:
         "logs/{run}/features.log",
     benchmark:

@@ -3,11 +3,11 @@ rule validate:
         data=CONFIG["data"]["path"],
         contract=CONFIG["data"]["contract"],
     output:
-        data="results/{run}/validated/data.parquet",
-        report="results/{run}/validated/report.json",
-        summary="results/{run}/validated/summary.txt",
-        contract="results/{run}/validated/contract.yaml",
-        stamp="results/{run}/provenance/validate.json",
+        data="work/{run}/validated/data.parquet",
+        report="work/{run}/validated/report.json",
+        summary="work/{run}/validated/summary.txt",
+        contract="work/{run}/validated/contract.yaml",
+        stamp="work/{run}/provenance/validate.json",
     log:
         "logs/{run}/validate.log",
     benchmark:

@@ -62,7 +62,7 @@ def _birthwt_project(dest: Path) -> Path:
 @pytest.fixture(scope="module")
 def birthwt_run(tmp_path_factory) -> Path:
     project = _birthwt_project(tmp_path_factory.mktemp("birthwt") / "project")
-    run_snakemake(project, "--configfile", "config/birthwt.yaml", "--replace-workflow-config")
+    run_snakemake(project, config="config/birthwt.yaml")
     return project / "results" / "birthwt"
 
 

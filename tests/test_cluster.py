@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 import yaml
 
-from conftest import ROOT, copy_project, run_snakemake
+from conftest import DEMO_CONFIG, ROOT, copy_project, run_snakemake
 
 pytestmark = pytest.mark.e2e
 RUN = "results/lease_demo"
@@ -73,10 +73,10 @@ def test_artifacts_hold_no_absolute_path_of_the_project(cluster_build, demo_buil
 
 
 def test_rules_declare_resources_from_the_config(project):
-    config = yaml.safe_load((project / "config/config.yaml").read_text())
+    config = yaml.safe_load((project / DEMO_CONFIG).read_text())
     config["resources"] = {"threads": 2, "mem_mb": 2345, "runtime": 17}
     (project / "config/custom.yaml").write_text(yaml.safe_dump(config, sort_keys=False))
-    result = run_snakemake(project, "--dry-run", "--configfile", "config/custom.yaml")
+    result = run_snakemake(project, "--dry-run", config="config/custom.yaml")
     jobs = _dry_run_jobs(result.stdout + result.stderr)
     assert jobs, "the dry run listed no jobs"
     for rule, threads, resources in jobs:

@@ -449,7 +449,7 @@ def test_a_cluster_build_fits_by_child_and_its_card_says_so(tmp_path):
     from conftest import run_snakemake
 
     project = _ohio_project(tmp_path / "project")
-    run_snakemake(project, "--configfile", "config/ohio.yaml", "--replace-workflow-config")
+    run_snakemake(project, config="config/ohio.yaml")
     run = project / "results" / "ohio"
     train = pd.read_parquet(run / "features" / "train_design.parquet")
     model = json.loads((run / "candidates" / "wheeze_logit" / "model.json").read_text())

@@ -100,7 +100,7 @@ def test_wheel_in_a_fresh_environment_verifies_and_builds(demo_build, tmp_path):
     project = _copy([p for p in PROJECT_PARTS if p != "oddsmith"], tmp_path / "project")
     assert not (project / "oddsmith").exists()
     assert _imported_from(python, "oddsmith", cwd=project, env=env) == package / "__init__.py"
-    _run([python, "-m", "snakemake", "--cores", "2", "--nocolor"], cwd=project, env=env)
+    _run([python, "-m", "snakemake", "--cores", "2", "--nocolor", "--configfile", "config/demo.yaml"], cwd=project, env=env)
     _run([oddsmith, "verify", project / RUN], cwd=elsewhere, env=env)
     built = {p.relative_to(project / RUN): p.read_bytes() for p in sorted((project / RUN).rglob("*")) if p.is_file()}
     checkout = {p.relative_to(results): p.read_bytes() for p in sorted(results.rglob("*")) if p.is_file()}

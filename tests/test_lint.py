@@ -14,7 +14,7 @@ ALLOWED_LINT = "Specify a conda environment or container for each rule."
 
 
 def test_snakemake_lint_is_clean():
-    result = subprocess.run([str(BIN / "snakemake"), "--lint", "--nocolor"], cwd=ROOT, capture_output=True, text=True)
+    result = subprocess.run([str(BIN / "snakemake"), "--lint", "--nocolor", "--configfile", "config/demo.yaml"], cwd=ROOT, capture_output=True, text=True)
     output = result.stdout + result.stderr
     findings = re.findall(r"^\s+\* (.+?):?$", output, flags=re.M)
     assert findings, "the linter printed nothing recognisable:\n" + output[-2000:]

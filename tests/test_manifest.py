@@ -17,7 +17,7 @@ from oddsmith.io import canonical_json, sha256_bytes, sha256_file, write_json
 from oddsmith.manifest import (FORMAT, GIT_OVERRIDE_ENV, build_manifest, environment, git_state,
                                source_date_epoch, unsafe_path_reason)
 
-from conftest import run_snakemake
+from conftest import DEMO_CONFIG, run_snakemake
 
 RUN = "demo"
 BUILD = {"source_date_epoch": 1767225600, "git": None}
@@ -92,7 +92,7 @@ def test_a_file_no_job_wrote_stops_the_manifest(tmp_path):
     stamps = _small_project(project)
     (project / "results" / RUN / "candidates" / "old").mkdir()
     (project / "results" / RUN / "candidates" / "old" / "model.json").write_text("{}")
-    with pytest.raises(ManifestError, match=r"candidates/old/model.json is in the results folder but no job"):
+    with pytest.raises(ManifestError, match=r"candidates/old/model.json is in the run folder but no job"):
         _build(project, stamps)
     assert not (project / "results" / RUN / "manifest.json").exists()
 
@@ -171,13 +171,13 @@ def test_git_state_and_source_date_epoch(tmp_path, monkeypatch):
     assert git_state(repo) is None
     assert source_date_epoch(repo) == (0, "fallback 0 (no SOURCE_DATE_EPOCH and no git history)")
     _git(repo, "init", "-q")
-    (repo / "a.txt").write_text("a\n")
-    _git(repo, "add", "a.txt")
+    (repo / "Snakefile").write_text("a\n")
+    _git(repo, "add", "Snakefile")
     _git(repo, "commit", "-q", "-m", "first")
     head = _git(repo, "rev-parse", "HEAD").strip()
     assert git_state(repo) == {"commit": head, "dirty": False}
     assert source_date_epoch(repo) == (1700000000, "time of the last commit")
-    (repo / "a.txt").write_text("b\n")
+    (repo / "Snakefile").write_text("b\n")
     assert git_state(repo) == {"commit": head, "dirty": True}
     monkeypatch.setenv("SOURCE_DATE_EPOCH", "1767225600")
     assert source_date_epoch(repo)[0] == 1767225600
@@ -191,12 +191,48 @@ def test_git_state_and_source_date_epoch(tmp_path, monkeypatch):
         git_state(repo)
 
 
+def _committed_project(repo: Path) -> str:
+    """A repository holding one file of each kind of code, committed; returns the commit."""
+    for rel in ("oddsmith/metrics.py", "Snakefile", "rules/fit.smk", "scripts/fit.py", "reports/card.html.j2",
+                "schemas/config.schema.yaml", "schemas/contracts/demo.yaml", "pyproject.toml", "config/demo.yaml",
+                "data_demo/rows.csv"):
+        (repo / rel).parent.mkdir(parents=True, exist_ok=True)
+        (repo / rel).write_text("committed\n")
+    _git(repo, "init", "-q")
+    _git(repo, "add", ".")
+    _git(repo, "commit", "-q", "-m", "first")
+    return _git(repo, "rev-parse", "HEAD").strip()
+
+
+@pytest.mark.parametrize("rel", ["data/applications.csv", "config/applications.yaml", "schemas/contracts/applications.yaml",
+                                 "config/demo.yaml", "data_demo/rows.csv", "notes.txt", "tests/test_new.py"])
+def test_data_and_config_files_are_not_uncommitted_code(tmp_path, monkeypatch, rel):
+    """Untracked or edited data, configuration and contract files leave the code clean (the
+    manifest records them by hash as raw inputs)."""
+    monkeypatch.delenv(GIT_OVERRIDE_ENV, raising=False)
+    head = _committed_project(tmp_path)
+    (tmp_path / rel).parent.mkdir(parents=True, exist_ok=True)
+    (tmp_path / rel).write_text("the user's own\n")
+    assert git_state(tmp_path) == {"commit": head, "dirty": False}
+
+
+@pytest.mark.parametrize("rel", ["oddsmith/metrics.py", "oddsmith/new_module.py", "Snakefile", "rules/fit.smk",
+                                 "rules/extra.smk", "scripts/fit.py", "reports/card.html.j2",
+                                 "schemas/config.schema.yaml", "pyproject.toml", "requirements.lock"])
+def test_edited_or_added_code_is_uncommitted_code(tmp_path, monkeypatch, rel):
+    monkeypatch.delenv(GIT_OVERRIDE_ENV, raising=False)
+    head = _committed_project(tmp_path)
+    (tmp_path / rel).parent.mkdir(parents=True, exist_ok=True)
+    (tmp_path / rel).write_text("changed\n")
+    assert git_state(tmp_path) == {"commit": head, "dirty": True}
+
+
 # ---- the manifest of the real demo build ----
 
 def build_targets(project: Path) -> list[str]:
     """The default target plus the manifest (and the card, when the workflow has one)."""
     rules = run_snakemake(project, "--list-rules").stdout.split()
-    return ["all", "results/lease_demo/manifest.json"] + (["results/lease_demo/card/card.sha256"] if "card" in rules else [])
+    return ["all", "work/lease_demo/manifest.json"] + (["work/lease_demo/card/card.sha256"] if "card" in rules else [])
 
 
 @pytest.fixture(scope="module")
@@ -219,14 +255,14 @@ def test_demo_manifest_covers_every_artifact(demo_run, demo_build):
         assert entry["sha256"] == sha256_file(demo_run / rel), rel
         assert entry["rule"] and entry["stamp"].startswith("provenance/"), rel
     assert manifest["files"]["candidates/lasso/model.json"]["stamp"] == "provenance/fit-lasso.json"
-    roles = {"data_demo/lease_applications.csv": "data", "config/config.yaml": "config",
+    roles = {"data_demo/lease_applications.csv": "data", DEMO_CONFIG: "config",
              "schemas/contracts/lease_applications.yaml": "contract"}
     if manifest["config"].get("scoring", {}).get("data"):
         roles[manifest["config"]["scoring"]["data"]] = "scoring batch"
     assert {path: entry["role"] for path, entry in manifest["raw_inputs"].items()} == roles
     for path, entry in manifest["raw_inputs"].items():
         assert entry["sha256"] == sha256_file(demo_build / path), path
-    resolved = check_config(read_config_file(demo_build / "config" / "config.yaml"), project_dir=demo_build)
+    resolved = check_config(read_config_file(demo_build / DEMO_CONFIG), project_dir=demo_build)
     assert manifest["config"] == json.loads(canonical_json(resolved))
     assert manifest["source_date_epoch"] == 1767225600 and manifest["git"] is None
     assert str(demo_build).encode() not in raw and b"/tmp/" not in raw

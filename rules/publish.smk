@@ -1,0 +1,37 @@
+# Publication: the finished staging build (manifest and card) becomes results/<run> only if
+# its copy verifies; a failed, partial or killed build leaves results/<run> as it was.
+# `pending` is None in every ordinary state and names the staging card otherwise, so a
+# finished build whose publication was interrupted is published by the next invocation.
+from oddsmith.publish import after_build, describe_current, pending
+
+# Read once, before any job runs (a lambda would be evaluated when the job starts, after the
+# card is built, and would differ on every build).
+PUBLISH_PENDING = pending(RUN)
+
+
+rule publish:
+    input:
+        manifest="work/{run}/manifest.json",
+        card="work/{run}/card/card.sha256",
+    output:
+        marker="work/{run}.published",
+    log:
+        "logs/{run}/publish.log",
+    benchmark:
+        "benchmarks/{run}/publish.tsv"
+    localrule: True
+    threads: RES["threads"]
+    resources:
+        mem_mb=RES["mem_mb"],
+        runtime=RES["runtime"],
+    params:
+        pending=PUBLISH_PENDING,
+        code=code(
+            "stages/publish",
+            "publish",
+            "verify",
+            "manifest",
+            script="scripts/publish.py",
+        ),
+    script:
+        "../scripts/publish.py"
