@@ -82,6 +82,7 @@ rule card:
         metrics="results/{run}/evaluation/metrics.json",
         subgroups="results/{run}/evaluation/subgroups.json",
         figures=expand("results/{{run}}/figures/{figure}.svg", figure=FIGURES),
+        challenger=CHALLENGER_OUTPUTS,
     output:
         html="results/{run}/card/model_card.html",
         pdf="results/{run}/card/model_card.pdf",
