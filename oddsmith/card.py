@@ -371,7 +371,7 @@ def findings(run: dict) -> list[dict]:
 
     Each is ``{"status": "attention" | "note" | "ok", "check", "basis", "found", "advice"}``.
     """
-    out = [_epv_finding(run), *_calibration_findings(run), _subgroup_finding(run), *_group_size_findings(run),
+    out = [_epv_finding(run), _test_size_finding(run), *_calibration_findings(run), _subgroup_finding(run), *_group_size_findings(run),
            _failed_finding(run), _challenger_finding(run), _leak_finding(run), _vif_finding(run), _drift_finding(run), *_decision_findings(run)]
     diag = run["diagnostics"]
     if diag["correlations"]["pairs"]:
@@ -417,12 +417,39 @@ def _calibration_findings(run):
         slope_f = _finding("ok", "Calibration slope (test)", band, fmt_fixed(slope))
     hl = run["metrics"]["hosmer_lemeshow"]
     found = f"C = {fmt_fixed(hl['statistic'], 2)}, df = {hl['df']}, p = {fmt_p(hl['p_value'])}"
-    if hl["p_value"] is not None and hl["p_value"] < HL_ALPHA:
+    sample = hl.get("sample_check")  # absent from runs evaluated before the check existed
+    if sample is not None and not sample["adequate"]:
+        hl_f = _finding("note", "Hosmer–Lemeshow goodness of fit (test)", sample["rule"],
+                        f"no p-value stated: {sample['below_1']} of {sample['cells']} expected counts below 1, "
+                        f"{sample['below_5']} below 5",
+                        "Too few cases per risk group for the test's p-value to mean anything; read the reliability "
+                        "table and the calibration slope instead, or evaluate on more data.")
+    elif hl["p_value"] is not None and hl["p_value"] < HL_ALPHA:
         hl_f = _finding("attention", "Hosmer–Lemeshow goodness of fit (test)", f"p at least {HL_ALPHA}", found,
                         "Observed and predicted rates differ across risk deciles; inspect the reliability table.")
     else:
         hl_f = _finding("ok", "Hosmer–Lemeshow goodness of fit (test)", f"p at least {HL_ALPHA}", found)
     return [slope_f, hl_f]
+
+
+#: Events and non-events in the test part below which its estimates are imprecise: Collins,
+#: Ogundimu & Altman, Statistics in Medicine 35 (2016) suggest at least 100 of each for a
+#: validation (from memory).
+MIN_TEST_EVENTS = 100
+
+
+def _test_size_finding(run):
+    metrics = run["metrics"]
+    events, non_events = metrics["events"], metrics["n"] - metrics["events"]
+    basis = (f"at least {MIN_TEST_EVENTS} events and {MIN_TEST_EVENTS} non-events (Collins, Ogundimu & Altman 2016; "
+             "from memory)")
+    found = f"{fmt_count(events)} events, {fmt_count(non_events)} non-events in {fmt_count(metrics['n'])} test cases"
+    if min(events, non_events) < MIN_TEST_EVENTS:
+        return _finding("attention", "Size of the test part", basis, found,
+                        "Too few test events for precise estimates: the intervals are wide, the calibration measures "
+                        "unstable and small differences meaningless. Evaluate on more data, or by repeated "
+                        "cross-validation when no more data exist.")
+    return _finding("ok", "Size of the test part", basis, found)
 
 
 def _subgroup_finding(run):
