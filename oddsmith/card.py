@@ -55,6 +55,8 @@ ARTIFACTS = {
     "subgroups": "evaluation/subgroups.json",
 }
 FIGURES = {name: f"figures/{name}.svg" for name in FIGURE_NAMES}
+#: The flexible challenger's results, present when the run's config has challenger.enabled.
+CHALLENGER_ARTIFACT = "challenger/cv.json"
 
 #: Libraries named in the model details (the appendix lists every installed one).
 KEY_LIBRARIES = ("numpy", "scipy", "pandas", "statsmodels", "scikit-learn", "pyarrow", "matplotlib", "jinja2",
@@ -271,7 +273,19 @@ def load_run(run_dir) -> dict:
         raise ArtifactError(f"the model card needs the selected model, which is missing: {model_path}")
     run["model"] = read_json(model_path)
     run["config"] = _manifest_config(run["manifest"], wanted["manifest"])
+    run["challenger"] = _load_challenger(run_dir, run["config"])
     return run
+
+
+def _load_challenger(run_dir: Path, config: dict) -> dict | None:
+    """The challenger's cv.json when the run's configuration enabled it, else None."""
+    if not (config.get("challenger") or {}).get("enabled"):
+        return None
+    path = run_dir / CHALLENGER_ARTIFACT
+    if not path.is_file():
+        raise ArtifactError("the model card needs the challenger's results (challenger.enabled is true), "
+                            "which are missing", [f"missing: {path}"])
+    return read_json(path)
 
 
 def _read_yaml(path: Path):
@@ -357,8 +371,8 @@ def findings(run: dict) -> list[dict]:
 
     Each is ``{"status": "attention" | "note" | "ok", "check", "basis", "found", "advice"}``.
     """
-    out = [_epv_finding(run), *_calibration_findings(run), _subgroup_finding(run), *_group_size_findings(run),
-           _failed_finding(run), _leak_finding(run), _vif_finding(run), _drift_finding(run), *_decision_findings(run)]
+    out = [_epv_finding(run), _test_size_finding(run), *_calibration_findings(run), _subgroup_finding(run), *_group_size_findings(run),
+           _failed_finding(run), _challenger_finding(run), _leak_finding(run), _vif_finding(run), _drift_finding(run), *_decision_findings(run)]
     diag = run["diagnostics"]
     if diag["correlations"]["pairs"]:
         pairs = "; ".join(f"{clip(p['a'])} and {clip(p['b'])} (r = {fmt_fixed(p['r'])})"
@@ -403,12 +417,39 @@ def _calibration_findings(run):
         slope_f = _finding("ok", "Calibration slope (test)", band, fmt_fixed(slope))
     hl = run["metrics"]["hosmer_lemeshow"]
     found = f"C = {fmt_fixed(hl['statistic'], 2)}, df = {hl['df']}, p = {fmt_p(hl['p_value'])}"
-    if hl["p_value"] is not None and hl["p_value"] < HL_ALPHA:
+    sample = hl.get("sample_check")  # absent from runs evaluated before the check existed
+    if sample is not None and not sample["adequate"]:
+        hl_f = _finding("note", "Hosmer–Lemeshow goodness of fit (test)", sample["rule"],
+                        f"no p-value stated: {sample['below_1']} of {sample['cells']} expected counts below 1, "
+                        f"{sample['below_5']} below 5",
+                        "Too few cases per risk group for the test's p-value to mean anything; read the reliability "
+                        "table and the calibration slope instead, or evaluate on more data.")
+    elif hl["p_value"] is not None and hl["p_value"] < HL_ALPHA:
         hl_f = _finding("attention", "Hosmer–Lemeshow goodness of fit (test)", f"p at least {HL_ALPHA}", found,
                         "Observed and predicted rates differ across risk deciles; inspect the reliability table.")
     else:
         hl_f = _finding("ok", "Hosmer–Lemeshow goodness of fit (test)", f"p at least {HL_ALPHA}", found)
     return [slope_f, hl_f]
+
+
+#: Events and non-events in the test part below which its estimates are imprecise: Collins,
+#: Ogundimu & Altman, Statistics in Medicine 35 (2016) suggest at least 100 of each for a
+#: validation (from memory).
+MIN_TEST_EVENTS = 100
+
+
+def _test_size_finding(run):
+    metrics = run["metrics"]
+    events, non_events = metrics["events"], metrics["n"] - metrics["events"]
+    basis = (f"at least {MIN_TEST_EVENTS} events and {MIN_TEST_EVENTS} non-events (Collins, Ogundimu & Altman 2016; "
+             "from memory)")
+    found = f"{fmt_count(events)} events, {fmt_count(non_events)} non-events in {fmt_count(metrics['n'])} test cases"
+    if min(events, non_events) < MIN_TEST_EVENTS:
+        return _finding("attention", "Size of the test part", basis, found,
+                        "Too few test events for precise estimates: the intervals are wide, the calibration measures "
+                        "unstable and small differences meaningless. Evaluate on more data, or by repeated "
+                        "cross-validation when no more data exist.")
+    return _finding("ok", "Size of the test part", basis, found)
 
 
 def _subgroup_finding(run):
@@ -446,6 +487,64 @@ def _failed_finding(run):
                         "; ".join(f"{clip(r['candidate'])}: {clip(r.get('reason'), 300)}" for r in failed),
                         "Read the reasons (separation, non-convergence); the comparison excludes these candidates.")
     return _finding("ok", "Candidates that could not be fitted", "none failed", "none")
+
+
+CHALLENGER_CHECK = "Flexible challenger (gradient-boosted trees, not for adoption)"
+#: How each gap is worded and formatted: (label, word when the challenger is better, when worse, format).
+_GAP_WORDS = {"log_loss": ("log loss", "lower", "higher", lambda x: fmt_fixed(x, 4)),
+              "auc": ("AUC", "higher", "lower", lambda x: fmt_fixed(x, 3))}
+
+
+def challenger_gap_sentence(gap: dict, *, selected: str) -> str:
+    """One metric's gap between the flexible challenger and the selected candidate, in words.
+
+    ``gap`` is an entry of the challenger's ``gap`` record (:func:`oddsmith.challenger.gap_interval`):
+    ``advantage`` is how much better the challenger does, with its interval ``lower``–``upper``.
+
+    Examples
+    --------
+    >>> g = {"metric": "log_loss", "advantage": 0.012, "lower": 0.004, "upper": 0.02, "level": 0.95,
+    ...      "relative": 0.03}
+    >>> challenger_gap_sentence(g, selected="logit_main")
+    "The flexible challenger's cross-validated log loss is 0.0120 lower than that of the selected candidate, logit_main (95% interval 0.0040 to 0.0200; 3.0% of the selected candidate's log loss)."
+    """
+    label, better, worse, fmt = _GAP_WORDS[gap["metric"]]
+    if gap.get("advantage") is None:
+        return f"The gap in {label} cannot be stated: {clip(gap.get('note'), 300)}."
+    advantage, low, high = gap["advantage"], gap["lower"], gap["upper"]
+    word = better if advantage >= 0 else worse
+    if advantage < 0:  # state the size of the shortfall, its interval turned the same way
+        advantage, low, high = -advantage, -high, -low
+    share = "" if gap.get("relative") is None else f"; {fmt_pct(abs(gap['relative']))} of the selected candidate's {label}"
+    return (f"The flexible challenger's cross-validated {label} is {fmt(advantage)} {word} than that of the selected "
+            f"candidate, {clip(selected)} ({fmt_fixed(100 * gap['level'], 0)}% interval {fmt(low)} to {fmt(high)}{share}).")
+
+
+def _challenger_sentences(challenger: dict | None) -> list[str]:
+    if challenger is None:
+        return []
+    gap = challenger["gap"]
+    return [challenger_gap_sentence(gap[metric], selected=gap["selected"]) for metric in _GAP_WORDS]
+
+
+def _challenger_finding(run):
+    check = CHALLENGER_CHECK
+    challenger = run.get("challenger")
+    if challenger is None:
+        found = ("not run: challenger.enabled is false" if "challenger" in run["config"]
+                 else "not run: this run's configuration has no challenger section")
+        return _finding("note", check, "cross-validated on the candidates' folds", found,
+                        "Nothing shows how much a flexible model would gain over the interpretable candidates; "
+                        "enable the challenger to measure it.")
+    gap = challenger["gap"]
+    basis = (f"log-loss gap not clearly above 0, or at most {fmt_pct(gap['relative_limit'])} of the selected "
+             "log loss (a project choice)")
+    found = challenger_gap_sentence(gap["log_loss"], selected=gap["selected"])
+    if gap["large"]:
+        return _finding("attention", check, basis, found,
+                        "The interpretable candidates may miss non-linear effects or interactions that the trees "
+                        "find: look for them (transforms, bins, splines or interactions in the recipe) and refit.")
+    return _finding("ok", check, basis, found)
 
 
 def _leak_finding(run):
@@ -579,6 +678,8 @@ def build_context(run: dict, *, release: dict | None) -> dict:
         "cost_unit": cost_unit((config.get("costs") or {}).get("currency")),
         "test_costs": trivial_costs_on_test(run["metrics"], run["choice"]["costs"]),
         "equal_count_bins": equal_count(run["metrics"]["reliability"]),
+        "challenger": run.get("challenger"), "challenger_sentences": _challenger_sentences(run.get("challenger")),
+        "challenger_finding": next(f for f in marks if f["check"] == CHALLENGER_CHECK),
     }
 
 

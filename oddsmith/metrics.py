@@ -228,6 +228,42 @@ def _check_group_count(value: int, name: str) -> None:
         raise OddsmithError(f"{name} must be a positive integer, got {value!r}")
 
 
+#: Expected counts below which the Hosmer–Lemeshow chi-squared approximation is not trusted:
+#: no group's expected events or non-events below 1, and not most (more than half) of the
+#: 2·g expected counts below 5. Common practice, after Hosmer & Lemeshow's guidance on
+#: expected frequencies (Applied Logistic Regression); the exact thresholds are a project choice.
+HL_MIN_EXPECTED = 1.0
+HL_SMALL_EXPECTED = 5.0
+
+
+def hosmer_lemeshow_sample_check(expected_events, n_per_group) -> dict:
+    """Whether the groups hold enough expected events and non-events for the chi-squared p-value.
+
+    The rule (common practice, after Hosmer & Lemeshow): every group's expected events
+    ``E`` and expected non-events ``n − E`` at least 1, and at most half of these ``2·g``
+    expected counts below 5.
+
+    Examples
+    --------
+    >>> hosmer_lemeshow_sample_check([0.4, 1.2, 2.0], [5, 5, 5])["adequate"]
+    False
+    >>> hosmer_lemeshow_sample_check([6.0, 12.0, 20.0], [50, 50, 50])["adequate"]
+    True
+    """
+    events = np.asarray(expected_events, dtype=float)
+    cells = np.concatenate([events, np.asarray(n_per_group, dtype=float) - events])
+    below_min, below_small = int((cells < HL_MIN_EXPECTED).sum()), int((cells < HL_SMALL_EXPECTED).sum())
+    adequate = below_min == 0 and 2 * below_small <= cells.shape[0]
+    rule = (f"every group's expected events and non-events at least {HL_MIN_EXPECTED:g}, and at most half of "
+            f"them below {HL_SMALL_EXPECTED:g} (common practice, after Hosmer & Lemeshow)")
+    note = None if adequate else (
+        f"too few expected events or non-events per group for the chi-squared approximation: {below_min} of "
+        f"{cells.shape[0]} expected counts below {HL_MIN_EXPECTED:g}, {below_small} below {HL_SMALL_EXPECTED:g}; "
+        f"the rule is {rule}")
+    return {"adequate": bool(adequate), "below_1": below_min, "below_5": below_small, "cells": int(cells.shape[0]),
+            "rule": rule, "note": note}
+
+
 def hosmer_lemeshow(y, p, *, groups: int = 10) -> dict:
     """Hosmer–Lemeshow goodness-of-fit test on groups of fitted risk.
 
@@ -245,7 +281,9 @@ def hosmer_lemeshow(y, p, *, groups: int = 10) -> dict:
     -------
     dict
         ``statistic``, ``df``, ``p_value`` (None when fewer than 3 groups remain), ``groups``:
-        a list of ``{n, observed, expected, mean_p, p_min, p_max}``.
+        a list of ``{n, observed, expected, mean_p, p_min, p_max}``, and ``sample_check``
+        (:func:`hosmer_lemeshow_sample_check`): when it is not ``adequate`` the p-value is
+        kept but should not be read as a test.
     """
     from scipy import stats
 
@@ -272,7 +310,8 @@ def hosmer_lemeshow(y, p, *, groups: int = 10) -> dict:
         }
         for i in range(n_g.shape[0])
     ]
-    return {"statistic": statistic, "df": df, "p_value": p_value, "groups": table}
+    return {"statistic": statistic, "df": df, "p_value": p_value, "groups": table,
+            "sample_check": hosmer_lemeshow_sample_check(expected, n_g)}
 
 
 def _rate_interval(events: int, n: int) -> tuple[float, float]:

@@ -82,6 +82,7 @@ rule card:
         metrics="work/{run}/evaluation/metrics.json",
         subgroups="work/{run}/evaluation/subgroups.json",
         figures=expand("work/{{run}}/figures/{figure}.svg", figure=FIGURES),
+        challenger=CHALLENGER_OUTPUTS,
     output:
         html="work/{run}/card/model_card.html",
         pdf="work/{run}/card/model_card.pdf",

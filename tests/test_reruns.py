@@ -24,7 +24,7 @@ from conftest import DEMO_CONFIG, ROOT, run_snakemake
 RUN = "work/lease_demo"  # the staging folder the jobs write
 CANDIDATES = {"logit_main", "probit_main", "cloglog_main", "lasso", "ridge", "logit_compact", "baseline"}
 #: Every rule this matrix knows; a new rule fails the test until its row is added here.
-KNOWN = {"validate", "split", "features", "fit", "compare", "threshold", "evaluate", "apply_cutoff",
+KNOWN = {"validate", "split", "features", "fit", "compare", "challenger", "threshold", "evaluate", "apply_cutoff",
          "model_figures", "figures", "score", "manifest", "card", "publish"}
 #: Rules after apply_cutoff, present or not depending on the workflow and the config.
 TAIL = {"figures", "score", "manifest", "card", "publish"}
@@ -129,6 +129,7 @@ def test_one_candidates_grid_reruns_that_candidate_and_downstream(built, every_j
     assert old in text
     config.write_text(text.replace(old, "{name: lasso, kind: l1, grid: [0.003, 0.01, 0.03, 0.1, 0.3, 1.0, 3.0]}"))
     rerun = _tail(every_job, "fit[lasso]", "compare", "threshold", "evaluate", "apply_cutoff", "model_figures")
+    rerun |= {"challenger"} & every_job  # it reads every candidate's fold metrics and the selection
     assert planned(project, *targets(project), env=env) == rerun
 
 

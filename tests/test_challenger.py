@@ -1,0 +1,219 @@
+"""The flexible challenger: the candidates' own folds, deterministic trees, the gap and its
+interval by hand, its caveat, no pickled model, and the card's challenger paragraph."""
+
+from __future__ import annotations
+
+import json
+import math
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from oddsmith import card, challenger
+from oddsmith.config import check_config
+from oddsmith.errors import ArtifactError, ConfigError
+from oddsmith.stages.fit import cross_validate
+
+ROOT = Path(__file__).resolve().parent.parent
+RUN = Path("results") / "lease_demo"
+SETTINGS = {"enabled": True, "max_iter": 60, "learning_rate": 0.1, "max_leaf_nodes": 15, "seed": 1}
+
+
+def _interaction_data(n=1200, seed=5):
+    """Invented rows whose outcome depends on the sign of x1·x2 only (no main effect):
+    a main-effects logit cannot see it, trees can."""
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=(n, 3))
+    y = (rng.random(n) < np.where(x[:, 0] * x[:, 1] > 0, 0.75, 0.25)).astype(int)
+    return np.ascontiguousarray(x), y
+
+
+def _folds(y, k=4, repeats=1, seed=0):
+    from sklearn.model_selection import StratifiedKFold
+
+    columns = {}
+    for r in range(repeats):
+        fold = np.empty(len(y), dtype=np.int64)
+        split = StratifiedKFold(k, shuffle=True, random_state=seed + r).split(np.zeros(len(y)), y)
+        for i, (_, valid) in enumerate(split):
+            fold[valid] = i
+        columns["fold" if r == 0 else f"fold_r{r + 1}"] = fold
+    return pd.DataFrame(columns)
+
+
+# ---------------------------------------------------------------------------------------------
+# fitting on the given folds
+
+
+def test_trees_use_exactly_the_given_folds_and_are_deterministic():
+    x, y = _interaction_data()
+    folds = _folds(y, k=4, repeats=2)
+    oof, per_fold = challenger.cross_validate_trees(x, y, folds, settings=SETTINGS, threads=1)
+    assert [(f["repeat"], f["fold"]) for f in per_fold] == [(r, k) for r in (1, 2) for k in range(4)]
+    for f in per_fold:
+        column = "fold" if f["repeat"] == 1 else f"fold_r{f['repeat']}"
+        size = int((folds[column] == f["fold"]).sum())
+        assert (f["n"], f["n_train"]) == (size, len(y) - size)
+    assert set(oof) == {"p", "p_r2"} and all(np.isfinite(p).all() for p in oof.values())
+    again, _ = challenger.cross_validate_trees(x, y, folds, settings=SETTINGS, threads=2)
+    for name in oof:
+        assert np.array_equal(oof[name], again[name]), "two runs (1 and 2 threads) give identical predictions"
+
+
+def test_a_fold_prediction_uses_only_the_other_folds():
+    x, y = _interaction_data(n=400)
+    folds = _folds(y, k=4)
+    oof, _ = challenger.cross_validate_trees(x, y, folds, settings=SETTINGS)
+    y_changed = y.copy()
+    first = folds["fold"].to_numpy() == 0
+    y_changed[first] = 1 - y_changed[first]  # labels of fold 0 cannot move fold 0's predictions
+    changed, _ = challenger.cross_validate_trees(x, y_changed, folds, settings=SETTINGS)
+    assert np.array_equal(oof["p"][first], changed["p"][first])
+    assert not np.array_equal(oof["p"][~first], changed["p"][~first])
+
+
+def test_estimator_settings_come_from_the_config_without_early_stopping():
+    assert challenger.estimator_settings(SETTINGS) == {
+        "max_iter": 60, "learning_rate": 0.1, "max_leaf_nodes": 15, "early_stopping": False, "random_state": 1}
+
+
+# ---------------------------------------------------------------------------------------------
+# the gap
+
+
+def _cv(values, metric="log_loss", n=10, n_train=40):
+    return {"folds": [{"repeat": 1, "fold": k, "n": n, "n_train": n_train, metric: v} for k, v in enumerate(values)]}
+
+
+def test_gap_and_its_interval_by_hand():
+    # Fold log losses: selected 0.50, 0.52, 0.48; challenger 0.49, 0.50, 0.47.
+    # Differences selected − challenger: 0.01, 0.02, 0.01; mean 0.013333; sample variance 3.3333e-5;
+    # Nadeau & Bengio factor 1/3 + 10/40 = 0.583333; SE = sqrt(0.583333 · 3.3333e-5) = 0.00440959;
+    # t(2 df, 0.975) = 4.302653 (table value); half-width 0.0189730.
+    gap = challenger.gap_interval(_cv([0.50, 0.52, 0.48]), _cv([0.49, 0.50, 0.47]), "log_loss")
+    assert gap["advantage"] == pytest.approx(0.0133333, abs=1e-7)
+    assert gap["standard_error"] == pytest.approx(0.00440959, abs=1e-8)
+    assert gap["lower"] == pytest.approx(0.0133333 - 0.0189730, abs=1e-6)
+    assert gap["upper"] == pytest.approx(0.0133333 + 0.0189730, abs=1e-6)
+    assert gap["relative"] == pytest.approx(0.0133333 / 0.50, abs=1e-7)
+    assert gap["df"] == 2 and gap["better"] == "lower"
+    assert not challenger.large_gap(gap), "the interval includes 0"
+
+
+def test_auc_gap_counts_higher_as_better():
+    gap = challenger.gap_interval(_cv([0.70, 0.72, 0.71], "auc"), _cv([0.75, 0.76, 0.74], "auc"), "auc")
+    assert gap["advantage"] == pytest.approx(0.04, abs=1e-12)  # mean of 0.05, 0.04, 0.03
+    assert gap["lower"] < gap["advantage"] < gap["upper"]
+
+
+def test_large_gap_needs_an_interval_above_zero_and_more_than_two_percent():
+    assert challenger.large_gap({"lower": 0.001, "relative": 0.021})
+    assert not challenger.large_gap({"lower": 0.001, "relative": 0.019})
+    assert not challenger.large_gap({"lower": -0.001, "relative": 0.10})
+
+
+def test_trees_beat_a_main_effects_logit_on_an_interaction_and_the_gap_is_large():
+    x, y = _interaction_data()
+    folds = _folds(y, k=5)
+    _, logit_folds = cross_validate(x, ["x1", "x2", "x3"], y, folds, kind="logit", options={}, seed=0)
+    _, tree_folds = challenger.cross_validate_trees(x, y, folds, settings=SETTINGS)
+    gap = challenger.gap_interval({"folds": logit_folds}, {"folds": tree_folds}, "log_loss")
+    assert gap["lower"] > 0 and gap["relative"] > 0.1, gap
+    assert challenger.large_gap(gap)
+
+
+def test_gap_sentences_say_which_way_and_turn_the_interval():
+    better = {"metric": "log_loss", "advantage": 0.012, "lower": 0.004, "upper": 0.020, "level": 0.95,
+              "relative": 0.03}
+    worse = {"metric": "auc", "advantage": -0.05, "lower": -0.08, "upper": -0.02, "level": 0.95, "relative": -0.07}
+    assert "log loss is 0.0120 lower" in card.challenger_gap_sentence(better, selected="m")
+    assert "(95% interval 0.0040 to 0.0200" in card.challenger_gap_sentence(better, selected="m")
+    text = card.challenger_gap_sentence(worse, selected="m")
+    assert "AUC is 0.050 lower" in text and "(95% interval 0.020 to 0.080; 7.0%" in text
+    missing = {"metric": "auc", "advantage": None, "note": "AUC undefined on every fold"}
+    assert card.challenger_gap_sentence(missing, selected="m") == "The gap in AUC cannot be stated: AUC undefined on every fold."
+
+
+# ---------------------------------------------------------------------------------------------
+# configuration and no pickle
+
+
+def test_config_fills_challenger_defaults_and_names_bad_values(demo_config, root):
+    assert check_config(demo_config, project_dir=root)["challenger"] == {
+        "enabled": True, "max_iter": 200, "learning_rate": 0.1, "max_leaf_nodes": 31, "seed": 1}
+    demo_config["challenger"] = {"learning_rate": 0, "max_leaf_nodes": 1}
+    with pytest.raises(ConfigError) as info:
+        check_config(demo_config, project_dir=root)
+    assert "challenger.learning_rate" in str(info.value) and "challenger.max_leaf_nodes" in str(info.value)
+
+
+def test_no_pickle_in_the_challenger_code():
+    for path in ("oddsmith/challenger.py", "scripts/challenger.py", "rules/challenger.smk"):
+        text = (ROOT / path).read_text(encoding="utf-8")
+        assert not any(word in text for word in ("import pickle", "joblib", ".pkl", "dump(")), path
+
+
+# ---------------------------------------------------------------------------------------------
+# end to end
+
+
+@pytest.fixture(scope="module")
+def demo_run(demo_build) -> Path:
+    return demo_build / RUN
+
+
+@pytest.mark.e2e
+def test_challenger_used_the_candidates_folds(demo_run):
+    assignment = pd.read_parquet(demo_run / "split/assignment.parquet")
+    train = assignment[assignment["part"] == "train"]
+    oof = pd.read_parquet(demo_run / "challenger/oof.parquet")
+    selected = json.loads((demo_run / "comparison/selected.json").read_text())["candidate"]
+    candidate = pd.read_parquet(demo_run / "candidates" / selected / "oof.parquet")
+    assert (oof["id"].to_numpy() == train["id"].to_numpy()).all()
+    assert (oof["id"].to_numpy() == candidate["id"].to_numpy()).all()
+    cv = json.loads((demo_run / "challenger/cv.json").read_text())
+    cand_cv = json.loads((demo_run / "candidates" / selected / "cv.json").read_text())
+    fold_sizes = train["fold"].value_counts().sort_index().to_dict()
+    assert {f["fold"]: f["n"] for f in cv["folds"]} == fold_sizes
+    assert [(f["repeat"], f["fold"], f["n"], f["n_train"]) for f in cv["folds"]] == [
+        (f["repeat"], f["fold"], f["n"], f["n_train"]) for f in cand_cv["folds"]]
+    assert cv["adoptable"] is False and cv["library_version"]
+    assert cv["gap"]["selected"] == selected
+
+
+@pytest.mark.e2e
+def test_no_pickle_in_the_run_folder(demo_run):
+    for path in demo_run.rglob("*"):
+        if path.is_file():
+            assert path.suffix not in (".pkl", ".pickle", ".joblib"), path
+            assert not path.read_bytes()[:1] == b"\x80", f"{path} starts like a pickle"
+
+
+@pytest.mark.e2e
+def test_stamp_claims_the_challenger_files(demo_run):
+    stamp = json.loads((demo_run / "provenance/challenger.json").read_text())
+    assert sorted(Path(p).name for p in stamp["outputs"]) == ["cv.json", "oof.parquet"]
+    manifest = json.loads((demo_run / "manifest.json").read_text())
+    assert any(p.endswith("challenger/cv.json") for p in manifest["files"])
+
+
+@pytest.mark.e2e
+def test_card_shows_the_challenger_line_and_says_when_it_is_off(demo_run, tmp_path):
+    html = (demo_run / "card/model_card.html").read_text(encoding="utf-8")
+    assert "challenger — not for adoption" in html
+    gap = json.loads((demo_run / "challenger/cv.json").read_text())["gap"]
+    sentence = card.challenger_gap_sentence(gap["log_loss"], selected=gap["selected"])
+    assert sentence.replace("'", "&#39;") in html
+    copy = tmp_path / "lease_demo"
+    shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
+    run = card.load_run(copy)
+    run["config"]["challenger"]["enabled"], run["challenger"] = False, None
+    off = card.render_html(card.build_context(run, release=None))
+    assert "Not run: challenger.enabled is false" in off and "not for adoption" in off
+    (copy / "challenger" / "cv.json").unlink()
+    with pytest.raises(ArtifactError) as info:
+        card.load_run(copy)
+    assert "challenger/cv.json" in str(info.value)
