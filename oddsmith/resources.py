@@ -48,10 +48,12 @@ def schema_file(name: str) -> Path:
 def source_checkout() -> Path | None:
     """The source checkout this package was imported from, or None for an installed package.
 
-    A checkout is the package folder's parent holding ``pyproject.toml`` and both data folders.
+    A checkout is the package folder's parent holding both data folders with their files (a
+    copy of the workflow and package, as ``verify --rebuild`` makes, counts too; an installed
+    package's parent, ``site-packages``, never holds them).
     """
     root = Path(__file__).resolve().parent.parent
-    if (root / "pyproject.toml").is_file() and all((root / folder).is_dir() for folder in PACKAGES):
+    if (root / "reports" / TEMPLATE_ANCHOR).is_file() and (root / "schemas" / "config.schema.yaml").is_file():
         return root
     return None
 
