@@ -19,6 +19,8 @@ from oddsmith.io import read_yaml
 from oddsmith.resources import schema_file
 
 SCHEMA_PATH = schema_file("config.schema.yaml")
+#: The schema read here (in the code fingerprint of every rule that runs this module).
+RESOURCE_FILES = ("schemas/config.schema.yaml",)
 PENALISED_KINDS = ("l1", "l2", "elastic_net")
 
 

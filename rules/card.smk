@@ -2,8 +2,6 @@
 # Order: evaluate → model_figures; apply_cutoff → figures; then manifest → card (the card
 # prints the manifest's SHA-256). The figures are split by what they depend on, so that a
 # change of costs redraws only the four that show the cut-off.
-from glob import glob
-
 MODEL_FIGURES = ["reliability", "coefficients"]
 DECISION_FIGURES = ["roc", "cost_curve", "score_distribution", "subgroups"]
 FIGURES = DECISION_FIGURES + MODEL_FIGURES
@@ -32,7 +30,7 @@ rule model_figures:
     params:
         candidates=CANDIDATES,
         figures=MODEL_FIGURES,
-        code=code("stages/figures", "plots", script="scripts/model_figures.py"),
+        code=code(script="scripts/model_figures.py"),
     script:
         "../scripts/model_figures.py"
 
@@ -61,7 +59,7 @@ rule figures:
     params:
         figures=DECISION_FIGURES,
         currency=CONFIG["costs"]["currency"],
-        code=code("stages/figures", "plots", script="scripts/figures.py"),
+        code=code(script="scripts/figures.py"),
     script:
         "../scripts/figures.py"
 
@@ -95,9 +93,6 @@ rule card:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
     params:
-        code=code("stages/card", "card", "plots", "resources", script="scripts/card.py"),
-        templates=code_fingerprint(
-            (), extra_files=sorted(glob("reports/*.j2") + glob("reports/*.css"))
-        ),
+        code=code(script="scripts/card.py"),
     script:
         "../scripts/card.py"

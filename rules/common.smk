@@ -8,7 +8,7 @@ from oddsmith.config import check_config, read_config_file
 from oddsmith.errors import ConfigError
 from oddsmith.manifest import build_info, environment, source_date_epoch
 from oddsmith.publish import current_result_note
-from oddsmith.runner import code_fingerprint, params_hash
+from oddsmith.runner import params_hash, script_fingerprint
 
 CHOOSE_CONFIG = """a build reads exactly one configuration file, complete on its own (the schema's
 defaults fill in the keys it leaves out). Name it:
@@ -67,10 +67,11 @@ def fit_priority(name):
     return FIT_PRIORITY.get(candidate_settings(name)["kind"], 0)
 
 
-def code(*modules, script):
-    """Fingerprint of the package modules a rule runs plus its script (principle 1)."""
-    base = ("runner", "io", "errors")
-    return code_fingerprint(base + modules, extra_files=[script])
+def code(*, script):
+    """Code fingerprint of a rule (principle 1): its script, the package modules the script
+    imports (transitively, read with ast) and the resource files those modules name in
+    RESOURCE_FILES. Each file is read once per invocation."""
+    return script_fingerprint(script)
 
 
 # Build facts for the manifest, computed once per invocation.

@@ -19,13 +19,7 @@ rule threshold:
     params:
         candidates=CANDIDATES,
         costs=CONFIG["costs"],
-        code=code(
-            "stages/threshold",
-            "threshold",
-            "metrics",
-            "solvers",
-            script="scripts/threshold.py",
-        ),
+        code=code(script="scripts/threshold.py"),
     script:
         "../scripts/threshold.py"
 
@@ -61,17 +55,7 @@ rule evaluate:
         feature_names=[f["name"] for f in CONFIG["features"]],
         evaluation=CONFIG["evaluation"],
         split_method=CONFIG["split"]["method"],
-        code=code(
-            "stages/evaluate",
-            "metrics",
-            "fairness",
-            "predict",
-            "models",
-            "recipe",
-            "solvers",
-            "threshold",
-            script="scripts/evaluate.py",
-        ),
+        code=code(script="scripts/evaluate.py"),
     script:
         "../scripts/evaluate.py"
 
@@ -95,13 +79,6 @@ rule apply_cutoff:
         mem_mb=RES["mem_mb"],
         runtime=RES["runtime"],
     params:
-        code=code(
-            "stages/apply_cutoff",
-            "fairness",
-            "threshold",
-            "metrics",
-            "solvers",
-            script="scripts/apply_cutoff.py",
-        ),
+        code=code(script="scripts/apply_cutoff.py"),
     script:
         "../scripts/apply_cutoff.py"

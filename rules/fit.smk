@@ -22,15 +22,7 @@ rule fit:
         data={k: CONFIG["data"][k] for k in ("id_column", "target")},
         seed=CONFIG["cross_validation"]["seed"],
         inference=CONFIG["inference"],
-        code=code(
-            "stages/fit",
-            "models",
-            "solvers",
-            "metrics",
-            "recipe",
-            "split",
-            script="scripts/fit.py",
-        ),
+        code=code(script="scripts/fit.py"),
     script:
         "../scripts/fit.py"
 
@@ -59,12 +51,6 @@ rule compare:
     params:
         candidates=CANDIDATES,
         selection=CONFIG["selection"],
-        code=code(
-            "stages/compare",
-            "selection",
-            "metrics",
-            "solvers",
-            script="scripts/compare.py",
-        ),
+        code=code(script="scripts/compare.py"),
     script:
         "../scripts/compare.py"

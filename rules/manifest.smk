@@ -20,6 +20,6 @@ rule manifest:
         build=BUILD,
         environment=ENVIRONMENT,
         card_rule=lambda wildcards: rule_fingerprint("card"),
-        code=code("stages/manifest", "manifest", script="scripts/manifest.py"),
+        code=code(script="scripts/manifest.py"),
     script:
         "../scripts/manifest.py"

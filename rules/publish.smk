@@ -26,12 +26,6 @@ rule publish:
         runtime=RES["runtime"],
     params:
         pending=PUBLISH_PENDING,
-        code=code(
-            "stages/publish",
-            "publish",
-            "verify",
-            "manifest",
-            script="scripts/publish.py",
-        ),
+        code=code(script="scripts/publish.py"),
     script:
         "../scripts/publish.py"

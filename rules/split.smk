@@ -18,7 +18,7 @@ rule split:
         data={k: CONFIG["data"][k] for k in ("id_column", "target", "date_column")},
         split=CONFIG["split"],
         cross_validation=CONFIG["cross_validation"],
-        code=code("stages/split", "split", script="scripts/split.py"),
+        code=code(script="scripts/split.py"),
     script:
         "../scripts/split.py"
 
@@ -51,8 +51,6 @@ rule features:
         target=CONFIG["data"]["target"],
         id_column=CONFIG["data"]["id_column"],
         diagnostics=CONFIG["diagnostics"],
-        code=code(
-            "stages/features", "recipe", "diagnostics", script="scripts/features.py"
-        ),
+        code=code(script="scripts/features.py"),
     script:
         "../scripts/features.py"

@@ -37,12 +37,6 @@ rule validate:
             if CONFIG["inference"]["cluster_column"]
             else {}
         ),
-        code=code(
-            "validate",
-            "contract",
-            "config",
-            "split",
-            script="scripts/validate.py",
-        ),
+        code=code(script="scripts/validate.py"),
     script:
         "../scripts/validate.py"
