@@ -11,10 +11,6 @@ rule manifest:
         "logs/{run}/manifest.log",
     benchmark:
         "benchmarks/{run}/manifest.tsv"
-    threads: RES["threads"]
-    resources:
-        mem_mb=RES["mem_mb"],
-        runtime=RES["runtime"],
     params:
         config=CONFIG,
         build=BUILD,

@@ -20,10 +20,6 @@ rule publish:
     benchmark:
         "benchmarks/{run}/publish.tsv"
     localrule: True
-    threads: RES["threads"]
-    resources:
-        mem_mb=RES["mem_mb"],
-        runtime=RES["runtime"],
     params:
         pending=PUBLISH_PENDING,
         code=code(script="scripts/publish.py"),

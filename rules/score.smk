@@ -43,10 +43,6 @@ if SCORING["data"]:
             "logs/{run}/score.log",
         benchmark:
             "benchmarks/{run}/score.tsv"
-        threads: RES["threads"]
-        resources:
-            mem_mb=RES["mem_mb"],
-            runtime=RES["runtime"],
         params:
             candidates=CANDIDATES,
             batch=SCORING_FILES["batch"],
