@@ -50,10 +50,10 @@ import scipy.special
 
 from oddsmith import solvers
 from oddsmith.errors import ArtifactError, FitError, SeparationWarning
+from oddsmith.settings import PENALISED_KINDS, candidate_defaults
 
 KINDS = ("baseline", "logit", "probit", "cloglog", "l1", "l2", "elastic_net")
 ML_KINDS = ("logit", "probit", "cloglog")
-PENALISED_KINDS = ("l1", "l2", "elastic_net")
 LINKS = ("logit", "probit", "cloglog")
 MODEL_FORMAT = "oddsmith-model/1"
 INTERCEPT_TERM = "intercept"
@@ -63,9 +63,7 @@ SOLVER = "proximal Newton (oddsmith.solvers)"
 # Common practice: the default grid of scikit-learn's LogisticRegressionCV (Cs=10),
 # ten inverse strengths C log-spaced from 1e-4 to 1e4.
 DEFAULT_GRID = tuple(float(c) for c in np.logspace(-4, 4, 10))
-DEFAULT_INNER_FOLDS = 3
-DEFAULT_L1_RATIO = 0.5
-DEFAULT_MAX_ITER = {"ml": 100, "penalised": 1000}
+# The other defaults are the configuration schema's (oddsmith.settings.candidate_defaults).
 
 _OPTION_KEYS = {
     "baseline": set(),
@@ -485,18 +483,17 @@ def _settings(kind: str, options: dict | None, *, seed: int, outcome: np.ndarray
                          f"valid: {sorted(_OPTION_KEYS[kind])}")
     if kind == "baseline":
         return {}
-    family = "ml" if kind in ML_KINDS else "penalised"
-    settings = {"max_iter": _positive_int("max_iter",
-                                          options.get("max_iter", DEFAULT_MAX_ITER[family]))}
-    if family == "ml":
+    defaults = candidate_defaults()
+    settings = {"max_iter": _positive_int("max_iter", options.get("max_iter", defaults["max_iter"]))}
+    if kind in ML_KINDS:
         return settings
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
         raise ValueError(f"seed must be a non-negative int, got {seed!r}")
     settings["seed"] = int(seed)
     settings["grid"] = _grid(options.get("grid", DEFAULT_GRID))
-    settings["inner_folds"] = _inner_folds(options.get("inner_folds", DEFAULT_INNER_FOLDS),
+    settings["inner_folds"] = _inner_folds(options.get("inner_folds", defaults["inner_folds"]),
                                            outcome)
-    settings["l1_ratio"] = _l1_ratio(kind, options.get("l1_ratio", DEFAULT_L1_RATIO))
+    settings["l1_ratio"] = _l1_ratio(kind, options.get("l1_ratio", defaults["l1_ratio"]))
     return settings
 
 
