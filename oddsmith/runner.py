@@ -17,7 +17,7 @@ import os
 import sys
 from pathlib import Path
 
-from oddsmith.errors import OddsmithError
+from oddsmith.errors import ArgumentError, OddsmithError
 from oddsmith.io import canonical_json, sha256_file, write_json
 
 LOG_FORMAT = "%(levelname)s %(name)s: %(message)s"
@@ -165,7 +165,7 @@ def _resource_files(tree: ast.Module, path: Path) -> tuple[str, ...]:
         if any(isinstance(t, ast.Name) and t.id == RESOURCE_CONSTANT for t in targets):
             value = ast.literal_eval(node.value)
             if not isinstance(value, (tuple, list)) or not all(isinstance(v, str) for v in value):
-                raise TypeError(f"{path}: {RESOURCE_CONSTANT} must be a tuple of paths, found {value!r}")
+                raise ArgumentError(f"{path}: {RESOURCE_CONSTANT} must be a tuple of paths, found {value!r}")
             return tuple(value)
     return ()
 

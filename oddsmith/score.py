@@ -59,7 +59,7 @@ import pyarrow as pa
 import pyarrow.csv as pa_csv
 
 from oddsmith.contract import CONTRACT_FORMAT, read_raw, validate_frame
-from oddsmith.errors import ArtifactError, ContractError
+from oddsmith.errors import ArgumentError, ArtifactError, ContractError
 from oddsmith.io import read_json, read_parquet, read_yaml, sha256_file
 from oddsmith.models import MODEL_FORMAT, inverse_link, linear_predictor
 from oddsmith.predict import model_design
@@ -199,7 +199,7 @@ def check_batch(sm: ScoringModel, raw: pd.DataFrame, *, extra_columns: str = "re
         Listing every problem found.
     """
     if extra_columns not in EXTRA_COLUMN_POLICIES:
-        raise ValueError(f"extra_columns must be one of {EXTRA_COLUMN_POLICIES}, got {extra_columns!r}")
+        raise ArgumentError(f"extra_columns must be one of {EXTRA_COLUMN_POLICIES}, got {extra_columns!r}")
     if len(raw) == 0:
         raise ContractError(f"{source}: the batch has 0 rows; nothing to score")
     declared = sm.contract["columns"]
@@ -297,7 +297,7 @@ def reason_reference(sm: ScoringModel, method: str = "training_mean") -> dict:
     minimum occurs.
     """
     if method not in REFERENCES:
-        raise ValueError(f"reference must be one of {REFERENCES}, got {method!r}")
+        raise ArgumentError(f"reference must be one of {REFERENCES}, got {method!r}")
     names, W = feature_weights(sm.recipe, sm.model["design_columns"])
     beta = _coefficients(sm)
     out = {"method": method, "features": names}
@@ -363,7 +363,7 @@ def top_reasons(contrib: np.ndarray, names: list[str], *, top_k: int) -> tuple[n
 def _top_reason_codes(contrib: np.ndarray, *, top_k: int) -> tuple[np.ndarray, np.ndarray]:
     """Feature index (-1: no reason) and contribution of each row's top_k reasons."""
     if top_k < 1:
-        raise ValueError(f"top_k must be >= 1, got {top_k}")
+        raise ArgumentError(f"top_k must be >= 1, got {top_k}")
     n_rows, width = contrib.shape
     k = min(top_k, width)
     order = np.argsort(-contrib, axis=1, kind="stable")[:, :k]

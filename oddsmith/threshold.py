@@ -16,7 +16,7 @@ import pandas as pd
 
 from oddsmith.errors import CostError, OddsmithError
 from oddsmith.settings import COST_KEYS, constrained_problem
-from oddsmith.metrics import _validated
+from oddsmith.metrics import outcomes_and_probabilities
 
 _ADOPT = ("empirical", "bayes", "constrained")
 _BOOTSTRAP_LEVEL = 0.95
@@ -143,7 +143,7 @@ def cost_curve(y, p, *, costs) -> pd.DataFrame:
         (specificity) is NaN when there are no positives (negatives).
     """
     costs = _resolve_costs(costs)
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     cutoffs, flagged, tp = _curve_counts(y, p)
     n, events = y.shape[0], int(y.sum())
     fp = flagged - tp
@@ -195,7 +195,7 @@ def confusion_at(y, p, cutoff) -> dict:
         ``cutoff``, ``n``, ``tp``, ``fp``, ``tn``, ``fn``, ``sensitivity``, ``specificity``,
         ``ppv``, ``npv``, ``flag_rate``. A rate whose denominator is 0 is None.
     """
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     flag = _flag_mask(p, cutoff)
     tp = int(np.sum(flag & (y == 1)))
     fp = int(np.sum(flag & (y == 0)))
@@ -602,7 +602,7 @@ def choose_cutoff(
         Bad costs or options, or constraints no cut-off can meet (with the closest values).
     """
     costs = _resolve_costs(costs)
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     _check_choice_options(y, adopt, bootstrap, seed, max_flag_rate, min_sensitivity)
     n, events = int(y.shape[0]), int(y.sum())
     curve = _curve_dict(y, p, costs)
