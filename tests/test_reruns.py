@@ -19,7 +19,7 @@ import pandas as pd
 import pytest
 
 from conftest import DEMO_CONFIG, ROOT, run_snakemake
-from oddsmith.runner import clear_code_cache, code_closure, script_fingerprint
+from oddsmith.runner import clear_code_cache, code_closure, import_statements, script_fingerprint
 
 RUN = "work/lease_demo"  # the staging folder the jobs write
 CANDIDATES = {"logit_main", "probit_main", "cloglog_main", "lasso", "ridge", "logit_compact", "baseline"}
@@ -248,10 +248,25 @@ def _changed_by(project: Path, path: str) -> set[str]:
     ("reports/macros.html.j2", {"card"}),
     ("reports/model_card.css", {"card", "score"}),
     ("reports/drift.html.j2", {"score"}),
+    # the candidate defaults and the cost vocabulary are read from the schema (oddsmith.settings)
+    ("schemas/config.schema.yaml", {"fit", "threshold", "evaluate", "apply_cutoff", "score"}),
     ("scripts/split.py", {"split"}),
 ])
 def test_an_edit_changes_exactly_the_fingerprints_of_the_rules_that_run_it(project_copy, path, rules):
     assert _changed_by(project_copy, path) == rules
+
+
+def test_the_statement_scan_finds_the_imports_a_full_parse_finds():
+    """The walk parses only the lines that start an import (for speed): on every file of the
+    package and every script it finds exactly the import statements of a full parse."""
+    import ast
+
+    def dumps(nodes):
+        return sorted(ast.dump(n) for n in nodes if isinstance(n, (ast.Import, ast.ImportFrom)))
+
+    for path in sorted([*(ROOT / "oddsmith").rglob("*.py"), *(ROOT / "scripts").glob("*.py")]):
+        source = path.read_text(encoding="utf-8")
+        assert dumps(import_statements(source)) == dumps(ast.walk(ast.parse(source))), path
 
 
 def test_every_rule_fingerprints_the_script_it_runs():
