@@ -78,6 +78,9 @@ def _copy(built: Path, dest: Path, *, with_package: bool = False) -> tuple[Path,
     env = {}
     if with_package:
         shutil.copytree(ROOT / "oddsmith", dest / "oddsmith", ignore=shutil.ignore_patterns("__pycache__"))
+        # with pyproject.toml the copy is a source checkout: the package finds the copy's
+        # schemas/ and reports/ (oddsmith.resources), not the data packages of an install
+        shutil.copy2(ROOT / "pyproject.toml", dest / "pyproject.toml")
         env = {"PYTHONPATH": str(dest)}
         found = subprocess.run([sys.executable, "-c", "import oddsmith; print(oddsmith.__file__)"], cwd=dest / "config",
                                env={"PYTHONPATH": str(dest)}, capture_output=True, text=True).stdout.strip()
