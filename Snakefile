@@ -15,9 +15,14 @@ STARTED = time.time()
 include: "rules/common.smk"
 include: "rules/validate.smk"
 include: "rules/split.smk"
+include: "rules/features.smk"
 include: "rules/fit.smk"
-include: "rules/decide.smk"
+include: "rules/compare.smk"
 include: "rules/challenger.smk"
+include: "rules/threshold.smk"
+include: "rules/evaluate.smk"
+include: "rules/apply_cutoff.smk"
+include: "rules/figures.smk"
 include: "rules/score.smk"
 include: "rules/manifest.smk"
 include: "rules/card.smk"
@@ -27,6 +32,11 @@ include: "rules/publish.smk"
 rule all:
     input:
         f"work/{RUN}.published",
+
+
+# Threads, memory and run time of every job from the config's `resources` section (after
+# every rule is defined; --set-threads and --set-resources still win).
+apply_job_resources()
 
 
 onsuccess:

@@ -640,13 +640,13 @@ def trivial_costs_on_test(metrics: dict, costs: dict) -> dict:
 
     Examples
     --------
-    >>> trivial_costs_on_test({"n": 10, "events": 2}, {"cost_fp": 1.0, "cost_fn": 5.0, "cost_tp": 0.0, "cost_tn": 0.0})
+    >>> trivial_costs_on_test({"n": 10, "events": 2}, {"false_positive": 1.0, "false_negative": 5.0, "true_positive": 0.0, "true_negative": 0.0})
     {'flag_none': 1000.0, 'flag_all': 800.0}
     """
     n, events = metrics["n"], metrics["events"]
     non_events = n - events
-    none = events * costs["cost_fn"] + non_events * costs["cost_tn"]
-    every = events * costs["cost_tp"] + non_events * costs["cost_fp"]
+    none = events * costs["false_negative"] + non_events * costs["true_negative"]
+    every = events * costs["true_positive"] + non_events * costs["false_positive"]
     return {"flag_none": 1000.0 * none / n, "flag_all": 1000.0 * every / n}
 
 

@@ -113,7 +113,7 @@ _REGISTRARS += [_verify.register, _release.register, _diff.register]
 
 
 def _register_scoring(sub) -> None:
-    from oddsmith.stages.score import register_commands
+    from oddsmith.stages.score_commands import register_commands
 
     register_commands(sub)
 

@@ -17,9 +17,11 @@ import yaml
 from oddsmith.errors import ConfigError, quoted
 from oddsmith.io import read_yaml
 from oddsmith.resources import schema_file
+from oddsmith.settings import PENALISED_KINDS, candidate_defaults, constrained_problem, normalised_costs
 
 SCHEMA_PATH = schema_file("config.schema.yaml")
-PENALISED_KINDS = ("l1", "l2", "elastic_net")
+#: The schema read here (in the code fingerprint of every rule that runs this module).
+RESOURCE_FILES = ("schemas/config.schema.yaml",)
 
 
 def _with_defaults(validator_class):
@@ -52,7 +54,13 @@ def read_config_file(path: str | Path) -> dict:
 
 
 def check_config(raw: dict, *, project_dir: str | Path = ".") -> dict:
-    """Validate a configuration and return a copy with every default filled in.
+    """Validate a configuration and return a copy with every default filled in, normalised.
+
+    Normalised once here, so no stage checks or converts a setting again: the ``costs``
+    section holds the four costs under their configuration names whichever form the file
+    used (:func:`oddsmith.settings.normalised_costs`), sensitive attributes are plain names
+    (with ``bands``/``blank_groups`` beside them), and the intercept-only baseline is a
+    candidate with the schema's defaults.
 
     Parameters
     ----------
@@ -77,6 +85,7 @@ def check_config(raw: dict, *, project_dir: str | Path = ".") -> dict:
     if problems:
         raise ConfigError(f"the configuration has {len(problems)} problem(s)", problems)
     _add_baseline(config)
+    config["costs"] = normalised_costs(config["costs"])
     return config
 
 
@@ -228,8 +237,9 @@ def _cost_problems(costs: dict) -> list[str]:
         value = costs.get(key)
         if value is not None and not 0 < value <= 1:
             problems.append(f"costs.{key}: must lie in (0, 1], got {value}")
-    if costs["adopt"] == "constrained" and costs["max_flag_rate"] is None and costs["min_sensitivity"] is None:
-        problems.append("costs.adopt: 'constrained' needs max_flag_rate or min_sensitivity")
+    problem = constrained_problem(costs["adopt"], costs["max_flag_rate"], costs["min_sensitivity"])
+    if problem:
+        problems.append(f"costs.{problem}")
     return problems
 
 
@@ -249,7 +259,7 @@ def _path_problems(data: dict, project_dir: Path) -> list[str]:
 
 def _add_baseline(config: dict) -> None:
     config["candidates"] = [c for c in config["candidates"]] + [
-        {"name": "baseline", "kind": "baseline", "inner_folds": 3, "l1_ratio": 0.5, "max_iter": 200}
+        {"name": "baseline", "kind": "baseline"} | candidate_defaults()
     ]
 
 

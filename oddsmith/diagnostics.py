@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from oddsmith.errors import EventsPerVariableWarning
+from oddsmith.errors import ArgumentError, EventsPerVariableWarning
 
 # Peduzzi et al., J. Clinical Epidemiology 49 (1996).
 MIN_EVENTS_PER_PARAMETER = 10
@@ -97,10 +97,10 @@ def design_diagnostics(
 def _outcome(y_train, n_rows: int) -> np.ndarray:
     y = np.asarray(y_train)
     if y.shape != (n_rows,):
-        raise ValueError(f"y_train must have one value per design row ({n_rows}), got shape {y.shape}")
+        raise ArgumentError(f"y_train must have one value per design row ({n_rows}), got shape {y.shape}")
     bad = ~np.isin(y.astype(float), (0.0, 1.0))
     if bad.any():
-        raise ValueError(f"y_train must hold 0/1 values, got {sorted(set(y[bad].tolist()))[:5]} at rows {np.flatnonzero(bad)[:5].tolist()}")
+        raise ArgumentError(f"y_train must hold 0/1 values, got {sorted(set(y[bad].tolist()))[:5]} at rows {np.flatnonzero(bad)[:5].tolist()}")
     return y.astype(np.int64)
 
 
@@ -110,7 +110,7 @@ def _design_values(X: pd.DataFrame) -> np.ndarray:
     finite = np.array([np.isfinite(values[:, j]).all() for j in range(values.shape[1])], dtype=bool)
     if not finite.all():
         columns = [str(c) for c in X.columns[~finite]]
-        raise ValueError(f"design matrix has non-finite values in columns {columns[:5]}")
+        raise ArgumentError(f"design matrix has non-finite values in columns {columns[:5]}")
     return values
 
 
@@ -208,7 +208,7 @@ def leakage_screen(raw: pd.DataFrame | None, y, features: list | None, threshold
     if raw is None:
         return result
     if len(raw) != len(y):
-        raise ValueError(f"raw_train must have one row per design row ({len(y)}), got {len(raw)}")
+        raise ArgumentError(f"raw_train must have one row per design row ({len(y)}), got {len(raw)}")
     for name, kind in _feature_kinds(raw, features):
         auc, n_used = _single_feature_auc(raw[name], y, kind)
         result["features"].append({"feature": name, "type": kind, "auc": auc, "n_used": n_used})

@@ -29,7 +29,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from oddsmith.errors import OddsmithError
+from oddsmith.errors import ArgumentError, OddsmithError
 
 EMPTY_BIN_POLICY = "add 0.5 to the count of every bin in both samples before taking shares"
 PSEUDO_COUNT = 0.5
@@ -51,9 +51,9 @@ def psi_from_shares(expected, actual) -> float:
     """
     e, a = np.asarray(expected, dtype=np.float64), np.asarray(actual, dtype=np.float64)
     if e.shape != a.shape or e.ndim != 1 or e.size == 0:
-        raise ValueError(f"expected and actual must be 1-d of equal length, got {e.shape} and {a.shape}")
+        raise ArgumentError(f"expected and actual must be 1-d of equal length, got {e.shape} and {a.shape}")
     if (e <= 0).any() or (a <= 0).any():
-        raise ValueError("shares must all be > 0 (apply the empty-bin policy first)")
+        raise ArgumentError("shares must all be > 0 (apply the empty-bin policy first)")
     return float(np.sum((a - e) * np.log(a / e)))
 
 
@@ -73,9 +73,9 @@ def psi(expected_counts, actual_counts) -> float:
     """
     e, a = np.asarray(expected_counts), np.asarray(actual_counts)
     if e.shape != a.shape:
-        raise ValueError(f"count vectors differ in length: {e.shape} vs {a.shape}")
+        raise ArgumentError(f"count vectors differ in length: {e.shape} vs {a.shape}")
     if (e < 0).any() or (a < 0).any():
-        raise ValueError("counts must be >= 0")
+        raise ArgumentError("counts must be >= 0")
     return psi_from_shares(shares(e), shares(a))
 
 

@@ -55,6 +55,16 @@ class ArtifactError(OddsmithError):
     """A required artifact is missing or malformed."""
 
 
+class InitError(OddsmithError):
+    """``oddsmith init`` cannot draft as asked (unknown column, unusable target or level)."""
+
+
+class ArgumentError(OddsmithError, ValueError):
+    """An argument of a package function is not usable as given (its type, shape, values or a
+    setting): the message names the argument, what was expected and what was found. Also a
+    ValueError, for callers of the library functions that catch that."""
+
+
 class SeparationWarning(UserWarning):
     """Complete or quasi-complete separation was detected in a maximum-likelihood fit."""
 

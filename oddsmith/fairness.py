@@ -291,7 +291,7 @@ def group_summaries(y, p, groups, *, min_group_size: int = 100, attribute: str |
     OddsmithError
         If the attribute has a single group, has missing values, or an option is invalid.
     """
-    y, p = metrics._validated(y, p)
+    y, p = metrics.outcomes_and_probabilities(y, p)
     _check_min_group_size(min_group_size)
     labels, attribute = _labels_of(groups, y.shape[0], attribute)
     distinct = sorted(set(labels.tolist()))
@@ -325,7 +325,7 @@ def add_decisions(
     OddsmithError
         On a bad option or summaries that do not match the rows.
     """
-    y, p = metrics._validated(y, p)
+    y, p = metrics.outcomes_and_probabilities(y, p)
     _check_cutoff(cutoff)
     _check_favourable(favourable)
     labels, attribute = _labels_of(groups, y.shape[0], attribute)

@@ -28,7 +28,7 @@ import pandas as pd
 import yaml
 
 from oddsmith.contract import read_raw
-from oddsmith.errors import OddsmithError
+from oddsmith.errors import InitError
 from oddsmith.io import write_text
 
 MAX_LEVELS = 30
@@ -82,10 +82,6 @@ AGE_QUALIFIERS = {"age", "ages", "applicant", "borrower", "customer", "client", 
                   "primary", "head", "of"}
 ID_NAMES = {"id", "ids", "rownames", "rowname", "row", "index", "idx", "key", "uuid", "guid", "rowid"}
 ID_LAST_TOKENS = {"id", "ids", "uuid", "guid", "key", "number", "nr", "no"}
-
-
-class InitError(OddsmithError):
-    """``oddsmith init`` cannot draft as asked (unknown column, unusable target or level)."""
 
 
 @dataclass

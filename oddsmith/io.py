@@ -18,7 +18,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import yaml
 
-from oddsmith.errors import ArtifactError
+from oddsmith.errors import ArgumentError, ArtifactError
 
 
 def sha256_file(path: str | Path, *, chunk: int = 1 << 20) -> str:
@@ -114,7 +114,7 @@ def write_parquet_chunks(path: str | Path, frames) -> None:
                 writer = pq.ParquetWriter(tmp, table.schema, compression="zstd", write_statistics=True)
             writer.write_table(table)
         if writer is None:
-            raise ValueError(f"no data to write to {path}")
+            raise ArgumentError(f"no data to write to {path}")
         writer.close()
         os.replace(tmp, path)
     except BaseException:
@@ -144,7 +144,7 @@ def read_parquet(path: str | Path, columns=None, rows=None):
         raise ArtifactError(f"{path} has no columns {missing}")
     mask = None if rows is None else pa.array(rows, type=pa.bool_())
     if mask is not None and len(mask) != parquet.metadata.num_rows:
-        raise ValueError(f"rows has {len(mask)} values, {path} has {parquet.metadata.num_rows} rows")
+        raise ArgumentError(f"rows has {len(mask)} values, {path} has {parquet.metadata.num_rows} rows")
     pieces = {}
     for name in names:
         table = parquet.read(columns=[name])

@@ -27,8 +27,11 @@ _EPS = 1e-15
 # input checks
 
 
-def _validated(y, p) -> tuple[np.ndarray, np.ndarray]:
+def outcomes_and_probabilities(y, p) -> tuple[np.ndarray, np.ndarray]:
     """Return ``y`` as an int array of 0/1 and ``p`` as a float array in [0, 1].
+
+    The one check of outcomes and predicted probabilities that the metrics, the cut-off
+    (:mod:`oddsmith.threshold`) and the subgroup measures (:mod:`oddsmith.fairness`) apply.
 
     Raises
     ------
@@ -91,7 +94,7 @@ def auc(y, p) -> float:
     """
     from sklearn import metrics as skm
 
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     _require_both_classes(y, "AUC")
     return float(skm.roc_auc_score(y, p))
 
@@ -110,7 +113,7 @@ def ks(y, p) -> float:
     """
     from sklearn import metrics as skm
 
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     _require_both_classes(y, "KS")
     fpr, tpr, _ = skm.roc_curve(y, p, drop_intermediate=False)
     return float(np.max(tpr - fpr))
@@ -120,7 +123,7 @@ def log_loss(y, p) -> float:
     """Mean negative log-likelihood of the outcomes under ``p`` (natural log)."""
     from sklearn import metrics as skm
 
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     return float(skm.log_loss(y, np.clip(p, _EPS, 1.0 - _EPS), labels=[0, 1]))
 
 
@@ -128,7 +131,7 @@ def brier(y, p) -> float:
     """Brier score, the mean of ``(p - y) ** 2``."""
     from sklearn import metrics as skm
 
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     return float(skm.brier_score_loss(y, p, labels=[0, 1]))
 
 
@@ -197,7 +200,7 @@ def calibration_intercept_slope(y, p) -> dict:
     OddsmithError
         If ``y`` has a single class, ``p`` has a single distinct value, or the fit separates.
     """
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     _require_both_classes(y, "calibration")
     lp = _logit(p)
     if np.ptp(lp) == 0.0:
@@ -287,7 +290,7 @@ def hosmer_lemeshow(y, p, *, groups: int = 10) -> dict:
     """
     from scipy import stats
 
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     _check_group_count(groups, "groups")
     order = np.argsort(p, kind="stable")
     p_raw, y_sorted = p[order], y[order]
@@ -344,7 +347,7 @@ def reliability_bins(y, p, *, bins: int = 10) -> list[dict]:
         ``lower``, ``upper``, ``n``, ``events``, ``mean_predicted``, ``observed_rate``,
         ``ci_low``, ``ci_high``, in increasing order of ``p``.
     """
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     _check_group_count(bins, "bins")
     order = np.argsort(p, kind="stable")
     p_sorted, y_sorted = p[order], y[order]
@@ -400,7 +403,7 @@ def _delong(y: np.ndarray, scores: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 def delong_auc_variance(y, p) -> float:
     """DeLong, DeLong & Clarke-Pearson (1988) variance of the empirical AUC."""
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     _, covariance = _delong(y, p[np.newaxis, :])
     return float(covariance[0, 0])
 
@@ -419,7 +422,7 @@ def auc_confidence_interval(y, p, *, level: float = 0.95) -> dict:
 
     if not (isinstance(level, float) and 0.0 < level < 1.0):
         raise OddsmithError(f"level must be a float strictly between 0 and 1, got {level!r}")
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     aucs, covariance = _delong(y, p[np.newaxis, :])
     se = math.sqrt(covariance[0, 0])
     z = float(stats.norm.ppf(0.5 + level / 2.0))
@@ -445,8 +448,8 @@ def delong_test(y, p_a, p_b) -> dict:
     """
     from scipy import stats
 
-    y, p_a = _validated(y, p_a)
-    _, p_b = _validated(y, p_b)
+    y, p_a = outcomes_and_probabilities(y, p_a)
+    _, p_b = outcomes_and_probabilities(y, p_b)
     aucs, covariance = _delong(y, np.vstack([p_a, p_b]))
     contrast = np.array([1.0, -1.0])
     variance = float(contrast @ covariance @ contrast)
@@ -524,7 +527,7 @@ def summarise(y, p) -> dict:
         ``calibration_intercept``, ``calibration_slope``, ``hl_statistic``, ``hl_p_value``,
         ``notes``.
     """
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     notes: list[str] = []
     auc_value = _guarded(lambda: auc(y, p), notes, "auc")
     ks_value = _guarded(lambda: ks(y, p), notes, "ks") if auc_value is not None else None

@@ -49,11 +49,11 @@ import scipy.linalg
 import scipy.special
 
 from oddsmith import solvers
-from oddsmith.errors import ArtifactError, FitError, SeparationWarning
+from oddsmith.errors import ArgumentError, ArtifactError, FitError, SeparationWarning
+from oddsmith.settings import PENALISED_KINDS, candidate_defaults
 
 KINDS = ("baseline", "logit", "probit", "cloglog", "l1", "l2", "elastic_net")
 ML_KINDS = ("logit", "probit", "cloglog")
-PENALISED_KINDS = ("l1", "l2", "elastic_net")
 LINKS = ("logit", "probit", "cloglog")
 MODEL_FORMAT = "oddsmith-model/1"
 INTERCEPT_TERM = "intercept"
@@ -63,9 +63,7 @@ SOLVER = "proximal Newton (oddsmith.solvers)"
 # Common practice: the default grid of scikit-learn's LogisticRegressionCV (Cs=10),
 # ten inverse strengths C log-spaced from 1e-4 to 1e4.
 DEFAULT_GRID = tuple(float(c) for c in np.logspace(-4, 4, 10))
-DEFAULT_INNER_FOLDS = 3
-DEFAULT_L1_RATIO = 0.5
-DEFAULT_MAX_ITER = {"ml": 100, "penalised": 1000}
+# The other defaults are the configuration schema's (oddsmith.settings.candidate_defaults).
 
 _OPTION_KEYS = {
     "baseline": set(),
@@ -202,7 +200,7 @@ def inverse_link(link: str, eta) -> np.ndarray:
     if link == "cloglog":
         with np.errstate(over="ignore"):  # exp(eta) = inf maps to probability 1, as it should
             return -np.expm1(-np.exp(eta))
-    raise ValueError(f"link must be one of {LINKS}, got {link!r}")
+    raise ArgumentError(f"link must be one of {LINKS}, got {link!r}")
 
 
 def linear_predictor(model, X: pd.DataFrame) -> np.ndarray:
@@ -299,16 +297,16 @@ def _set_difference(expected: list[str], found) -> tuple[list[str], list[str]]:
 
 def _aligned_values(X: pd.DataFrame, feature_names: list[str]) -> np.ndarray:
     if not isinstance(X, pd.DataFrame):
-        raise TypeError(f"X must be a pandas DataFrame, got {type(X).__name__}")
+        raise ArgumentError(f"X must be a pandas DataFrame, got {type(X).__name__}")
     missing, extra = _set_difference(feature_names, [str(c) for c in X.columns])
     if missing or extra:
-        raise ValueError(
+        raise ArgumentError(
             f"X columns do not match the model's features: missing {missing}, extra {extra}"
         )
     values = X[feature_names].to_numpy(dtype=float)
     bad = [n for n, ok in zip(feature_names, np.isfinite(values).all(axis=0)) if not ok]
     if bad:
-        raise ValueError(f"X has missing or non-finite values in columns {bad}")
+        raise ArgumentError(f"X has missing or non-finite values in columns {bad}")
     return values
 
 
@@ -372,7 +370,7 @@ def fit_candidate(X: pd.DataFrame, y, *, kind: str, options: dict | None = None,
         Bad arguments; the message names the bad value.
     """
     if kind not in KINDS:
-        raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
+        raise ArgumentError(f"kind must be one of {KINDS}, got {kind!r}")
     values, names = _design_values(X)
     return fit_design(values, names, y, kind=kind, options=options, seed=seed,
                       inference=inference, clusters=clusters)
@@ -400,23 +398,23 @@ def fit_design(values: np.ndarray, names: list[str], y, *, kind: str, rows=None,
         One cluster label per row of ``values`` (all rows, like ``y``).
     """
     if kind not in KINDS:
-        raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
+        raise ArgumentError(f"kind must be one of {KINDS}, got {kind!r}")
     values = np.ascontiguousarray(values, dtype=np.float64)
     if values.ndim != 2 or values.shape[1] != len(names):
-        raise ValueError(f"values must be 2-d with {len(names)} columns (one per name), "
+        raise ArgumentError(f"values must be 2-d with {len(names)} columns (one per name), "
                          f"got shape {values.shape}")
     if values.shape[0] == 0:
-        raise ValueError("X has no rows")
+        raise ArgumentError("X has no rows")
     if rows is not None:
         rows = np.asarray(rows, dtype=np.intp)
         if rows.ndim != 1 or rows.size == 0:
-            raise ValueError("rows must be a non-empty 1-d array of row positions")
+            raise ArgumentError("rows must be a non-empty 1-d array of row positions")
     bad = [n for n, ok in zip(names, solvers.all_finite(values, rows)) if not ok]
     if bad:
-        raise ValueError(f"X has missing or non-finite values in columns {bad}")
+        raise ArgumentError(f"X has missing or non-finite values in columns {bad}")
     outcome = np.asarray(y)
     if outcome.ndim != 1 or outcome.shape[0] != values.shape[0]:
-        raise ValueError(f"y must be 1-d with {values.shape[0]} values (one per row of X), "
+        raise ArgumentError(f"y must be 1-d with {values.shape[0]} values (one per row of X), "
                          f"got shape {outcome.shape}")
     used = _outcome_values(outcome if rows is None else outcome[rows],
                            n_rows=values.shape[0] if rows is None else rows.size)
@@ -443,34 +441,34 @@ def fit_design(values: np.ndarray, names: list[str], y, *, kind: str, rows=None,
 
 def _design_values(X: pd.DataFrame) -> tuple[np.ndarray, list[str]]:
     if not isinstance(X, pd.DataFrame):
-        raise TypeError(f"X must be a pandas DataFrame, got {type(X).__name__}")
+        raise ArgumentError(f"X must be a pandas DataFrame, got {type(X).__name__}")
     names = list(X.columns)
     not_str = [n for n in names if not isinstance(n, str)]
     if not_str:
-        raise ValueError(f"X column names must be strings, got {not_str}")
+        raise ArgumentError(f"X column names must be strings, got {not_str}")
     duplicated = sorted({n for n in names if names.count(n) > 1})
     if duplicated:
-        raise ValueError(f"X column names must be unique, repeated: {duplicated}")
+        raise ArgumentError(f"X column names must be unique, repeated: {duplicated}")
     if INTERCEPT_TERM in names:
-        raise ValueError(f"X must not hold a column named {INTERCEPT_TERM!r}; the fit adds it")
+        raise ArgumentError(f"X must not hold a column named {INTERCEPT_TERM!r}; the fit adds it")
     non_numeric = [n for n in names if not (pd.api.types.is_numeric_dtype(X[n])
                                             and not pd.api.types.is_bool_dtype(X[n]))]
     if non_numeric:
-        raise ValueError(f"X columns must be numeric, not numeric: {non_numeric}")
+        raise ArgumentError(f"X columns must be numeric, not numeric: {non_numeric}")
     values = np.ascontiguousarray(X.to_numpy(dtype=float))
     if values.shape[0] == 0:
-        raise ValueError("X has no rows")
+        raise ArgumentError("X has no rows")
     return values, names
 
 
 def _outcome_values(y, *, n_rows: int) -> np.ndarray:
     outcome = np.asarray(y)
     if outcome.ndim != 1 or outcome.shape[0] != n_rows:
-        raise ValueError(f"y must be 1-d with {n_rows} values (one per row of X), "
+        raise ArgumentError(f"y must be 1-d with {n_rows} values (one per row of X), "
                          f"got shape {outcome.shape}")
     levels = set(np.unique(outcome).tolist())
     if not levels <= {0, 1}:
-        raise ValueError(f"y must hold only 0 and 1, found {sorted(levels)}")
+        raise ArgumentError(f"y must hold only 0 and 1, found {sorted(levels)}")
     if len(levels) < 2:
         raise FitError(f"y has a single class ({levels.pop()}) in {n_rows} rows; "
                        "no model of an event rate can be fitted")
@@ -481,28 +479,27 @@ def _settings(kind: str, options: dict | None, *, seed: int, outcome: np.ndarray
     options = dict(options or {})
     unknown = sorted(set(options) - _OPTION_KEYS[kind])
     if unknown:
-        raise ValueError(f"options {unknown} are not valid for kind {kind!r}; "
+        raise ArgumentError(f"options {unknown} are not valid for kind {kind!r}; "
                          f"valid: {sorted(_OPTION_KEYS[kind])}")
     if kind == "baseline":
         return {}
-    family = "ml" if kind in ML_KINDS else "penalised"
-    settings = {"max_iter": _positive_int("max_iter",
-                                          options.get("max_iter", DEFAULT_MAX_ITER[family]))}
-    if family == "ml":
+    defaults = candidate_defaults()
+    settings = {"max_iter": _positive_int("max_iter", options.get("max_iter", defaults["max_iter"]))}
+    if kind in ML_KINDS:
         return settings
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise ValueError(f"seed must be a non-negative int, got {seed!r}")
+        raise ArgumentError(f"seed must be a non-negative int, got {seed!r}")
     settings["seed"] = int(seed)
     settings["grid"] = _grid(options.get("grid", DEFAULT_GRID))
-    settings["inner_folds"] = _inner_folds(options.get("inner_folds", DEFAULT_INNER_FOLDS),
+    settings["inner_folds"] = _inner_folds(options.get("inner_folds", defaults["inner_folds"]),
                                            outcome)
-    settings["l1_ratio"] = _l1_ratio(kind, options.get("l1_ratio", DEFAULT_L1_RATIO))
+    settings["l1_ratio"] = _l1_ratio(kind, options.get("l1_ratio", defaults["l1_ratio"]))
     return settings
 
 
 def _positive_int(name: str, value) -> int:
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
-        raise ValueError(f"{name} must be a positive int, got {value!r}")
+        raise ArgumentError(f"{name} must be a positive int, got {value!r}")
     return int(value)
 
 
@@ -510,12 +507,12 @@ def _grid(values) -> list[float]:
     try:
         grid = [float(c) for c in values]
     except (TypeError, ValueError):
-        raise ValueError(f"grid must be a list of inverse penalty strengths C, got {values!r}")
+        raise ArgumentError(f"grid must be a list of inverse penalty strengths C, got {values!r}")
     bad = [c for c in grid if not (math.isfinite(c) and c > 0)]
     if not grid or bad:
-        raise ValueError(f"grid must hold finite C values > 0, got {values!r}")
+        raise ArgumentError(f"grid must hold finite C values > 0, got {values!r}")
     if len(set(grid)) != len(grid):
-        raise ValueError(f"grid values must be distinct, got {values!r}")
+        raise ArgumentError(f"grid values must be distinct, got {values!r}")
     return sorted(grid)
 
 
@@ -523,7 +520,7 @@ def _inner_folds(value, outcome: np.ndarray) -> int:
     folds = _positive_int("inner_folds", value)
     smallest_class = int(min(outcome.sum(), outcome.size - outcome.sum()))
     if folds < 2:
-        raise ValueError(f"inner_folds must be at least 2, got {folds}")
+        raise ArgumentError(f"inner_folds must be at least 2, got {folds}")
     if folds > smallest_class:
         # A property of the rows, not of the settings: too few events (or non-events) here.
         raise FitError(f"inner_folds={folds} needs at least {folds} events and {folds} non-events "
@@ -540,7 +537,7 @@ def _l1_ratio(kind: str, value) -> float:
         return 0.0
     ratio = float(value)
     if not 0.0 < ratio < 1.0:
-        raise ValueError(f"l1_ratio must be strictly between 0 and 1, got {value!r}")
+        raise ArgumentError(f"l1_ratio must be strictly between 0 and 1, got {value!r}")
     return ratio
 
 
@@ -718,26 +715,26 @@ def check_inference(inference: dict | None) -> dict:
     spec = dict(DEFAULT_INFERENCE) | dict(inference or {})
     unknown = sorted(set(spec) - set(DEFAULT_INFERENCE))
     if unknown:
-        raise ValueError(f"inference keys {unknown} are not known; valid: {sorted(DEFAULT_INFERENCE)}")
+        raise ArgumentError(f"inference keys {unknown} are not known; valid: {sorted(DEFAULT_INFERENCE)}")
     for key, allowed in (("standard_errors", STANDARD_ERRORS), ("information", INFORMATION),
                          ("robust_kind", ROBUST_KINDS)):
         if spec[key] not in allowed:
-            raise ValueError(f"inference.{key} must be one of {allowed}, got {spec[key]!r}")
+            raise ArgumentError(f"inference.{key} must be one of {allowed}, got {spec[key]!r}")
     if spec["standard_errors"] == "cluster" and not spec["cluster_column"]:
-        raise ValueError("inference.standard_errors: cluster needs inference.cluster_column")
+        raise ArgumentError("inference.standard_errors: cluster needs inference.cluster_column")
     return spec
 
 
 def _cluster_codes(clusters, *, n_rows: int) -> np.ndarray:
     """Integer codes 0..G-1 of the cluster labels of every row (labels sorted)."""
     if clusters is None:
-        raise ValueError("standard_errors: cluster needs one cluster label per row (clusters=...)")
+        raise ArgumentError("standard_errors: cluster needs one cluster label per row (clusters=...)")
     labels = pd.Series(np.asarray(clusters))
     if labels.size != n_rows:
-        raise ValueError(f"clusters must hold {n_rows} labels (one per row of X), got {labels.size}")
+        raise ArgumentError(f"clusters must hold {n_rows} labels (one per row of X), got {labels.size}")
     missing = int(labels.isna().sum())
     if missing:
-        raise ValueError(f"clusters has {missing} missing labels; every row needs a cluster")
+        raise ArgumentError(f"clusters has {missing} missing labels; every row needs a cluster")
     return pd.factorize(labels, sort=True)[0].astype(np.intp)
 
 

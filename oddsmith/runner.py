@@ -9,34 +9,201 @@ stage joins the stamps into the provenance graph.
 
 from __future__ import annotations
 
+import ast
+import functools
 import hashlib
 import logging
 import os
+import re
 import sys
 from pathlib import Path
 
-from oddsmith.errors import OddsmithError
+from oddsmith.errors import ArgumentError, OddsmithError
 from oddsmith.io import canonical_json, sha256_file, write_json
 
 LOG_FORMAT = "%(levelname)s %(name)s: %(message)s"
 
 
+#: Name of the module-level tuple by which a package module names the non-Python files it
+#: makes the package read (templates, stylesheets, schemas), relative to the project folder,
+#: e.g. ``RESOURCE_FILES = ("schemas/config.schema.yaml",)``. The import walk adds them to
+#: the code fingerprint of every rule that runs the module.
+RESOURCE_CONSTANT = "RESOURCE_FILES"
+
+
 def code_fingerprint(modules, *, root: str | Path | None = None, extra_files=()) -> str:
     """SHA-256 over the source of the named package modules (and extra files), in order.
+
+    Modules are named by their path in the package without ``.py`` (``"metrics"``,
+    ``"stages/fit"``); extra files by their path (relative to the working directory).
 
     Examples
     --------
     >>> len(code_fingerprint(["io"]))
     64
     """
-    root = Path(root) if root else Path(__file__).resolve().parent
+    root = Path(root).resolve() if root else PACKAGE_ROOT
     digest = hashlib.sha256()
     for name in sorted(set(modules)):
-        path = root / f"{name}.py"
-        digest.update(name.encode() + b"\0" + path.read_bytes() + b"\0")
-    for path in sorted(map(str, extra_files)):
-        digest.update(path.encode() + b"\0" + Path(path).read_bytes() + b"\0")
+        digest.update(name.encode() + b"\0" + _read_bytes(root / f"{name}.py") + b"\0")
+    for path in sorted(set(map(str, extra_files))):
+        digest.update(path.encode() + b"\0" + _read_bytes(Path(path)) + b"\0")
     return digest.hexdigest()
+
+
+def script_fingerprint(script: str | Path, *, root: str | Path | None = None) -> str:
+    """Code fingerprint of a rule: its script, every package module the script imports
+    (transitively, see :func:`code_closure`) and the resource files those modules name.
+
+    Examples
+    --------
+    >>> script_fingerprint("scripts/split.py") == script_fingerprint("scripts/split.py")
+    True
+    """
+    root = Path(root).resolve() if root else PACKAGE_ROOT
+    modules, resources = code_closure(script, root=root)
+    return code_fingerprint(modules, root=root, extra_files=[str(script), *resources])
+
+
+def code_closure(script: str | Path, *, root: str | Path | None = None) -> tuple[list[str], list[str]]:
+    """The package modules a script runs and the resource files they read.
+
+    Follows every import of a package module (``import oddsmith.x``, ``from oddsmith.x
+    import y``, ``from oddsmith import x``, relative imports, and imports inside functions)
+    from the script through the package; a package's ``__init__`` counts as imported with
+    it. Imports are read from the source with :mod:`ast`, never executed.
+
+    Returns
+    -------
+    modules : list of str
+        Sorted module names (``"stages/fit"``), the package ``__init__`` files included.
+    resources : list of str
+        Sorted paths named by the modules' ``RESOURCE_FILES`` constants.
+    """
+    root = Path(root).resolve() if root else PACKAGE_ROOT
+    todo = list(_module_facts(Path(script).resolve(), "", root)[0])
+    modules, resources = set(), set()
+    while todo:
+        name = todo.pop()
+        if name in modules:
+            continue
+        modules.add(name)
+        imports, named = _module_facts(root / f"{name}.py", name, root)
+        todo += imports
+        resources.update(named)
+    return sorted(modules), sorted(resources)
+
+
+PACKAGE_ROOT = Path(__file__).resolve().parent
+
+
+def _read_bytes(path: Path) -> bytes:
+    # Cached for the life of the process (a Snakemake invocation hashes each file once), by
+    # absolute path so that a change of working directory cannot return another file.
+    return _read_absolute(path.resolve())
+
+
+@functools.lru_cache(maxsize=None)
+def _read_absolute(path: Path) -> bytes:
+    return path.read_bytes()
+
+
+def clear_code_cache() -> None:
+    """Forget the files read for code fingerprints (for a process that edits them)."""
+    _read_absolute.cache_clear()
+    _module_facts.cache_clear()
+
+
+@functools.lru_cache(maxsize=None)
+def _module_facts(path: Path, name: str, root: Path) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """Package modules imported by one source file (``name`` is its module name, ``""`` for a
+    file outside the package) and the resource files it names."""
+    tree = ast.Module(body=import_statements(_read_bytes(path).decode("utf-8")), type_ignores=[])
+    package = name.rsplit("/", 1)[0] if "/" in name else ""
+    found = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Import):
+            found.update(a.name for a in node.names)
+        elif isinstance(node, ast.ImportFrom):
+            base = _absolute(node, package)
+            if base is not None:
+                found.add(base)
+                found.update(f"{base}.{a.name}" for a in node.names)
+    modules = set()
+    for dotted in found:
+        if dotted == "oddsmith" or dotted.startswith("oddsmith."):
+            modules.update(_module_files(dotted.split(".")[1:], root))
+    return tuple(sorted(modules)), _resource_files(tree, path)
+
+
+#: A line that starts an import statement or the RESOURCE_FILES assignment (at any indent:
+#: imports inside functions count).
+_STATEMENT_START = re.compile(rf"^[ \t]*(?:import[ \t]|from[ \t]+[\w.]+[ \t]+import\b|{RESOURCE_CONSTANT}\b)")
+
+
+def import_statements(source: str) -> list[ast.stmt]:
+    """The import statements and the resource constant of a source file, parsed with
+    :mod:`ast` one by one: the same imports as a parse of the whole file, at a fraction of
+    the cost (a no-op ``snakemake -n`` reads every module a rule runs). A statement starts a
+    line and runs on while brackets are open or a line ends with a backslash; a line of prose
+    in a string that merely starts like an import does not parse and is left out."""
+    lines, out, i = source.splitlines(), [], 0
+    while i < len(lines):
+        if not _STATEMENT_START.match(lines[i]):
+            i += 1
+            continue
+        statement = [lines[i].strip()]
+        depth = _depth(lines[i])
+        while (depth > 0 or statement[-1].endswith("\\")) and i + 1 < len(lines):
+            i += 1
+            statement.append(lines[i].strip())
+            depth += _depth(lines[i])
+        try:
+            out += ast.parse(" ".join(part.rstrip("\\") for part in statement)).body
+        except SyntaxError:
+            pass
+        i += 1
+    return out
+
+
+def _depth(line: str) -> int:
+    code = line.split("#", 1)[0]
+    return sum(code.count(c) for c in "([{") - sum(code.count(c) for c in ")]}")
+
+
+def _absolute(node: ast.ImportFrom, package: str) -> str | None:
+    if node.level == 0:
+        return node.module
+    parts = ["oddsmith", *[p for p in package.split("/") if p]]
+    parts = parts[: len(parts) - (node.level - 1)] if node.level > 1 else parts
+    return ".".join(parts + ([node.module] if node.module else []))
+
+
+def _module_files(parts: list[str], root: Path) -> set[str]:
+    """Files Python runs to import ``oddsmith.<parts>``: each package's ``__init__`` on the
+    way and the module itself; a name that is no file (an attribute) adds nothing more."""
+    files = {"__init__"}
+    for depth in range(1, len(parts) + 1):
+        stem = "/".join(parts[:depth])
+        if (root / stem / "__init__.py").is_file():
+            files.add(f"{stem}/__init__")
+        elif (root / f"{stem}.py").is_file():
+            files.add(stem)
+            break
+        else:
+            break
+    return files
+
+
+def _resource_files(tree: ast.Module, path: Path) -> tuple[str, ...]:
+    for node in tree.body:
+        targets = node.targets if isinstance(node, ast.Assign) else [node.target] if isinstance(node, ast.AnnAssign) else []
+        if any(isinstance(t, ast.Name) and t.id == RESOURCE_CONSTANT for t in targets):
+            value = ast.literal_eval(node.value)
+            if not isinstance(value, (tuple, list)) or not all(isinstance(v, str) for v in value):
+                raise ArgumentError(f"{path}: {RESOURCE_CONSTANT} must be a tuple of paths, found {value!r}")
+            return tuple(value)
+    return ()
 
 
 def params_hash(params: dict) -> str:

@@ -59,7 +59,7 @@ import pyarrow as pa
 import pyarrow.csv as pa_csv
 
 from oddsmith.contract import CONTRACT_FORMAT, read_raw, validate_frame
-from oddsmith.errors import ArtifactError, ContractError, ManifestError
+from oddsmith.errors import ArgumentError, ArtifactError, ContractError
 from oddsmith.io import read_json, read_parquet, read_yaml, sha256_file
 from oddsmith.models import MODEL_FORMAT, inverse_link, linear_predictor
 from oddsmith.predict import model_design
@@ -68,8 +68,6 @@ from oddsmith.recipe import recipe_problems
 
 REFERENCES = ("training_mean", "most_favourable")
 EXTRA_COLUMN_POLICIES = ("reject", "ignore")
-MANIFEST_FORMAT_PREFIX = "oddsmith-manifest/"
-MANIFEST_MAJOR = 1
 DEFAULT_TOP_K = 3
 # Cells a spreadsheet would read as the start of a formula (or of a hidden control).
 FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")
@@ -156,82 +154,6 @@ def load_artifacts(*, recipe_path, selected_path, model_paths: dict, choice_path
                         training=training, source=source)
 
 
-def load_results_folder(model_dir, *, check=True) -> tuple[ScoringModel, dict]:
-    """Load the frozen model of a finished results folder, refusing a tampered one.
-
-    The folder must hold a selected model and a ``manifest.json`` of a readable format;
-    :func:`oddsmith.verify.verify_results` must find no problem (every hash matches).
-    Returns the scoring model and the configuration recorded in the manifest.
-
-    Raises
-    ------
-    ArtifactError
-        No results folder, or no selected model in it.
-    ManifestError
-        No manifest, a manifest of another format version, or any verification problem.
-    """
-    folder = Path(model_dir)
-    if not folder.is_dir():
-        raise ArtifactError(f"results folder not found: {folder}")
-    selected_path = folder / "comparison" / "selected.json"
-    if not selected_path.is_file():
-        raise ArtifactError(f"{folder} holds no model: comparison/selected.json not found "
-                            "(is this a finished results folder? build it with snakemake first)")
-    selected = read_json(selected_path).get("candidate")
-    if not (folder / "candidates" / str(selected) / "model.json").is_file():
-        raise ArtifactError(f"{folder} holds no model: candidates/{selected}/model.json not found")
-    manifest = _read_manifest(folder)
-    if check:
-        _verify(folder)
-    config = manifest.get("config")
-    if not isinstance(config, dict) or not isinstance(config.get("data"), dict):
-        raise ManifestError(f"{folder}/manifest.json records no configuration ('config' with 'data')")
-    data = config["data"]
-    sm = load_artifacts(
-        recipe_path=folder / "features" / "recipe.json", selected_path=selected_path,
-        model_paths={selected: folder / "candidates" / selected / "model.json"},
-        choice_path=folder / "threshold" / "choice.json", contract_path=folder / "validated" / "contract.yaml",
-        data_path=folder / "validated" / "data.parquet", assignment_path=folder / "split" / "assignment.parquet",
-        id_column=data["id_column"], target=data["target"], source=str(folder))
-    return sm, config
-
-
-def _read_manifest(folder: Path) -> dict:
-    path = folder / "manifest.json"
-    if not path.is_file():
-        raise ManifestError(f"{folder} has no manifest.json: it is not a finished build, or was copied "
-                            "incompletely; scoring needs a verified folder")
-    try:
-        manifest = read_json(path)
-    except ArtifactError as exc:
-        raise ManifestError(str(exc)) from None
-    fmt = manifest.get("format") if isinstance(manifest, dict) else None
-    if fmt is not None and not _readable_manifest_format(fmt):
-        raise ManifestError(f"{path}: format {fmt!r} is not readable by this oddsmith "
-                            f"(it reads {MANIFEST_FORMAT_PREFIX}{MANIFEST_MAJOR}); use the oddsmith version "
-                            "that built the folder")
-    return manifest
-
-
-def _readable_manifest_format(fmt) -> bool:
-    if not isinstance(fmt, str) or not fmt.startswith(MANIFEST_FORMAT_PREFIX):
-        return False
-    major = fmt[len(MANIFEST_FORMAT_PREFIX):].split(".")[0]
-    return major == str(MANIFEST_MAJOR)
-
-
-def _verify(folder: Path) -> None:
-    try:
-        from oddsmith.verify import verify_results
-    except ImportError:
-        raise ManifestError(f"cannot check {folder}: this oddsmith has no verify module, and scoring "
-                            "refuses an unverified folder") from None
-    problems = verify_results(folder)
-    if problems:
-        raise ManifestError(f"{folder} does not match its manifest (tampered or damaged); refusing to score",
-                            list(problems))
-
-
 def _read_contract(path) -> dict:
     contract = read_yaml(path, what="required artifact")
     if not isinstance(contract, dict) or not isinstance(contract.get("columns"), dict):
@@ -277,7 +199,7 @@ def check_batch(sm: ScoringModel, raw: pd.DataFrame, *, extra_columns: str = "re
         Listing every problem found.
     """
     if extra_columns not in EXTRA_COLUMN_POLICIES:
-        raise ValueError(f"extra_columns must be one of {EXTRA_COLUMN_POLICIES}, got {extra_columns!r}")
+        raise ArgumentError(f"extra_columns must be one of {EXTRA_COLUMN_POLICIES}, got {extra_columns!r}")
     if len(raw) == 0:
         raise ContractError(f"{source}: the batch has 0 rows; nothing to score")
     declared = sm.contract["columns"]
@@ -375,7 +297,7 @@ def reason_reference(sm: ScoringModel, method: str = "training_mean") -> dict:
     minimum occurs.
     """
     if method not in REFERENCES:
-        raise ValueError(f"reference must be one of {REFERENCES}, got {method!r}")
+        raise ArgumentError(f"reference must be one of {REFERENCES}, got {method!r}")
     names, W = feature_weights(sm.recipe, sm.model["design_columns"])
     beta = _coefficients(sm)
     out = {"method": method, "features": names}
@@ -441,7 +363,7 @@ def top_reasons(contrib: np.ndarray, names: list[str], *, top_k: int) -> tuple[n
 def _top_reason_codes(contrib: np.ndarray, *, top_k: int) -> tuple[np.ndarray, np.ndarray]:
     """Feature index (-1: no reason) and contribution of each row's top_k reasons."""
     if top_k < 1:
-        raise ValueError(f"top_k must be >= 1, got {top_k}")
+        raise ArgumentError(f"top_k must be >= 1, got {top_k}")
     n_rows, width = contrib.shape
     k = min(top_k, width)
     order = np.argsort(-contrib, axis=1, kind="stable")[:, :k]

@@ -35,6 +35,8 @@ import numpy as np
 import scipy.linalg
 import scipy.special
 
+from oddsmith.errors import ArgumentError
+
 # A block of 32,768 rows × 40 columns is 10 MB.
 ROW_BLOCK = 32_768
 _NEWTON_TOL = 1e-9
@@ -136,7 +138,7 @@ def likelihood_terms(link: str, eta: np.ndarray, y: np.ndarray):
         event = y == 1
         return (np.where(event, log_p, -mu), np.where(event, ratio, -mu),
                 np.where(event, event_second, -mu))
-    raise ValueError(f"link must be logit, probit or cloglog, got {link!r}")
+    raise ArgumentError(f"link must be logit, probit or cloglog, got {link!r}")
 
 
 def _ml_pass(link: str, values, outcome, rows, coef, *, derivatives: bool):
@@ -234,7 +236,7 @@ def expected_information_weight(link: str, eta: np.ndarray) -> np.ndarray:
         log_expm1 = np.where(large, mu + np.log1p(-np.exp(-np.where(large, mu, 1.0))),
                              np.log(np.expm1(np.where(large, 1.0, mu))))
         return np.exp(2.0 * eta - log_expm1)
-    raise ValueError(f"link must be logit, probit or cloglog, got {link!r}")
+    raise ArgumentError(f"link must be logit, probit or cloglog, got {link!r}")
 
 
 def information_and_meat(link: str, values: np.ndarray, outcome: np.ndarray, rows, coef: np.ndarray,
@@ -300,7 +302,7 @@ def link_derivatives(link: str, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray
             exp_eta = np.exp(eta)
             density = np.exp(eta - exp_eta)
         return density, np.where(density > 0, density * (1.0 - exp_eta), 0.0)
-    raise ValueError(f"link must be logit, probit or cloglog, got {link!r}")
+    raise ArgumentError(f"link must be logit, probit or cloglog, got {link!r}")
 
 
 def marginal_effect_sums(link: str, values, rows, params: np.ndarray):

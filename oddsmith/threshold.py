@@ -1,8 +1,8 @@
 """Cost-based choice of the cut-off that turns a predicted probability into a decision.
 
 A case is *flagged* (predicted to have the adverse outcome, ``y = 1``) when ``p >= cutoff``.
-Costs are per case: ``cost_fp`` for flagging a case that turns out fine, ``cost_fn`` for
-missing an adverse case, ``cost_tp`` and ``cost_tn`` for the two correct decisions (default 0).
+Costs are per case: ``false_positive`` for flagging a case that turns out fine, ``false_negative`` for
+missing an adverse case, ``true_positive`` and ``true_negative`` for the two correct decisions (default 0).
 A cut-off of ``None`` in a returned dictionary (``inf`` in a cost curve) means "flag none".
 """
 
@@ -15,15 +15,9 @@ import numpy as np
 import pandas as pd
 
 from oddsmith.errors import CostError, OddsmithError
-from oddsmith.metrics import _validated
+from oddsmith.settings import COST_KEYS, constrained_problem
+from oddsmith.metrics import outcomes_and_probabilities
 
-_COST_KEYS = ("cost_fp", "cost_fn", "cost_tp", "cost_tn")
-_CONFIG_KEYS = {
-    "false_positive": "cost_fp",
-    "false_negative": "cost_fn",
-    "true_positive": "cost_tp",
-    "true_negative": "cost_tn",
-}
 _ADOPT = ("empirical", "bayes", "constrained")
 _BOOTSTRAP_LEVEL = 0.95
 # Relative tolerance for treating two total costs as tied (floating-point noise only).
@@ -47,98 +41,56 @@ def _check_cost(name: str, value, *, strictly_positive: bool) -> float:
     return value
 
 
-def _validated_costs(cost_fp, cost_fn, cost_tp, cost_tn) -> dict:
+def _validated_costs(false_positive, false_negative, true_positive, true_negative) -> dict:
     costs = {
-        "cost_fp": _check_cost("cost_fp", cost_fp, strictly_positive=False),
-        "cost_fn": _check_cost("cost_fn", cost_fn, strictly_positive=False),
-        "cost_tp": _check_cost("cost_tp", cost_tp, strictly_positive=False),
-        "cost_tn": _check_cost("cost_tn", cost_tn, strictly_positive=False),
+        "false_positive": _check_cost("false_positive", false_positive, strictly_positive=False),
+        "false_negative": _check_cost("false_negative", false_negative, strictly_positive=False),
+        "true_positive": _check_cost("true_positive", true_positive, strictly_positive=False),
+        "true_negative": _check_cost("true_negative", true_negative, strictly_positive=False),
     }
-    if costs["cost_fp"] <= costs["cost_tn"]:
+    if costs["false_positive"] <= costs["true_negative"]:
         raise CostError(
-            f"cost_fp must exceed cost_tn (a false alarm must cost more than a correct pass), "
-            f"got cost_fp={costs['cost_fp']!r}, cost_tn={costs['cost_tn']!r}"
+            f"false_positive must exceed true_negative (a false alarm must cost more than a correct pass), "
+            f"got false_positive={costs['false_positive']!r}, true_negative={costs['true_negative']!r}"
         )
-    if costs["cost_fn"] <= costs["cost_tp"]:
+    if costs["false_negative"] <= costs["true_positive"]:
         raise CostError(
-            f"cost_fn must exceed cost_tp (a miss must cost more than a correct flag), "
-            f"got cost_fn={costs['cost_fn']!r}, cost_tp={costs['cost_tp']!r}"
+            f"false_negative must exceed true_positive (a miss must cost more than a correct flag), "
+            f"got false_negative={costs['false_negative']!r}, true_positive={costs['true_positive']!r}"
         )
     return costs
 
 
-def bayes_cutoff(*, cost_fp, cost_fn, cost_tp=0, cost_tn=0) -> float:
+def bayes_cutoff(*, false_positive, false_negative, true_positive=0, true_negative=0) -> float:
     """Cut-off that minimises expected cost when ``p`` is a calibrated probability.
 
-    Flag when ``p >= (cost_fp − cost_tn) / (cost_fp − cost_tn + cost_fn − cost_tp)``
-    (Elkan 2001). With no cost on correct decisions this is ``cost_fp / (cost_fp + cost_fn)``.
+    Flag when ``p >= (false_positive − true_negative) / (false_positive − true_negative + false_negative − true_positive)``
+    (Elkan 2001). With no cost on correct decisions this is ``false_positive / (false_positive + false_negative)``.
 
     Examples
     --------
-    >>> bayes_cutoff(cost_fp=1, cost_fn=4)
+    >>> bayes_cutoff(false_positive=1, false_negative=4)
     0.2
     """
-    costs = _validated_costs(cost_fp, cost_fn, cost_tp, cost_tn)
-    fp_regret = costs["cost_fp"] - costs["cost_tn"]
-    fn_regret = costs["cost_fn"] - costs["cost_tp"]
+    costs = _validated_costs(false_positive, false_negative, true_positive, true_negative)
+    fp_regret = costs["false_positive"] - costs["true_negative"]
+    fn_regret = costs["false_negative"] - costs["true_positive"]
     return fp_regret / (fp_regret + fn_regret)
-
-
-def costs_from_config(d) -> dict:
-    """Costs from a configuration mapping, in the keyword form used by this module.
-
-    Two forms are accepted:
-
-    * ``{"false_positive": 1, "false_negative": 5, "true_positive": 0, "true_negative": 0}``
-      (the last two optional, default 0);
-    * ``{"ratio_fn_to_fp": 5}``, meaning a false positive costs 1 and a false negative 5.
-
-    False-positive, false-negative and ratio values must be finite and > 0; correct-decision
-    costs finite and >= 0.
-
-    Returns
-    -------
-    dict
-        ``cost_fp``, ``cost_fn``, ``cost_tp``, ``cost_tn`` (floats).
-    """
-    if not isinstance(d, dict):
-        raise CostError(f"costs must be a mapping, got {type(d).__name__}")
-    if "ratio_fn_to_fp" in d:
-        if len(d) != 1:
-            others = sorted(k for k in d if k != "ratio_fn_to_fp")
-            raise CostError(f"ratio_fn_to_fp cannot be combined with other cost keys: {others}")
-        ratio = _check_cost("ratio_fn_to_fp", d["ratio_fn_to_fp"], strictly_positive=True)
-        return _validated_costs(1.0, ratio, 0.0, 0.0)
-    unknown = sorted(str(k) for k in d if k not in _CONFIG_KEYS)
-    missing = [k for k in ("false_positive", "false_negative") if k not in d]
-    if unknown or missing:
-        raise CostError(
-            "costs must be given as false_positive/false_negative[/true_positive/true_negative]"
-            " or as ratio_fn_to_fp",
-            problems=[f"unknown key {k!r}" for k in unknown]
-            + [f"missing key {k!r}" for k in missing],
-        )
-    _check_cost("false_positive", d["false_positive"], strictly_positive=True)
-    _check_cost("false_negative", d["false_negative"], strictly_positive=True)
-    values = {_CONFIG_KEYS[k]: d.get(k, 0) for k in _CONFIG_KEYS}
-    for key in ("true_positive", "true_negative"):
-        _check_cost(key, d.get(key, 0), strictly_positive=False)
-    return _validated_costs(**values)
 
 
 def _resolve_costs(costs) -> dict:
     if not isinstance(costs, dict):
-        raise CostError(f"costs must be a dict with keys {list(_COST_KEYS)}, got {costs!r}")
-    unknown = sorted(str(k) for k in costs if k not in _COST_KEYS)
+        raise CostError(f"costs must be a dict with keys {list(COST_KEYS)}, got {costs!r}")
+    unknown = sorted(str(k) for k in costs if k not in COST_KEYS)
     if unknown:
         raise CostError(
-            f"unknown cost keys {unknown}; expected {list(_COST_KEYS)} "
-            "(use costs_from_config for the configuration form)"
+            f"unknown cost keys {unknown}; expected {list(COST_KEYS)} "
+            "(oddsmith.settings.normalised_costs gives this form from a configuration)"
         )
-    if "cost_fp" not in costs or "cost_fn" not in costs:
-        raise CostError(f"costs need cost_fp and cost_fn, got keys {sorted(costs)}")
+    if "false_positive" not in costs or "false_negative" not in costs:
+        raise CostError(f"costs need false_positive and false_negative, got keys {sorted(costs)}")
     return _validated_costs(
-        costs["cost_fp"], costs["cost_fn"], costs.get("cost_tp", 0), costs.get("cost_tn", 0)
+        costs["false_positive"], costs["false_negative"], costs.get("true_positive", 0), costs.get("true_negative", 0)
     )
 
 
@@ -164,10 +116,10 @@ def _curve_counts(y: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray,
 
 def _total_cost(costs: dict, tp, fp, tn, fn):
     return (
-        costs["cost_tp"] * tp
-        + costs["cost_fp"] * fp
-        + costs["cost_tn"] * tn
-        + costs["cost_fn"] * fn
+        costs["true_positive"] * tp
+        + costs["false_positive"] * fp
+        + costs["true_negative"] * tn
+        + costs["false_negative"] * fn
     )
 
 
@@ -180,8 +132,8 @@ def cost_curve(y, p, *, costs) -> pd.DataFrame:
     Parameters
     ----------
     costs : dict
-        ``cost_fp``, ``cost_fn`` and optionally ``cost_tp``, ``cost_tn`` (see
-        :func:`costs_from_config`).
+        ``false_positive``, ``false_negative`` and optionally ``true_positive``, ``true_negative`` (the configuration's
+        ``costs`` section once checked, see :func:`oddsmith.settings.normalised_costs`).
 
     Returns
     -------
@@ -191,7 +143,7 @@ def cost_curve(y, p, *, costs) -> pd.DataFrame:
         (specificity) is NaN when there are no positives (negatives).
     """
     costs = _resolve_costs(costs)
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     cutoffs, flagged, tp = _curve_counts(y, p)
     n, events = y.shape[0], int(y.sum())
     fp = flagged - tp
@@ -243,7 +195,7 @@ def confusion_at(y, p, cutoff) -> dict:
         ``cutoff``, ``n``, ``tp``, ``fp``, ``tn``, ``fn``, ``sensitivity``, ``specificity``,
         ``ppv``, ``npv``, ``flag_rate``. A rate whose denominator is 0 is None.
     """
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     flag = _flag_mask(p, cutoff)
     tp = int(np.sum(flag & (y == 1)))
     fp = int(np.sum(flag & (y == 0)))
@@ -409,7 +361,7 @@ def _pruned_choice(rows: _BinnedRows, costs: dict, events: int, non_events: int,
     cost)``, value ``-1`` meaning flag none; the same choice as the full cost curve.
 
     Every bin edge is costed. Inside bin ``k`` the total cost cannot fall below
-    ``max(C_before - a·(cost_fn - cost_tp), C_after - b·(cost_fp - cost_tn))`` (``a`` events,
+    ``max(C_before - a·(false_negative - true_positive), C_after - b·(false_positive - true_negative))`` (``a`` events,
     ``b`` non-events in the bin, ``C_before``/``C_after`` the costs at the edges around it),
     so only bins whose bound reaches the best edge (plus the tie tolerance, generously) can
     hold the minimum or a tie with it; ``counts_in(bins)`` supplies the counts per distinct
@@ -419,7 +371,7 @@ def _pruned_choice(rows: _BinnedRows, costs: dict, events: int, non_events: int,
     fp = np.append(0, np.cumsum(bin_neg))
     edge_cost = _total_cost(costs, tp, fp, non_events - fp, events - tp)
     best_edge = float(edge_cost.min())
-    fn_regret, fp_regret = costs["cost_fn"] - costs["cost_tp"], costs["cost_fp"] - costs["cost_tn"]
+    fn_regret, fp_regret = costs["false_negative"] - costs["true_positive"], costs["false_positive"] - costs["true_negative"]
     bound = np.maximum(edge_cost[:-1] - bin_pos * fn_regret, edge_cost[1:] - bin_neg * fp_regret)
     margin = 1e-9 * max(1.0, abs(best_edge))  # far wider than the tie tolerance and rounding
     multi = np.diff(rows.starts) > 1
@@ -519,8 +471,9 @@ def _bootstrap(y, p, costs, empirical_cutoff, resamples, seed) -> dict | None:
 def _check_choice_options(y, adopt, bootstrap, seed, max_flag_rate, min_sensitivity) -> None:
     if adopt not in _ADOPT:
         raise CostError(f"adopt must be one of {list(_ADOPT)}, got {adopt!r}")
-    if adopt == "constrained" and max_flag_rate is None and min_sensitivity is None:
-        raise CostError("adopt='constrained' needs max_flag_rate or min_sensitivity")
+    problem = constrained_problem(adopt, max_flag_rate, min_sensitivity)
+    if problem:
+        raise CostError(problem)
     if isinstance(bootstrap, bool) or not isinstance(bootstrap, (int, np.integer)) or bootstrap < 0:
         raise CostError(f"bootstrap must be a whole number >= 0, got {bootstrap!r}")
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
@@ -624,7 +577,7 @@ def choose_cutoff(
     Parameters
     ----------
     costs : dict
-        ``cost_fp``, ``cost_fn`` and optionally ``cost_tp``, ``cost_tn``.
+        ``false_positive``, ``false_negative`` and optionally ``true_positive``, ``true_negative``.
     max_flag_rate, min_sensitivity : float, optional
         Operating constraints: share flagged at most, sensitivity at least.
     bootstrap : int
@@ -649,7 +602,7 @@ def choose_cutoff(
         Bad costs or options, or constraints no cut-off can meet (with the closest values).
     """
     costs = _resolve_costs(costs)
-    y, p = _validated(y, p)
+    y, p = outcomes_and_probabilities(y, p)
     _check_choice_options(y, adopt, bootstrap, seed, max_flag_rate, min_sensitivity)
     n, events = int(y.shape[0]), int(y.sum())
     curve = _curve_dict(y, p, costs)

@@ -25,24 +25,10 @@ if CHALLENGER["enabled"]:
             "logs/{run}/challenger.log",
         benchmark:
             "benchmarks/{run}/challenger.tsv"
-        threads: RES["threads"]
-        resources:
-            mem_mb=RES["mem_mb"],
-            runtime=RES["runtime"],
         params:
             candidates=CANDIDATES,
             challenger=CHALLENGER,
             data={k: CONFIG["data"][k] for k in ("id_column", "target")},
-            code=code(
-                "challenger",
-                "stages/fit",
-                "metrics",
-                "models",
-                "solvers",
-                "selection",
-                "recipe",
-                "split",
-                script="scripts/challenger.py",
-            ),
+            code=code(script="scripts/challenger.py"),
         script:
             "../scripts/challenger.py"

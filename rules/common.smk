@@ -3,12 +3,13 @@ import os
 import sys
 
 from snakemake.io import get_wildcard_names, strip_wildcard_constraints
+from snakemake.resources import Resources
 
 from oddsmith.config import check_config, read_config_file
 from oddsmith.errors import ConfigError
 from oddsmith.manifest import build_info, environment, source_date_epoch
 from oddsmith.publish import current_result_note
-from oddsmith.runner import code_fingerprint, params_hash
+from oddsmith.runner import params_hash, script_fingerprint
 
 CHOOSE_CONFIG = """a build reads exactly one configuration file, complete on its own (the schema's
 defaults fill in the keys it leaves out). Name it:
@@ -67,10 +68,32 @@ def fit_priority(name):
     return FIT_PRIORITY.get(candidate_settings(name)["kind"], 0)
 
 
-def code(*modules, script):
-    """Fingerprint of the package modules a rule runs plus its script (principle 1)."""
-    base = ("runner", "io", "errors")
-    return code_fingerprint(base + modules, extra_files=[script])
+def apply_job_resources():
+    """Give every rule the threads, mem_mb and runtime of the config's `resources` section.
+
+    Snakemake 9 has the threads and resources directives of each rule and per-invocation
+    defaults (--default-resources, a profile's default-resources), but no per-workflow
+    default that a config file can set; repeating the directives in every rule was the
+    alternative. Called once after the includes. Precedence, as with the directives before
+    (highest first): --set-threads / --set-resources (command line or profile) > the config's `resources`
+    > --default-resources (which still supplies what the config does not name, e.g. a
+    SLURM account). A job's threads also cap its BLAS/OpenMP threads (oddsmith.runner.stage).
+    """
+    settings = workflow.resource_settings
+    for rule_ in workflow.rules:
+        given = Resources.from_mapping(settings.overwrite_resources.get(rule_.name, {}))
+        rule_.resources.update(
+            {k: RES[k] for k in ("mem_mb", "runtime") if k not in given.keys()}
+        )
+        if rule_.name not in settings.overwrite_threads:
+            rule_.resources["_cores"] = RES["threads"]
+
+
+def code(*, script):
+    """Code fingerprint (principle 1) of the job that runs `script`: the script, the package modules the script
+    imports (transitively, read with ast) and the resource files those modules name in
+    RESOURCE_FILES. Each file is read once per invocation."""
+    return script_fingerprint(script)
 
 
 # Build facts for the manifest, computed once per invocation.

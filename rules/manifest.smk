@@ -11,15 +11,11 @@ rule manifest:
         "logs/{run}/manifest.log",
     benchmark:
         "benchmarks/{run}/manifest.tsv"
-    threads: RES["threads"]
-    resources:
-        mem_mb=RES["mem_mb"],
-        runtime=RES["runtime"],
     params:
         config=CONFIG,
         build=BUILD,
         environment=ENVIRONMENT,
         card_rule=lambda wildcards: rule_fingerprint("card"),
-        code=code("stages/manifest", "manifest", script="scripts/manifest.py"),
+        code=code(script="scripts/manifest.py"),
     script:
         "../scripts/manifest.py"

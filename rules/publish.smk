@@ -20,18 +20,8 @@ rule publish:
     benchmark:
         "benchmarks/{run}/publish.tsv"
     localrule: True
-    threads: RES["threads"]
-    resources:
-        mem_mb=RES["mem_mb"],
-        runtime=RES["runtime"],
     params:
         pending=PUBLISH_PENDING,
-        code=code(
-            "stages/publish",
-            "publish",
-            "verify",
-            "manifest",
-            script="scripts/publish.py",
-        ),
+        code=code(script="scripts/publish.py"),
     script:
         "../scripts/publish.py"

@@ -1,8 +1,8 @@
 # Scoring a later batch with this build's selected model: scores with reason codes and a
-# drift page. Defined only when scoring.data is set. The batch file, the drift template and
-# the card stylesheet enter through params (path + SHA-256): a changed file reruns the rule,
-# and the job's stamp lists only files of the run folder (the summary records the
-# batch's hash).
+# drift page. Defined only when scoring.data is set. The batch file enters through params
+# (path + SHA-256): a changed file reruns the rule, and the job's stamp lists only files of
+# the run folder (the summary records the batch's hash). The drift template and the card
+# stylesheet are in the code fingerprint (RESOURCE_FILES of oddsmith/stages/score.py).
 import os
 
 from oddsmith.io import sha256_file
@@ -12,11 +12,7 @@ SCORING_OUTPUTS = []
 # Path and SHA-256 (None while a file does not exist) of the files read through params.
 SCORING_FILES = {
     name: {"path": path, "sha256": sha256_file(path) if os.path.isfile(path) else None}
-    for name, path in (
-        ("batch", SCORING["data"]),
-        ("template", "reports/drift.html.j2"),
-        ("stylesheet", "reports/model_card.css"),
-    )
+    for name, path in (("batch", SCORING["data"]),)
     if path
 }
 
@@ -47,33 +43,14 @@ if SCORING["data"]:
             "logs/{run}/score.log",
         benchmark:
             "benchmarks/{run}/score.tsv"
-        threads: RES["threads"]
-        resources:
-            mem_mb=RES["mem_mb"],
-            runtime=RES["runtime"],
         params:
             candidates=CANDIDATES,
             batch=SCORING_FILES["batch"],
-            template=SCORING_FILES["template"],
-            stylesheet=SCORING_FILES["stylesheet"],
             data={
                 k: CONFIG["data"][k]
                 for k in ("id_column", "target", "encoding", "allow_outside_project")
             },
             scoring=SCORING,
-            code=code(
-                "stages/score",
-                "score",
-                "drift",
-                "predict",
-                "models",
-                "solvers",
-                "recipe",
-                "contract",
-                "card",
-                "plots",
-                "resources",
-                script="scripts/score.py",
-            ),
+            code=code(script="scripts/score.py"),
         script:
             "../scripts/score.py"

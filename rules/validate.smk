@@ -12,10 +12,6 @@ rule validate:
         "logs/{run}/validate.log",
     benchmark:
         "benchmarks/{run}/validate.tsv"
-    threads: RES["threads"]
-    resources:
-        mem_mb=RES["mem_mb"],
-        runtime=RES["runtime"],
     params:
         # What validate checks ahead of the later stages; no seed, so a new seed alone
         # does not rerun it.
@@ -37,12 +33,6 @@ rule validate:
             if CONFIG["inference"]["cluster_column"]
             else {}
         ),
-        code=code(
-            "validate",
-            "contract",
-            "config",
-            "split",
-            script="scripts/validate.py",
-        ),
+        code=code(script="scripts/validate.py"),
     script:
         "../scripts/validate.py"

@@ -15,7 +15,7 @@ from oddsmith.io import read_json, read_parquet, write_json, write_parquet
 from oddsmith.stages.apply_cutoff import run_apply_cutoff
 from oddsmith.threshold import choose_cutoff
 
-COSTS = {"cost_fp": 1.0, "cost_fn": 4.5, "cost_tp": 0.0, "cost_tn": 0.0}  # Bayes cut-off 1/5.5
+COSTS = {"false_positive": 1.0, "false_negative": 4.5, "true_positive": 0.0, "true_negative": 0.0}  # Bayes cut-off 1/5.5
 
 
 def _artifacts(folder, *, n=3000, seed=4):

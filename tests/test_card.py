@@ -129,7 +129,7 @@ def test_template_carries_the_cautions_verbatim():
 def test_trivial_costs_are_priced_on_the_same_test_cases():
     # 339 events in 2,010 cases, c_FN 6,000, c_FP 1,200 (the demo's): flag none costs
     # 339 · 6,000 / 2,010 per case = 1,011,940.30 per 1,000; flag all 1,671 · 1,200 / 2,010 per case.
-    costs = {"cost_fp": 1200.0, "cost_fn": 6000.0, "cost_tp": 0.0, "cost_tn": 0.0}
+    costs = {"false_positive": 1200.0, "false_negative": 6000.0, "true_positive": 0.0, "true_negative": 0.0}
     got = card.trivial_costs_on_test({"n": 2010, "events": 339}, costs)
     assert got["flag_none"] == pytest.approx(339 * 6000 / 2010 * 1000)
     assert got["flag_all"] == pytest.approx(1671 * 1200 / 2010 * 1000)

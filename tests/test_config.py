@@ -4,6 +4,7 @@ import pytest
 
 from oddsmith.config import check_config, read_config_file
 from oddsmith.errors import ConfigError
+from oddsmith.settings import normalised_costs
 
 
 def _problems(cfg, tmp_path=None, **kw):
@@ -71,6 +72,39 @@ def test_data_path_outside_project_refused_unless_allowed(demo_config, root):
 def test_bad_costs(demo_config, root, costs, fragment):
     demo_config["costs"] = costs
     assert fragment in _problems(demo_config, project_dir=root)
+
+
+@pytest.mark.parametrize("costs, expected", [
+    # the ratio form: a false positive costs 1, a false negative the ratio; correct decisions 0
+    ({"ratio_fn_to_fp": 5}, {"false_positive": 1, "false_negative": 5, "true_positive": 0, "true_negative": 0}),
+    ({"ratio_fn_to_fp": 2.5, "true_negative": 0.5},
+     {"false_positive": 1, "false_negative": 2.5, "true_positive": 0, "true_negative": 0.5}),
+    ({"false_positive": 2, "false_negative": 7, "true_positive": 1},
+     {"false_positive": 2, "false_negative": 7, "true_positive": 1, "true_negative": 0}),
+])
+def test_every_cost_form_is_normalised_once(demo_config, root, costs, expected):
+    demo_config["costs"] = costs
+    checked = check_config(demo_config, project_dir=root)
+    assert {k: checked["costs"][k] for k in expected} == expected
+    assert "ratio_fn_to_fp" not in checked["costs"]
+    assert checked["costs"]["currency"] == "unit" and checked["costs"]["adopt"] == "empirical"
+    # the normalised form is a fixed point (a recorded configuration read back stays the same)
+    assert normalised_costs(checked["costs"]) == checked["costs"]
+
+
+def test_ratio_and_pair_together_refused(demo_config, root):
+    demo_config["costs"] = {"ratio_fn_to_fp": 5, "false_positive": 1, "false_negative": 5}
+    assert "not both" in _problems(demo_config, project_dir=root)
+
+
+def test_constrained_needs_a_limit(demo_config, root):
+    demo_config["costs"] = {"false_positive": 1, "false_negative": 5, "adopt": "constrained"}
+    assert "costs.adopt 'constrained' needs max_flag_rate or min_sensitivity" in _problems(demo_config, project_dir=root)
+
+
+def test_the_baseline_takes_the_schema_defaults(demo_config, root):
+    baseline = check_config(demo_config, project_dir=root)["candidates"][-1]
+    assert baseline == {"name": "baseline", "kind": "baseline", "inner_folds": 3, "l1_ratio": 0.5, "max_iter": 200}
 
 
 def test_interaction_with_unknown_feature(demo_config, root):

@@ -26,3 +26,46 @@ def test_snakefmt_is_clean():
     files = ["Snakefile", *sorted(str(p.relative_to(ROOT)) for p in (ROOT / "rules").glob("*.smk"))]
     result = subprocess.run([str(BIN / "snakefmt"), "--check", *files], cwd=ROOT, capture_output=True, text=True)
     assert result.returncode == 0, result.stdout + result.stderr
+
+
+# ---- package hygiene: one error convention, no private helper shared across modules ----
+
+PACKAGE = ROOT / "oddsmith"
+#: Hooks that json.loads calls and whose ValueError it turns into its own decoding error.
+JSON_HOOKS = {("verify.py", "_no_duplicate_keys"), ("verify.py", "_no_constant")}
+
+
+def _functions_raising(exc_names: set[str]):
+    import ast
+
+    for path in sorted(PACKAGE.rglob("*.py")):
+        tree = ast.parse(path.read_text(encoding="utf-8"))
+        for func in [n for n in ast.walk(tree) if isinstance(n, (ast.FunctionDef, ast.AsyncFunctionDef))]:
+            for node in ast.walk(func):
+                if isinstance(node, ast.Raise) and isinstance(node.exc, ast.Call) \
+                        and isinstance(node.exc.func, ast.Name) and node.exc.func.id in exc_names:
+                    yield str(path.relative_to(PACKAGE)), func.name, node.lineno
+
+
+def test_anticipated_errors_are_the_projects_own():
+    """A bare ValueError/TypeError escapes the command line's handler (it catches
+    OddsmithError); argument problems raise oddsmith.errors.ArgumentError (also a ValueError)."""
+    found = {(f, name, line) for f, name, line in _functions_raising({"ValueError", "TypeError"})
+             if (f, name) not in JSON_HOOKS}
+    assert found == set()
+
+
+def test_no_private_name_is_imported_from_another_module():
+    import ast
+
+    found = []
+    for path in sorted(PACKAGE.rglob("*.py")):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("oddsmith"):
+                found += [f"{path.name}: {node.module}.{a.name}" for a in node.names
+                          if a.name.startswith("_") and not a.name.startswith("__")]
+            elif isinstance(node, ast.Attribute) and isinstance(node.value, ast.Name) \
+                    and node.attr.startswith("_") and not node.attr.startswith("__") \
+                    and (PACKAGE / f"{node.value.id}.py").is_file() and node.value.id != path.stem:
+                found.append(f"{path.name}: {node.value.id}.{node.attr}")
+    assert found == []

@@ -98,7 +98,7 @@ def test_diff_of_a_cost_change_names_only_threshold_related_changes(two_builds):
     assert diff["metrics"]["threshold_free"] == []
     assert {c["name"] for c in diff["metrics"]["at_cutoff"]} >= {"cutoff", "cost_per_1000"}
     cutoff = {c["name"]: c for c in diff["cutoff"]}
-    assert cutoff["costs.cost_fp"]["a"] == 1200 and cutoff["costs.cost_fp"]["b"] == 1500
+    assert cutoff["costs.false_positive"]["a"] == 1200 and cutoff["costs.false_positive"]["b"] == 1500
     # Bayes cut-off c_fp / (c_fp + c_fn) (Elkan 2001): 1200/7200 -> 1500/7500
     assert cutoff["bayes.cutoff"]["a"] == pytest.approx(1 / 6) and cutoff["bayes.cutoff"]["b"] == pytest.approx(0.2)
 

@@ -9,7 +9,6 @@ package modules the copy carries its own ``oddsmith/`` and runs with PYTHONPATH 
 
 from __future__ import annotations
 
-import ast
 import re
 import shutil
 import subprocess
@@ -20,6 +19,7 @@ import pandas as pd
 import pytest
 
 from conftest import DEMO_CONFIG, ROOT, run_snakemake
+from oddsmith.runner import clear_code_cache, code_closure, import_statements, script_fingerprint
 
 RUN = "work/lease_demo"  # the staging folder the jobs write
 CANDIDATES = {"logit_main", "probit_main", "cloglog_main", "lasso", "ridge", "logit_compact", "baseline"}
@@ -78,6 +78,9 @@ def _copy(built: Path, dest: Path, *, with_package: bool = False) -> tuple[Path,
     env = {}
     if with_package:
         shutil.copytree(ROOT / "oddsmith", dest / "oddsmith", ignore=shutil.ignore_patterns("__pycache__"))
+        # with pyproject.toml the copy is a source checkout: the package finds the copy's
+        # schemas/ and reports/ (oddsmith.resources), not the data packages of an install
+        shutil.copy2(ROOT / "pyproject.toml", dest / "pyproject.toml")
         env = {"PYTHONPATH": str(dest)}
         found = subprocess.run([sys.executable, "-c", "import oddsmith; print(oddsmith.__file__)"], cwd=dest / "config",
                                env={"PYTHONPATH": str(dest)}, capture_output=True, text=True).stdout.strip()
@@ -187,52 +190,97 @@ def test_one_changed_data_value_reruns_everything(built, every_job, tmp_path):
     assert planned(project, *targets(project), env=env) == every_job
 
 
-# ---- every module a rule runs is in its code fingerprint (static check, no workflow run) ----
-
-#: Imports reached only from command-line entry points of a rule's modules, never by the rule.
-CLI_ONLY = {"score": {"verify", "manifest", "rescore"}}
+# ---- the code fingerprint follows the imports (static checks, no workflow run) ----
 
 
-def _imports(path: Path) -> set[str]:
-    found = set()
-    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
-        if isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
-            if node.module == "oddsmith":
-                found |= {alias.name for alias in node.names}
-            elif node.module.startswith("oddsmith."):
-                found.add(node.module.removeprefix("oddsmith.").replace(".", "/"))
-        elif isinstance(node, ast.Import):
-            found |= {a.name.removeprefix("oddsmith.").replace(".", "/") for a in node.names if a.name.startswith("oddsmith.")}
-    return found
+def _write(folder: Path, files: dict[str, str]) -> None:
+    for name, text in files.items():
+        (folder / name).parent.mkdir(parents=True, exist_ok=True)
+        (folder / name).write_text(text, encoding="utf-8")
 
 
-def _closure(script: str) -> set[str]:
-    """Package modules a script imports, directly or through other package modules (lazy imports too)."""
-    todo, seen = list(_imports(ROOT / script)), set()
-    while todo:
-        module = todo.pop()
-        if module not in seen:
-            seen.add(module)
-            source = ROOT / "oddsmith" / f"{module}.py"
-            todo += list(_imports(source)) if source.is_file() else []
-    return seen
+def test_the_import_walk_reads_every_import_form(tmp_path):
+    """A hand-made package: each import form reaches exactly the module it names, imports in
+    function bodies and relative imports included; modules never imported stay out."""
+    package = tmp_path / "oddsmith"
+    _write(package, {
+        "__init__.py": "", "stages/__init__.py": "",
+        "stages/go.py": "import oddsmith.alpha\nfrom .. import beta\n",
+        "alpha.py": "from oddsmith.gamma import g\n",
+        "beta.py": "def f():\n    from oddsmith import delta\n    return delta\n",
+        "gamma.py": "g = 1\nRESOURCE_FILES = ('reports/g.j2',)\n",
+        "delta.py": "import json\nimport oddsmith.stages.go\n",
+        "unused.py": "",
+    })
+    _write(tmp_path, {"scripts/go.py": "from oddsmith.stages.go import *\n"})
+    modules, resources = code_closure(tmp_path / "scripts" / "go.py", root=package)
+    assert modules == ["__init__", "alpha", "beta", "delta", "gamma", "stages/__init__", "stages/go"]
+    assert resources == ["reports/g.j2"]
 
 
-def _fingerprinted_modules() -> dict[str, tuple[set[str], str]]:
-    """Per rule: the modules named in its ``code=code(...)`` param and the script."""
-    out = {}
+def _fingerprints(package: Path) -> dict[str, str]:
+    return {script.stem: script_fingerprint(f"scripts/{script.name}", root=package)
+            for script in sorted((ROOT / "scripts").glob("*.py"))}
+
+
+@pytest.fixture()
+def project_copy(tmp_path, monkeypatch) -> Path:
+    """The scripts, templates, schemas and a copy of the package, as the current folder."""
+    for part in ("scripts", "reports", "schemas", "oddsmith"):
+        shutil.copytree(ROOT / part, tmp_path / part, ignore=shutil.ignore_patterns("__pycache__"))
+    monkeypatch.chdir(tmp_path)
+    return tmp_path
+
+
+def _changed_by(project: Path, path: str) -> set[str]:
+    before = _fingerprints(project / "oddsmith")
+    with open(project / path, "a", encoding="utf-8") as handle:
+        handle.write("\n# an edit that changes the file's bytes\n")
+    clear_code_cache()
+    after = _fingerprints(project / "oddsmith")
+    return {name for name in before if before[name] != after[name]}
+
+
+@pytest.mark.parametrize(("path", "rules"), [
+    # the scripts that import oddsmith.metrics, directly or through another module
+    ("oddsmith/metrics.py", {"fit", "compare", "challenger", "threshold", "evaluate", "apply_cutoff"}),
+    # the drift page imports the card module for its URL fetcher
+    ("oddsmith/card.py", {"card", "score"}),
+    ("oddsmith/manifest.py", {"manifest", "publish"}),
+    ("oddsmith/io.py", {"validate", "split", "features", "fit", "compare", "challenger", "threshold", "evaluate",
+                        "apply_cutoff", "model_figures", "figures", "manifest", "card", "score", "publish"}),
+    ("reports/macros.html.j2", {"card"}),
+    ("reports/model_card.css", {"card", "score"}),
+    ("reports/drift.html.j2", {"score"}),
+    # the candidate defaults and the cost vocabulary are read from the schema (oddsmith.settings)
+    ("schemas/config.schema.yaml", {"fit", "challenger", "threshold", "evaluate", "apply_cutoff", "score"}),
+    ("scripts/split.py", {"split"}),
+])
+def test_an_edit_changes_exactly_the_fingerprints_of_the_rules_that_run_it(project_copy, path, rules):
+    assert _changed_by(project_copy, path) == rules
+
+
+def test_the_statement_scan_finds_the_imports_a_full_parse_finds():
+    """The walk parses only the lines that start an import (for speed): on every file of the
+    package and every script it finds exactly the import statements of a full parse."""
+    import ast
+
+    def dumps(nodes):
+        return sorted(ast.dump(n) for n in nodes if isinstance(n, (ast.Import, ast.ImportFrom)))
+
+    for path in sorted([*(ROOT / "oddsmith").rglob("*.py"), *(ROOT / "scripts").glob("*.py")]):
+        source = path.read_text(encoding="utf-8")
+        assert dumps(import_statements(source)) == dumps(ast.walk(ast.parse(source))), path
+
+
+def test_every_rule_fingerprints_the_script_it_runs():
+    """``code=code(script=...)`` names the rule's own script: no hand-kept module lists."""
+    found = {}
     for smk in sorted((ROOT / "rules").glob("*.smk")):
         for block in re.split(r"(?m)^\s*rule ", smk.read_text(encoding="utf-8"))[1:]:
-            match = re.search(r'code=code\((.*?)script="([^"]+)"', block, re.S)
-            if match:
-                out[block.split(":", 1)[0].strip()] = (set(re.findall(r'"([^"]+)"', match.group(1))), match.group(2))
-    return out
-
-
-def test_every_package_module_a_rule_runs_is_in_its_fingerprint():
-    rules = _fingerprinted_modules()
-    assert {"validate", "fit", "threshold", "evaluate", "manifest"} <= set(rules)
-    base = {"runner", "io", "errors"}
-    missing = {rule: sorted(_closure(script) - modules - base - CLI_ONLY.get(rule, set()))
-               for rule, (modules, script) in rules.items()}
-    assert {rule: m for rule, m in missing.items() if m} == {}
+            code = re.search(r"code=code\((.*?)\)", block, re.S)
+            script = re.search(r'script:\s*"\.\./([^"]+)"', block)
+            if script:
+                found[block.split(":", 1)[0].strip()] = code and code.group(1)
+                assert code and code.group(1) == f'script="{script.group(1)}"', block[:200]
+    assert {"validate", "fit", "threshold", "evaluate", "manifest", "card", "publish"} <= set(found)

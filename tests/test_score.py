@@ -18,9 +18,10 @@ from oddsmith.errors import ArtifactError, ConfigError, ContractError, ManifestE
 from oddsmith.io import read_parquet
 from oddsmith.recipe import learn_recipe
 from oddsmith.score import (ScoringModel, check_batch, contributions, csv_bytes, design_matrix, feature_weights,
-                            load_artifacts, load_results_folder, neutralise_text, reason_reference, score_frame,
+                            load_artifacts, neutralise_text, reason_reference, score_frame,
                             top_reasons)
-from oddsmith.stages.score import OUTPUTS, run_score, score_folder
+from oddsmith.stages.score import OUTPUTS, run_score
+from oddsmith.stages.score_commands import load_results_folder, score_folder
 
 from conftest import ROOT, run_snakemake
 

@@ -154,7 +154,7 @@ def test_every_job_was_an_sbatch_submission_with_its_rule_request(slurm_build, s
     assert records, "submit.sh was never called"
     planned = _planned_jobs(slurm_build)
     planned.pop("all")  # the target rule runs no code and is never submitted
-    planned.pop("publish")  # a local rule: it links files on the submitting machine
+    planned.pop("publish")  # a localrule: it runs on the submitting machine
     submitted = collections.Counter(r["rule"] for r in records)
     assert submitted == planned, f"submitted {submitted}, planned {planned}"
     assert submitted["fit"] >= 2, "one job per candidate"

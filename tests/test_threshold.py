@@ -26,7 +26,7 @@ TOY_COUNTS = [
     (0.9, 1, 1, 0),
     (math.inf, 0, 0, 0),
 ]
-FP1_FN3 = {"cost_fp": 1, "cost_fn": 3}
+FP1_FN3 = {"false_positive": 1, "false_negative": 3}
 
 
 def _calibrated_sample(seed, n, a, b):
@@ -47,10 +47,10 @@ def _slow_curve(y, p, costs):
             tn += (not flagged) and outcome == 0
             fn += (not flagged) and outcome == 1
         total = (
-            costs["cost_tp"] * tp
-            + costs["cost_fp"] * fp
-            + costs["cost_tn"] * tn
-            + costs["cost_fn"] * fn
+            costs["true_positive"] * tp
+            + costs["false_positive"] * fp
+            + costs["true_negative"] * tn
+            + costs["false_negative"] * fn
         )
         rows.append((t, tp, fp, tn, fn, total / len(y)))
     return rows
@@ -61,15 +61,15 @@ def _slow_curve(y, p, costs):
 
 def test_bayes_cutoff_formula():
     # Elkan, "The Foundations of Cost-Sensitive Learning", IJCAI 2001
-    assert threshold.bayes_cutoff(cost_fp=1, cost_fn=4) == 0.2
-    assert threshold.bayes_cutoff(cost_fp=5, cost_fn=9, cost_tp=3, cost_tn=1) == 0.4
+    assert threshold.bayes_cutoff(false_positive=1, false_negative=4) == 0.2
+    assert threshold.bayes_cutoff(false_positive=5, false_negative=9, true_positive=3, true_negative=1) == 0.4
 
 
 @pytest.mark.parametrize(
     "costs, a, b, expected",
     [
-        ({"cost_fp": 1, "cost_fn": 4}, 2, 5, 0.2),
-        ({"cost_fp": 5, "cost_fn": 9, "cost_tp": 3, "cost_tn": 1}, 2, 3, 0.4),
+        ({"false_positive": 1, "false_negative": 4}, 2, 5, 0.2),
+        ({"false_positive": 5, "false_negative": 9, "true_positive": 3, "true_negative": 1}, 2, 3, 0.4),
     ],
 )
 def test_empirical_cutoff_recovers_elkan_on_calibrated_probabilities(costs, a, b, expected):
@@ -82,59 +82,13 @@ def test_empirical_cutoff_recovers_elkan_on_calibrated_probabilities(costs, a, b
     assert result["empirical"]["cost_per_1000"] <= result["bayes"]["cost_per_1000"]
 
 
-def test_costs_from_config_forms():
-    assert threshold.costs_from_config({"ratio_fn_to_fp": 5}) == {
-        "cost_fp": 1.0,
-        "cost_fn": 5.0,
-        "cost_tp": 0.0,
-        "cost_tn": 0.0,
-    }
-    full = {"false_positive": 2, "false_negative": 7, "true_positive": 1, "true_negative": 0.5}
-    assert threshold.costs_from_config(full) == {
-        "cost_fp": 2.0,
-        "cost_fn": 7.0,
-        "cost_tp": 1.0,
-        "cost_tn": 0.5,
-    }
-
-
-@pytest.mark.parametrize(
-    "config, message",
-    [
-        ({"ratio_fn_to_fp": 0}, "ratio_fn_to_fp must be > 0, got 0.0"),
-        ({"ratio_fn_to_fp": -5}, "ratio_fn_to_fp must be > 0, got -5.0"),
-        ({"ratio_fn_to_fp": float("inf")}, "ratio_fn_to_fp must be finite, got inf"),
-        ({"ratio_fn_to_fp": float("nan")}, "ratio_fn_to_fp must be finite, got nan"),
-        ({"ratio_fn_to_fp": True}, "ratio_fn_to_fp must be a number, got True"),
-        ({"ratio_fn_to_fp": "5"}, "ratio_fn_to_fp must be a number, got '5'"),
-        ({"ratio_fn_to_fp": 5, "false_positive": 1}, "cannot be combined .*'false_positive'"),
-        ({"false_positive": 0, "false_negative": 5}, "false_positive must be > 0, got 0.0"),
-        ({"false_positive": 1, "false_negative": -2}, "false_negative must be > 0, got -2.0"),
-        ({"false_positive": 1, "false_negative": 5, "true_negative": -1}, "got -1.0"),
-        (
-            {"false_positive": 1, "false_negative": 5, "true_negative": 1},
-            "cost_fp must exceed cost_tn.*cost_fp=1.0, cost_tn=1.0",
-        ),
-        (
-            {"false_positive": 1, "false_negative": 5, "true_positive": 6},
-            "cost_fn must exceed cost_tp.*cost_fn=5.0, cost_tp=6.0",
-        ),
-        ({"false_positive": 1}, "missing key 'false_negative'"),
-        ({"false_positive": 1, "false_negative": 5, "fp": 1}, "unknown key 'fp'"),
-    ],
-)
-def test_costs_from_config_rejects_bad_values(config, message):
-    with pytest.raises(CostError, match=message):
-        threshold.costs_from_config(config)
-
-
 @pytest.mark.parametrize(
     "kwargs, message",
     [
-        ({"cost_fp": 0, "cost_fn": 1}, "cost_fp must exceed cost_tn"),
-        ({"cost_fp": -1, "cost_fn": 1}, "cost_fp must be >= 0, got -1.0"),
-        ({"cost_fp": 1, "cost_fn": float("nan")}, "cost_fn must be finite, got nan"),
-        ({"cost_fp": 1, "cost_fn": 2, "cost_tn": 3}, "cost_fp=1.0, cost_tn=3.0"),
+        ({"false_positive": 0, "false_negative": 1}, "false_positive must exceed true_negative"),
+        ({"false_positive": -1, "false_negative": 1}, "false_positive must be >= 0, got -1.0"),
+        ({"false_positive": 1, "false_negative": float("nan")}, "false_negative must be finite, got nan"),
+        ({"false_positive": 1, "false_negative": 2, "true_negative": 3}, "false_positive=1.0, true_negative=3.0"),
     ],
 )
 def test_bayes_cutoff_rejects_bad_costs(kwargs, message):
@@ -169,7 +123,7 @@ def test_cost_curve_matches_slow_loop(seed):
     rng = np.random.default_rng(seed)
     p = np.round(rng.random(150), 1)  # heavy ties
     y = (rng.random(150) < p).astype(int)
-    costs = {"cost_fp": 2.0, "cost_fn": 7.0, "cost_tp": 0.5, "cost_tn": 0.25}
+    costs = {"false_positive": 2.0, "false_negative": 7.0, "true_positive": 0.5, "true_negative": 0.25}
     curve = threshold.cost_curve(y, p, costs=costs)
     slow = _slow_curve(y, p, costs)
     assert len(curve) == len(slow)
@@ -232,15 +186,15 @@ def test_choose_cutoff_toy_case_by_hand():
 
 
 def test_choose_cutoff_breaks_ties_toward_the_highest_cutoff():
-    # with cost_fn = 2 the totals are 4, 3, 4, 3, 5, 6, 8: 0.3 and 0.6 tie at 3
-    result = threshold.choose_cutoff(TOY_Y, TOY_P, costs={"cost_fp": 1, "cost_fn": 2}, bootstrap=0)
+    # with false_negative = 2 the totals are 4, 3, 4, 3, 5, 6, 8: 0.3 and 0.6 tie at 3
+    result = threshold.choose_cutoff(TOY_Y, TOY_P, costs={"false_positive": 1, "false_negative": 2}, bootstrap=0)
     assert result["empirical"]["cutoff"] == 0.6
     assert "ties go to the highest cut-off" in result["reason"]
 
 
 def test_choose_cutoff_can_flag_none():
     result = threshold.choose_cutoff(
-        [0, 1, 0, 1], [0.9, 0.2, 0.8, 0.1], costs={"cost_fp": 100, "cost_fn": 1}, bootstrap=50
+        [0, 1, 0, 1], [0.9, 0.2, 0.8, 0.1], costs={"false_positive": 100, "false_negative": 1}, bootstrap=50
     )
     json.dumps(result, allow_nan=False)
     assert result["empirical"]["flags_none"] is True
@@ -287,8 +241,8 @@ def test_impossible_constraints_report_the_closest_achievable_values():
         ({"max_flag_rate": 0}, r"max_flag_rate must be a number in \(0, 1\], got 0"),
         ({"min_sensitivity": 1.5}, r"min_sensitivity must be a number in \[0, 1\], got 1.5"),
         ({"bootstrap": -1}, "bootstrap must be a whole number >= 0, got -1"),
-        ({"costs": {"cost_fp": 1}}, "costs need cost_fp and cost_fn"),
-        ({"costs": {"false_positive": 1, "false_negative": 2}}, "use costs_from_config"),
+        ({"costs": {"false_positive": 1}}, "costs need false_positive and false_negative"),
+        ({"costs": {"cost_fp": 1, "cost_fn": 2}}, "unknown cost keys .*'cost_fn', 'cost_fp'"),
     ],
 )
 def test_choose_cutoff_rejects_bad_options(kwargs, message):
@@ -347,8 +301,8 @@ def test_choice_from_bins_equals_the_choice_from_the_whole_cost_curve(decimals):
     for case in range(40):
         y, p = _calibrated_sample(case, int(rng.integers(20, 1500)), 2, 5)
         p = p if decimals is None else np.round(p, decimals)
-        costs = threshold._resolve_costs({"cost_fp": float(rng.uniform(0.5, 3)), "cost_fn": float(rng.uniform(1, 8)),
-                                          "cost_tp": 0.25 * (case % 2)})
+        costs = threshold._resolve_costs({"false_positive": float(rng.uniform(0.5, 3)), "false_negative": float(rng.uniform(1, 8)),
+                                          "true_positive": 0.25 * (case % 2)})
         curve = threshold._curve_dict(y, p, costs)
         rows = threshold._BinnedRows(y, p, int(rng.integers(1, 50)),
                                      curve["cutoff"][threshold._lowest_cost_index(curve["total_cost"])])

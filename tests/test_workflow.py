@@ -118,6 +118,22 @@ def test_stratified_split_config(tmp_path):
     assert abs(parts["test"]["base_rate"] - parts["train"]["base_rate"]) < 0.002
 
 
+def test_ratio_cost_form_builds_the_threshold_choice(tmp_path):
+    """``costs: {ratio_fn_to_fp: 5}`` (config/README.md) runs through the workflow: the choice
+    records the costs once, as false positive 1 and false negative 5."""
+    project = copy_project(tmp_path / "ratio")
+    cfg_path = project / DEMO_CONFIG
+    cfg = yaml.safe_load(cfg_path.read_text())
+    cfg["costs"] = {"ratio_fn_to_fp": 5}
+    cfg_path.write_text(yaml.safe_dump(cfg))
+    run_snakemake(project, f"{STAGE}/threshold/choice.json")
+    choice = json.loads((project / STAGE / "threshold/choice.json").read_text())
+    assert choice["costs"] == {"false_positive": 1.0, "false_negative": 5.0, "true_positive": 0.0, "true_negative": 0.0}
+    assert "cost_units" not in choice
+    # Bayes cut-off with these costs: 1 / (1 + 5) (Elkan 2001)
+    assert choice["bayes"]["cutoff"] == pytest.approx(1 / 6)
+
+
 # ---- a configuration of its own: nothing of the demo's configuration reaches it ----
 
 OWN_CONTRACT = """\

@@ -7,6 +7,11 @@ from pathlib import Path
 
 from oddsmith.card import CardError, render_card
 
+#: The templates and stylesheet this stage renders (in the code fingerprint of its rule; see
+#: :data:`oddsmith.runner.RESOURCE_CONSTANT`). Named here rather than in :mod:`oddsmith.card`,
+#: which the drift page also imports for its URL fetcher only.
+RESOURCE_FILES = ("reports/model_card.html.j2", "reports/macros.html.j2", "reports/model_card.css")
+
 
 def run_card(*, manifest_path: str, out_html: str, out_pdf: str, out_sha256: str) -> dict:
     """Render the card of the run whose manifest is ``manifest_path`` into the outputs' folder."""

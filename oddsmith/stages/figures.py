@@ -11,6 +11,7 @@ from __future__ import annotations
 import logging
 
 from oddsmith import plots
+from oddsmith.errors import ArgumentError
 from oddsmith.io import read_json, read_parquet, write_bytes_atomic
 
 log = logging.getLogger("oddsmith.figures")
@@ -24,7 +25,7 @@ def _check_out(out: dict, names: tuple[str, ...]) -> None:
     missing = [name for name in names if name not in out]
     unknown = sorted(name for name in out if name not in names)
     if missing or unknown:
-        raise ValueError(f"out must name a path for each of {list(names)}; missing {missing}, unknown {unknown}")
+        raise ArgumentError(f"out must name a path for each of {list(names)}; missing {missing}, unknown {unknown}")
 
 
 def _write(out: dict, svgs: dict) -> dict:
@@ -53,7 +54,7 @@ def run_model_figures(*, probability_metrics_path: str, selected_path: str, mode
     _check_out(out, MODEL_FIGURES)
     selected = read_json(selected_path)["candidate"]
     if selected not in model_paths:
-        raise ValueError(f"selected candidate {selected!r} has no model path; known: {sorted(model_paths)}")
+        raise ArgumentError(f"selected candidate {selected!r} has no model path; known: {sorted(model_paths)}")
     evaluation = read_json(probability_metrics_path)
     sds = read_json(recipe_path)["sds"]
     return _write(out, {"reliability": plots.reliability_svg(evaluation["reliability"]),

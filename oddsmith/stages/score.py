@@ -1,6 +1,7 @@
 """The score stage: a new batch scored with the frozen model, with reason codes and a drift
-page. Run by the ``score`` rule (inputs from the build itself) and by ``oddsmith score``
-(a finished results folder, verified against its manifest first).
+page. Run by the ``score`` rule (inputs from the build itself) and, through
+:mod:`oddsmith.stages.score_commands`, by ``oddsmith score`` (a finished results folder,
+verified against its manifest first).
 
 Everything is computed in memory first; files are written only when every check passed.
 Outputs (same names in both cases): ``scores.parquet``, ``scores.csv``, ``summary.json``,
@@ -13,17 +14,19 @@ import logging
 from pathlib import Path
 
 from oddsmith import drift
-from oddsmith.errors import ArtifactError, ConfigError
+from oddsmith.errors import ConfigError
 from oddsmith.io import canonical_json, write_bytes_atomic, write_parquet
 from oddsmith.resources import template_dir
 from oddsmith.score import (DEFAULT_TOP_K, EXTRA_COLUMN_POLICIES, REFERENCES, ScoringModel, check_batch,
-                            csv_bytes, feature_weights, file_source, load_artifacts, load_results_folder, probabilities,
+                            csv_bytes, feature_weights, file_source, load_artifacts, probabilities,
                             read_batch, reason_reference, score_frame, score_summary)
 
 log = logging.getLogger("oddsmith.score")
 OUTPUTS = ("scores.parquet", "scores.csv", "summary.json", "drift.json", "drift.html", "drift.pdf")
 TEMPLATE = template_dir() / "drift.html.j2"
 CARD_STYLESHEET = "model_card.css"  # owned by the model card
+#: The drift page's template and the card stylesheet it reuses (in the score rule's code fingerprint).
+RESOURCE_FILES = ("reports/drift.html.j2", "reports/model_card.css")
 DEFAULTS = {"top_k": DEFAULT_TOP_K, "reference": "training_mean", "extra_columns": "reject", "carry_columns": []}
 
 
@@ -90,8 +93,8 @@ def write_outputs(outputs: dict, paths: dict) -> None:
 
 
 def run_score(*, new_path: str, recipe_path: str, selected_path: str, model_paths: dict, choice_path: str,
-              contract_path: str, data_path: str, assignment_path: str, data: dict, scoring: dict, template: str,
-              stylesheets: list, outputs: dict) -> dict:
+              contract_path: str, data_path: str, assignment_path: str, data: dict, scoring: dict,
+              outputs: dict, template=TEMPLATE, stylesheets: list | None = None) -> dict:
     """The score rule: score ``new_path`` with this build's selected model, write the outputs.
 
     ``new_path`` must resolve inside the project folder (the working directory) unless
@@ -104,7 +107,8 @@ def run_score(*, new_path: str, recipe_path: str, selected_path: str, model_path
                         source=str(Path(recipe_path).parent.parent))
     folder = Path(outputs["drift.pdf"]).parent
     result = score_batch(sm, batch_path=new_path, scoring=scoring, encoding=data.get("encoding", "utf-8"),
-                         template=template, stylesheets=stylesheets, folder=folder)
+                         template=template,
+                         stylesheets=card_stylesheets() if stylesheets is None else stylesheets, folder=folder)
     write_outputs(result, outputs)
     return result["summary.json"]
 
@@ -116,144 +120,7 @@ def _refuse_outside_project(path, *, allow: bool) -> None:
                           "copy the file into the project or set data.allow_outside_project: true")
 
 
-def score_folder(model_dir, batch_path, out_dir, *, overrides: dict | None = None, check: bool = True,
-                 overwrite: bool = False) -> dict:
-    """``oddsmith score``: verify ``model_dir``, score ``batch_path``, write into ``out_dir``.
-
-    ``out_dir`` may not lie inside ``model_dir`` (that would alter a verified folder), and
-    must be new or empty unless ``overwrite`` is true (the outputs then replace same-named
-    files; other files in it are left alone).
-    Settings come from the folder's recorded ``scoring`` config, then ``overrides``.
-    """
-    model_dir, out_dir = Path(model_dir), Path(out_dir)
-    if out_dir.resolve() == model_dir.resolve() or model_dir.resolve() in out_dir.resolve().parents:
-        raise ArtifactError(f"output folder {out_dir} lies inside the results folder {model_dir}; "
-                            "choose another one (the results folder must stay as verified)")
-    _refuse_occupied(out_dir, overwrite=overwrite)
-    sm, config = load_results_folder(model_dir, check=check)
-    scoring = dict(config.get("scoring") or {}) | {k: v for k, v in (overrides or {}).items() if v is not None}
-    out_dir.mkdir(parents=True, exist_ok=True)
-    result = score_batch(sm, batch_path=batch_path, scoring=scoring,
-                         encoding=config["data"].get("encoding", "utf-8"),
-                         stylesheets=card_stylesheets(), folder=out_dir)
-    write_outputs(result, {name: out_dir / name for name in OUTPUTS})
-    return result["summary.json"]
-
-
-def _refuse_occupied(out_dir: Path, *, overwrite: bool) -> None:
-    if out_dir.exists() and not out_dir.is_dir():
-        raise ArtifactError(f"output folder {out_dir} exists and is not a folder; choose another -o OUT_DIR")
-    if not overwrite and out_dir.is_dir() and any(out_dir.iterdir()):
-        found = sorted(p.name for p in out_dir.iterdir())
-        raise ArtifactError(f"output folder {out_dir} is not empty (holds {', '.join(found[:5])}"
-                            f"{', ...' if len(found) > 5 else ''}); choose a new folder or give --overwrite "
-                            "to replace the outputs in it")
-
-
 def card_stylesheets() -> list[Path]:
     """The model card's stylesheet, reused (read, never changed) by the drift page, if present."""
     path = template_dir() / CARD_STYLESHEET
     return [path] if path.is_file() else []
-
-
-# ---------------------------------------------------------------------------- command line
-
-
-SCORE_DESCRIPTION = """\
-Score new rows with the model a finished build selected.
-
-MODEL_DIR is a results folder (e.g. results/lease_demo); it is first verified against its
-manifest, and a changed or incomplete folder is refused. NEW.csv holds the rows to score, with
-the columns of the data contract (the outcome column is not needed). For every row the outputs
-give the probability of the adverse outcome, the decision at the adopted cut-off ("flag" or
-"pass") and the features that pushed the score most toward the adverse outcome (reason codes).
-A drift report compares NEW.csv with the development data (population stability index).
-
-Outputs in OUT_DIR: scores.parquet, scores.csv, summary.json, drift.json, drift.html, drift.pdf.
-OUT_DIR must be new or empty unless --overwrite is given; MODEL_DIR is never written to.
-
-example:
-  oddsmith score results/lease_demo data_demo/lease_applications_2026q1.csv -o scored_2026q1"""
-
-RESCORE_DESCRIPTION = """\
-Score one row before and after changing some of its inputs, to see how the probability, the
-decision and each feature's contribution move ("what if this applicant's debt-service ratio
-were 0.3?").
-
-The row is taken from a CSV file by its id (--row ID --data FILE) or given as a JSON object
-(--record). Each --set FEATURE=VALUE is checked against the data contract like a value in a
-scored file: a value the contract does not allow is refused with the contract's reason, and
-a value the feature recipe handles by a stated policy (a missing value filled, an unseen level)
-is reported. MODEL_DIR is verified against its manifest first; nothing is written.
-
-example:
-  oddsmith rescore results/lease_demo --row LB-000002 \\
-      --data data_demo/lease_applications_2026q1.csv --set debt_service_ratio=0.3"""
-
-
-def register_commands(sub) -> None:
-    """Add ``score`` and ``rescore`` to the ``oddsmith`` command line."""
-    import argparse
-
-    raw = argparse.RawDescriptionHelpFormatter
-    p = sub.add_parser("score", help="score a file of new rows with a finished build's model (plus a drift report)",
-                       description=SCORE_DESCRIPTION, formatter_class=raw)
-    p.add_argument("model_dir", metavar="MODEL_DIR", help="a finished results folder, e.g. results/lease_demo")
-    p.add_argument("new", metavar="NEW.csv", help="the rows to score (the outcome column is not needed)")
-    p.add_argument("-o", "--out", required=True, metavar="OUT_DIR",
-                   help="folder for the outputs: new or empty, and not inside MODEL_DIR")
-    p.add_argument("--overwrite", action="store_true",
-                   help="write into a non-empty OUT_DIR, replacing earlier outputs of the same names")
-    p.add_argument("--top-k", type=int, metavar="K",
-                   help="reason codes per row (default: the build's scoring.top_k, else 3)")
-    p.add_argument("--reference", choices=REFERENCES,
-                   help="what a feature's contribution is measured against: its partial score at the training "
-                        "mean of each design column, or its lowest partial score among the training rows "
-                        "(default: the build's scoring.reference, else training_mean)")
-    p.add_argument("--extra-columns", choices=EXTRA_COLUMN_POLICIES,
-                   help="columns of NEW.csv that the data contract does not declare: refuse the file (reject) or "
-                        "leave them out (ignore) (default: the build's scoring.extra_columns, else reject)")
-    p.set_defaults(func=_cmd_score)
-    w = sub.add_parser("rescore", help="one row's probability and decision before and after changing inputs",
-                       description=RESCORE_DESCRIPTION, formatter_class=raw)
-    w.add_argument("model_dir", metavar="MODEL_DIR", help="a finished results folder, e.g. results/lease_demo")
-    source = w.add_mutually_exclusive_group(required=True)
-    source.add_argument("--row", metavar="ID", help="id of the row to take from --data")
-    source.add_argument("--record", metavar="JSON",
-                        help='the row as a JSON object of column: value, inline (\'{"credit_score": 640, ...}\') '
-                             "or the path of a JSON file")
-    w.add_argument("--data", metavar="FILE", help="the CSV file holding the row named by --row")
-    w.add_argument("--set", dest="settings", action="append", default=[], metavar="FEATURE=VALUE",
-                   help="a changed input, as a CSV cell would hold it (repeat for several); "
-                        "FEATURE= with no value means missing")
-    w.add_argument("--reference", choices=REFERENCES,
-                   help="what contributions are measured against (default: the build's scoring.reference, "
-                        "else training_mean)")
-    w.add_argument("--json", action="store_true", help="print the result as JSON instead of a table")
-    w.set_defaults(func=_cmd_rescore)
-
-
-def _cmd_score(args) -> int:
-    summary = score_folder(args.model_dir, args.new, args.out, overwrite=args.overwrite, overrides={
-        "top_k": args.top_k, "reference": args.reference, "extra_columns": args.extra_columns})
-    cutoff = "none" if summary["cutoff"] is None else f"{summary['cutoff']:.4f}"
-    print(f"scored {summary['rows']:,} rows of {args.new}: {summary['flagged']:,} flagged "
-          f"({summary['flag_rate']:.1%}) at cut-off {cutoff}; outputs in {args.out}")
-    return 0
-
-
-def _cmd_rescore(args) -> int:
-    from oddsmith.rescore import format_rescore, parse_settings, read_record, rescore_row, row_from_file, row_from_record
-
-    if args.row is not None and not args.data:
-        raise ConfigError("--row needs --data FILE (the CSV holding that row)")
-    sm, config = load_results_folder(args.model_dir)
-    changes = parse_settings(args.settings)
-    if args.row is not None:
-        row = row_from_file(sm, args.data, args.row, encoding=config["data"].get("encoding", "utf-8"))
-    else:
-        row = row_from_record(sm, read_record(args.record))
-    reference = reason_reference(sm, args.reference or (config.get("scoring") or {}).get("reference") or "training_mean")
-    result = rescore_row(sm, row, changes, reference=reference)
-    print(canonical_json(result).decode("utf-8") if args.json else format_rescore(result), end="")
-    return 0

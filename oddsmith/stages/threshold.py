@@ -6,24 +6,27 @@ from __future__ import annotations
 import logging
 
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
-from oddsmith.threshold import choose_cutoff, cost_curve, costs_from_config
+from oddsmith.settings import COST_KEYS
+from oddsmith.threshold import choose_cutoff, cost_curve
 
 log = logging.getLogger("oddsmith.threshold")
-COST_KEYS = ("false_positive", "false_negative", "true_positive", "true_negative", "ratio_fn_to_fp")
 
 
 def run_threshold(*, selected_path: str, oof_paths: dict, costs: dict, out_choice: str, out_curve: str) -> dict:
-    """Choose the cut-off for the selected candidate; write the choice and the cost curve."""
+    """Choose the cut-off for the selected candidate; write the choice and the cost curve.
+
+    ``costs`` is the checked configuration's ``costs`` section, already normalised
+    (:func:`oddsmith.config.check_config`); the choice records the four costs once, as
+    ``costs``."""
     selected = read_json(selected_path)["candidate"]
     oof = read_parquet(oof_paths[selected])
     y, p = oof["y"].to_numpy(), oof["p"].to_numpy()
-    money = costs_from_config({k: costs[k] for k in COST_KEYS if k in costs})
+    money = {k: costs[k] for k in COST_KEYS}
     choice = choose_cutoff(y, p, costs=money, max_flag_rate=costs["max_flag_rate"],
                            min_sensitivity=costs["min_sensitivity"], bootstrap=costs["bootstrap"],
                            seed=costs["seed"], adopt=costs["adopt"])
     choice["candidate"] = selected
     choice["source"] = "out-of-fold predictions of the selected candidate on the training part"
-    choice["cost_units"] = {k: costs[k] for k in COST_KEYS if k in costs}
     log.info("adopted %s cut-off %s: %s", choice["adopted"], choice["adopted_cutoff"], choice["reason"])
     write_parquet(out_curve, cost_curve(y, p, costs=money))
     write_json(out_choice, choice)
