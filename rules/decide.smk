@@ -56,7 +56,16 @@ rule evaluate:
         runtime=RES["runtime"],
     params:
         candidates=CANDIDATES,
-        data={k: CONFIG["data"][k] for k in ("id_column", "target", "date_column")},
+        data={
+            k: CONFIG["data"][k]
+            for k in (
+                "id_column",
+                "target",
+                "date_column",
+                "outcome_window_months",
+                "extraction_date",
+            )
+        },
         fairness=CONFIG["fairness"],
         feature_names=[f["name"] for f in CONFIG["features"]],
         evaluation=CONFIG["evaluation"],

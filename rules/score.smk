@@ -61,6 +61,7 @@ if SCORING["data"]:
                 for k in ("id_column", "target", "encoding", "allow_outside_project")
             },
             scoring=SCORING,
+            monitoring=CONFIG["monitoring"],
             code=code(
                 "stages/score",
                 "score",

@@ -28,12 +28,15 @@ DEFAULTS = {"top_k": DEFAULT_TOP_K, "reference": "training_mean", "extra_columns
 
 
 def score_batch(sm: ScoringModel, *, batch_path, scoring: dict, encoding: str = "utf-8", template=TEMPLATE,
-                stylesheets=(), folder=".") -> dict:
+                stylesheets=(), folder=".", monitoring: dict | None = None) -> dict:
     """Score one batch; return every output in memory (name -> DataFrame, dict or bytes).
 
     ``scoring`` holds ``top_k``, ``reference``, ``extra_columns`` and ``carry_columns``
     (the config section ``scoring``). ``folder`` is where the PDF renderer may read files.
+    ``monitoring`` (the config section) gives the PSI limits; missing keys take the defaults.
     """
+    limits = {"psi_warning": drift.BAND_LOW, "psi_action": drift.BAND_HIGH} | {
+        k: v for k, v in (monitoring or {}).items() if k in ("psi_warning", "psi_action")}
     settings = _settings(sm, scoring)
     raw = read_batch(batch_path, encoding=encoding)
     batch, ignored = check_batch(sm, raw, extra_columns=settings["extra_columns"], source=str(batch_path))
@@ -46,7 +49,7 @@ def score_batch(sm: ScoringModel, *, batch_path, scoring: dict, encoding: str = 
         development=sm.training, batch=batch, features=sm.recipe["features"],
         development_scores=probabilities(sm, sm.training), batch_scores=scored["probability"].to_numpy(),
         model_features=_model_features(sm),
-        other_columns=[c for c in sm.contract["columns"] if c not in (sm.id_column, sm.target)])
+        other_columns=[c for c in sm.contract["columns"] if c not in (sm.id_column, sm.target)], **limits)
     log.info("scored %d rows: %d flagged; score PSI %.4f; largest feature PSI %s", len(scored), summary["flagged"],
              report["score"]["psi"], report["ranking"][:1])
     html = drift.render_html(report, summary, template_path=template, batch_name=Path(batch_path).name,
@@ -91,7 +94,7 @@ def write_outputs(outputs: dict, paths: dict) -> None:
 
 def run_score(*, new_path: str, recipe_path: str, selected_path: str, model_paths: dict, choice_path: str,
               contract_path: str, data_path: str, assignment_path: str, data: dict, scoring: dict, template: str,
-              stylesheets: list, outputs: dict) -> dict:
+              stylesheets: list, outputs: dict, monitoring: dict | None = None) -> dict:
     """The score rule: score ``new_path`` with this build's selected model, write the outputs.
 
     ``new_path`` must resolve inside the project folder (the working directory) unless
@@ -104,7 +107,7 @@ def run_score(*, new_path: str, recipe_path: str, selected_path: str, model_path
                         source=str(Path(recipe_path).parent.parent))
     folder = Path(outputs["drift.pdf"]).parent
     result = score_batch(sm, batch_path=new_path, scoring=scoring, encoding=data.get("encoding", "utf-8"),
-                         template=template, stylesheets=stylesheets, folder=folder)
+                         template=template, stylesheets=stylesheets, folder=folder, monitoring=monitoring)
     write_outputs(result, outputs)
     return result["summary.json"]
 
@@ -135,7 +138,7 @@ def score_folder(model_dir, batch_path, out_dir, *, overrides: dict | None = Non
     out_dir.mkdir(parents=True, exist_ok=True)
     result = score_batch(sm, batch_path=batch_path, scoring=scoring,
                          encoding=config["data"].get("encoding", "utf-8"),
-                         stylesheets=card_stylesheets(), folder=out_dir)
+                         stylesheets=card_stylesheets(), folder=out_dir, monitoring=config.get("monitoring"))
     write_outputs(result, {name: out_dir / name for name in OUTPUTS})
     return result["summary.json"]
 
