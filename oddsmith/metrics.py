@@ -824,3 +824,34 @@ def bootstrap_performance(y, p, *, replicates: int, seed: int, level: float = 0.
     return plan | {"resampling": BOOTSTRAP_RESAMPLING, "level": level, "seed": int(seed), "intervals": {
         name: bootstrap_interval(values[name], estimate=estimates.get(name), level=level, method=plan["method"])
         for name in BOOTSTRAP_METRICS}}
+
+
+WALD_INTERCEPT_METHOD = ("Wald interval of the offset logistic fit, a ± z/√Σq(1 − q): resampling within each "
+                         "outcome class fixes the number of events, which pins calibration-in-the-large, so "
+                         "the stratified bootstrap is not used for it")
+
+
+def calibration_intercept_interval(y, p, *, level: float = 0.95) -> dict:
+    """Wald interval of the calibration intercept (slope fixed at 1, ``logit(p)`` as offset).
+
+    The standard error is the inverse square root of the fit's information
+    ``Σ q(1 − q)``, ``q = expit(a + logit p)`` at the estimate ``a``.
+
+    Returns
+    -------
+    dict
+        ``estimate``, ``se``, ``lower``, ``upper``, ``level``, ``method``.
+    """
+    from scipy import stats
+    from scipy.special import expit
+
+    _check_level(level)
+    y, p = _validated(y, p)
+    _require_both_classes(y, "calibration")
+    lp = _logit(p)
+    a = _calibration_in_the_large(y, lp)
+    q = expit(a + lp)
+    se = 1.0 / math.sqrt(float(np.sum(q * (1.0 - q))))
+    half = float(stats.norm.ppf(0.5 + level / 2.0)) * se
+    return {"estimate": a, "se": se, "lower": a - half, "upper": a + half, "level": level,
+            "method": WALD_INTERCEPT_METHOD}

@@ -98,6 +98,7 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
     result = {"candidate": selected, "n": int(len(y)), "events": int(y.sum()), "overall": overall,
               "auc_ci": metrics.auc_confidence_interval(y, p, level=level),
               "bootstrap": _intervals(y, p, overall, evaluation), "outcome_maturity": None,
+              "calibration_intercept_ci": metrics.calibration_intercept_interval(y, p, level=level),
               "hosmer_lemeshow": metrics.hosmer_lemeshow(y, p),
               "reliability": metrics.reliability_bins(y, p, bins=evaluation["calibration_bins"]), "periods": None}
     scores = {"id": test[data["id_column"]].to_numpy(), "y": y, "p": p}
