@@ -83,7 +83,11 @@ SECTIONS = (
     ("caveats", "8. Caveats and recommendations"),
     ("method", "9. Method notes"),
     ("appendix", "Appendix. Artifacts and their hashes"),
+    ("sign-off", "Sign-off"),
 )
+#: Sign-off roles and PSI limits of a run whose configuration predates those keys.
+DEFAULT_SIGN_OFF_ROLES = ("model owner", "developer", "independent validator", "approver")
+DEFAULT_MONITORING = {"psi_warning": 0.10, "psi_action": 0.25}
 
 NUMBER_FORMATS = (
     "AUC, Gini, KS, calibration intercept and slope, adverse-impact ratios: 3 decimals",
@@ -234,10 +238,30 @@ def clip_html(text, limit: int = NAME_LIMIT) -> Markup:
     return escape(text)
 
 
+def fmt_interval(interval, decimals: int = 3, *, percent: bool = False) -> str:
+    """An interval record (``lower``, ``upper``) as ``low–high``; ``—`` when absent.
+
+    Examples
+    --------
+    >>> fmt_interval({"lower": -0.0421, "upper": 0.1}), fmt_interval(None)
+    ('−0.042 to 0.100', '—')
+    >>> fmt_interval({"lower": 0.25, "upper": 0.3125}, 1, percent=True)
+    '25.0–31.2%'
+    """
+    if not interval or _bad(interval.get("lower")) or _bad(interval.get("upper")):
+        return MISSING
+    scale = 100.0 if percent else 1.0
+    low, high = fmt_fixed(scale * interval["lower"], decimals), fmt_fixed(scale * interval["upper"], decimals)
+    # a dash between two numbers reads as a minus when either is negative
+    text = f"{low} to {high}" if MINUS in low + high else f"{low}–{high}"
+    return text + ("%" if percent else "")
+
+
 FILTERS = {
     "fixed": fmt_fixed, "sig": fmt_sig, "pct": fmt_pct, "count": fmt_count, "p": fmt_p, "short": fmt_hash,
     "clip": clip_html, "plain": clip, "g": lambda x: MISSING if _bad(x) else _minus(f"{x:g}"), "cutoff": lambda x: fmt_fixed(x, 4) if x is not None else "none (flag no case)",
     "cost": lambda x: fmt_fixed(x, 0), "metric": lambda x: fmt_fixed(x, 3), "loss": lambda x: fmt_fixed(x, 4),
+    "ci": fmt_interval, "ci_loss": lambda iv: fmt_interval(iv, 4), "ci_pct": lambda iv: fmt_interval(iv, 1, percent=True),
 }
 
 
@@ -371,8 +395,9 @@ def findings(run: dict) -> list[dict]:
 
     Each is ``{"status": "attention" | "note" | "ok", "check", "basis", "found", "advice"}``.
     """
-    out = [_epv_finding(run), _test_size_finding(run), *_calibration_findings(run), _subgroup_finding(run), *_group_size_findings(run),
-           _failed_finding(run), _challenger_finding(run), _leak_finding(run), _vif_finding(run), _drift_finding(run), *_decision_findings(run)]
+    out = [_epv_finding(run), _test_size_finding(run), *_maturity_findings(run), *_calibration_findings(run), _subgroup_finding(run),
+           *_group_size_findings(run), _failed_finding(run), _challenger_finding(run), _leak_finding(run), _vif_finding(run),
+           _drift_finding(run), *_decision_findings(run)]
     diag = run["diagnostics"]
     if diag["correlations"]["pairs"]:
         pairs = "; ".join(f"{clip(p['a'])} and {clip(p['b'])} (r = {fmt_fixed(p['r'])})"
@@ -402,6 +427,24 @@ def _epv_finding(run):
                         found, "Too few events for the number of parameters: estimates may be unstable and "
                         "optimistic. Reduce the parameters or collect more events.")
     return _finding("ok", "Events per parameter (training)", f"at least {MIN_EVENTS_PER_PARAMETER}", found)
+
+
+def _maturity_findings(run):
+    maturity = run["metrics"].get("outcome_maturity")
+    if not maturity:
+        return []
+    basis = (f"test applications dated on or before {maturity['matured_through']}: the extraction date "
+             f"{maturity['extraction_date']} ({maturity['extraction_date_source']}) minus the "
+             f"{maturity['window_months']}-month outcome window")
+    test, train = maturity["parts"]["test"], maturity["parts"]["train"]
+    if maturity["test_matured"]:
+        return [_finding("ok", "Outcome window (test)", basis, f"all {fmt_count(test['rows'])} test rows matured")]
+    found = (f"outcomes of applications after {maturity['matured_through']} may not have matured: "
+             f"{fmt_count(test['immature_rows'])} of {fmt_count(test['rows'])} test rows"
+             + (f" (and {fmt_count(train['immature_rows'])} training rows)" if train["immature_rows"] else ""))
+    return [_finding("attention", "Outcome window (test)", basis, found,
+                     "Some outcomes were still open at extraction: the event rate, the measured performance and the "
+                     "cut-off may be understated for those rows. Re-evaluate once every window has closed.")]
 
 
 def _calibration_findings(run):
@@ -680,6 +723,10 @@ def build_context(run: dict, *, release: dict | None) -> dict:
         "equal_count_bins": equal_count(run["metrics"]["reliability"]),
         "challenger": run.get("challenger"), "challenger_sentences": _challenger_sentences(run.get("challenger")),
         "challenger_finding": next(f for f in marks if f["check"] == CHALLENGER_CHECK),
+        "boot": run["metrics"].get("bootstrap"), "maturity": run["metrics"].get("outcome_maturity"),
+        "exclusions": (config.get("data") or {}).get("exclusions") or [],
+        "monitoring": DEFAULT_MONITORING | (config.get("monitoring") or {}),
+        "sign_off_roles": config["card"].get("sign_off_roles") or list(DEFAULT_SIGN_OFF_ROLES),
     }
 
 

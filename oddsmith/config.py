@@ -155,6 +155,25 @@ def _cross_key_problems(config: dict, project_dir: Path) -> list[str]:
     problems += _cost_problems(config["costs"])
     problems += _path_problems(data, project_dir)
     problems += _inference_problems(config)
+    problems += _validation_file_problems(config)
+    return problems
+
+
+def _validation_file_problems(config: dict) -> list[str]:
+    """Outcome window, extraction date and monitoring limits."""
+    import datetime as dt
+
+    data, monitoring, problems = config["data"], config["monitoring"], []
+    if data["outcome_window_months"] and not data["date_column"]:
+        problems.append("data.outcome_window_months: needs data.date_column (the date each outcome window starts)")
+    if data["extraction_date"] is not None:
+        try:
+            dt.date.fromisoformat(data["extraction_date"])
+        except ValueError:
+            problems.append(f"data.extraction_date: expected a real ISO date, found '{data['extraction_date']}'")
+    if monitoring["psi_warning"] >= monitoring["psi_action"]:
+        problems.append(f"monitoring: psi_warning ({monitoring['psi_warning']}) must be below psi_action "
+                        f"({monitoring['psi_action']})")
     return problems
 
 

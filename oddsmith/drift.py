@@ -16,9 +16,11 @@ Empty bins
     bin in both samples** before taking shares (``EMPTY_BIN_POLICY``). With no empty bin the
     effect is small (< 0.5 / n per bin).
 Bands
-    < 0.10 little change, 0.10 to 0.25 moderate shift, > 0.25 significant shift (0.10 and
-    0.25 themselves count as moderate): Yurdakul & Naranjo, *Journal of Risk Model
-    Validation* (2020). They are a rule of thumb for review, not a statistical test.
+    Below the warning limit little change, from the warning limit to the action limit
+    moderate shift, above the action limit significant shift (both limits themselves count
+    as moderate). The limits come from the configuration (``monitoring.psi_warning``,
+    ``monitoring.psi_action``); the defaults 0.10 and 0.25 are the rule of thumb of Yurdakul
+    & Naranjo, *Journal of Risk Model Validation* (2020), for review, not a statistical test.
 """
 
 from __future__ import annotations
@@ -38,6 +40,14 @@ MISSING_BIN = "(missing)"
 BAND_LOW, BAND_HIGH = 0.10, 0.25
 BAND_SOURCE = ("Yurdakul & Naranjo, Journal of Risk Model Validation (2020): < 0.10 little change, "
                "0.10-0.25 moderate, > 0.25 significant; a rule of thumb, not a test")
+
+
+def band_text(warning: float, action: float) -> str:
+    """How the bands were set, for the report (the rule of thumb when the limits are its own)."""
+    if (warning, action) == (BAND_LOW, BAND_HIGH):
+        return BAND_SOURCE
+    return (f"limits from the configuration (monitoring.psi_warning, monitoring.psi_action): < {warning:g} little "
+            f"change, {warning:g}-{action:g} moderate, > {action:g} significant")
 PSI_DEFINITION = "PSI = sum over bins of (a - e) * ln(a / e) = entropy(a, e) + entropy(e, a)"
 
 
@@ -79,17 +89,22 @@ def psi(expected_counts, actual_counts) -> float:
     return psi_from_shares(shares(e), shares(a))
 
 
-def band(value: float) -> str:
-    """The rule-of-thumb band of a PSI value (see the module docstring).
+def band(value: float, *, warning: float = BAND_LOW, action: float = BAND_HIGH) -> str:
+    """The band of a PSI value between the warning and action limits (module docstring).
 
     Examples
     --------
     >>> [band(v) for v in (0.05, 0.10, 0.25, 0.30)]
     ['little change', 'moderate shift', 'moderate shift', 'significant shift']
+    >>> band(0.15, warning=0.05, action=0.12)
+    'significant shift'
     """
-    if value < BAND_LOW:
+    if not 0 < warning < action:
+        raise OddsmithError(f"PSI limits must satisfy 0 < warning < action, got warning {warning!r}, "
+                            f"action {action!r}")
+    if value < warning:
         return "little change"
-    return "moderate shift" if value <= BAND_HIGH else "significant shift"
+    return "moderate shift" if value <= action else "significant shift"
 
 
 def decile_edges(values) -> np.ndarray:
@@ -161,7 +176,7 @@ def _result(kind: str, labels: list[str], e: np.ndarray, a: np.ndarray) -> dict:
 
 def drift_report(*, development: pd.DataFrame, batch: pd.DataFrame, features: list[dict],
                  development_scores, batch_scores, model_features: list[str] | None = None,
-                 other_columns: tuple = ()) -> dict:
+                 other_columns: tuple = (), psi_warning: float = BAND_LOW, psi_action: float = BAND_HIGH) -> dict:
     """PSI of the score and of each feature, ranked, plus missing-share shifts.
 
     Parameters
@@ -176,7 +191,10 @@ def drift_report(*, development: pd.DataFrame, batch: pd.DataFrame, features: li
         Features the scoring model uses (marked in the report).
     other_columns : sequence of str
         Further columns whose missing share is compared (e.g. every contract column).
+    psi_warning, psi_action : float
+        Limits of the bands (config ``monitoring``); recorded under ``limits``.
     """
+    limits = {"psi_warning": psi_warning, "psi_action": psi_action}
     rows = []
     for record in features:
         name = record["name"]
@@ -187,14 +205,17 @@ def drift_report(*, development: pd.DataFrame, batch: pd.DataFrame, features: li
         result["feature"] = name
         result["used_by_model"] = model_features is None or name in model_features
         result["missing_share_shift"] = result["batch_missing_share"] - result["development_missing_share"]
+        result["band"] = band(result["psi"], warning=psi_warning, action=psi_action)
         rows.append(result)
     rows.sort(key=lambda r: (-r["psi"], r["feature"]))
     score = numeric_drift(development_scores, batch_scores)
+    score["band"] = band(score["psi"], warning=psi_warning, action=psi_action)
     return {
         "method": {"psi": PSI_DEFINITION, "bins": "development deciles, intervals closed on the right; "
                    "categorical: one bin per level; missing values in their own bin",
-                   "empty_bins": EMPTY_BIN_POLICY, "bands": BAND_SOURCE,
+                   "empty_bins": EMPTY_BIN_POLICY, "bands": band_text(psi_warning, psi_action),
                    "development": "the training part of the development data"},
+        "limits": limits,
         "rows": {"development": int(len(development)), "batch": int(len(batch))},
         "score": score,
         "features": rows,

@@ -408,3 +408,94 @@ def _labels_of(groups, n: int, attribute: str | None) -> tuple[np.ndarray, str]:
     if attribute is None:
         attribute = groups.name if isinstance(groups, pd.Series) and groups.name else "group"
     return _group_labels(groups, n, str(attribute)), str(attribute)
+
+
+# ---------------------------------------------------------------------------------------------
+# intervals of the group figures
+
+#: Rates of each group with a Wilson interval: (key, numerator, denominator) of the counts.
+_WILSON_RATES = (("flag_rate", "flagged", "n"), ("favourable_rate", "favourable", "n"), ("tpr", "tp", "events"),
+                 ("fpr", "fp", "non_events"))
+#: Comparisons with the most favoured group that get a bootstrap interval.
+BOOTSTRAP_COMPARISONS = ("adverse_impact_ratio", "tpr_gap", "fpr_gap")
+
+
+def _group_counts(totals: np.ndarray) -> dict:
+    """Counts of one group from (rows, flagged, events, flagged events), any leading shape."""
+    n, flagged, events, tp = (totals[..., i] for i in range(4))
+    return {"n": n, "flagged": flagged, "favourable": n - flagged, "events": events, "tp": tp,
+            "non_events": n - events, "fp": flagged - tp}
+
+
+def _share(numerator, denominator):
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(denominator > 0, numerator / np.where(denominator > 0, denominator, 1.0), np.nan)
+
+
+def _comparisons(group: dict, reference: dict) -> dict:
+    """Adverse-impact ratio (favourable = not flagged) and TPR/FPR gaps; NaN where undefined."""
+    rate, top = _share(group["favourable"], group["n"]), _share(reference["favourable"], reference["n"])
+    return {"adverse_impact_ratio": _share(rate, top),
+            "tpr_gap": _share(group["tp"], group["events"]) - _share(reference["tp"], reference["events"]),
+            "fpr_gap": _share(group["fp"], group["non_events"]) - _share(reference["fp"], reference["non_events"])}
+
+
+def group_comparison_replicates(y, flagged, labels, assessed: list[str], reference: str, *, replicates: int,
+                                seed: int) -> dict:
+    """Every bootstrap replicate's adverse-impact ratio and TPR/FPR gaps of each group in
+    ``assessed`` against ``reference`` (held fixed), NaN where undefined.
+
+    Replicates resample rows as :func:`oddsmith.metrics.bootstrap_rows` states (stratified
+    by outcome, seeded per replicate), so replicate ``b`` here is the same resample as
+    replicate ``b`` of the evaluation's bootstrap.
+
+    Returns
+    -------
+    dict
+        group → comparison → array of ``replicates`` values.
+    """
+    y, flagged, labels = np.asarray(y), np.asarray(flagged, dtype=bool), np.asarray(labels)
+    columns = []
+    for group in assessed:
+        inside = labels == group
+        columns += [inside, inside & flagged, inside & (y == 1), inside & flagged & (y == 1)]
+    indicators = np.column_stack(columns).astype(float)
+    totals = np.empty((replicates, len(assessed), 4))
+    for first, counts in metrics.bootstrap_counts(y, replicates=replicates, seed=seed):
+        totals[first:first + counts.shape[0]] = (counts @ indicators).reshape(counts.shape[0], len(assessed), 4)
+    ref = _group_counts(totals[:, assessed.index(reference)])
+    return {group: _comparisons(_group_counts(totals[:, i]), ref) for i, group in enumerate(assessed)}
+
+
+def add_intervals(rows: list[dict], y, p, groups, *, cutoff, bootstrap: dict | None, level: float = 0.95) -> list[dict]:
+    """Rows of :func:`add_decisions` with an ``intervals`` record for each group assessed.
+
+    Flag rate, favourable rate, TPR and FPR get a Wilson score interval; the adverse-impact
+    ratio and the TPR/FPR gaps against the most favoured group (held fixed at the observed
+    one) a bootstrap interval when ``bootstrap`` (``replicates``, ``seed``, ``method`` of
+    the evaluation's bootstrap) is given. The rows are not modified; new ones are returned.
+    """
+    y, p = metrics.outcomes_and_probabilities(y, p)
+    labels = np.asarray(pd.Series(groups).astype(str))
+    flagged = np.zeros(p.shape, dtype=bool) if cutoff is None else p >= cutoff
+    assessed = [r["group"] for r in rows if not r["too_small"]]
+    reference = next((r["reference_group"] for r in rows if r.get("reference_group") is not None), None)
+    replicated = None
+    if bootstrap and reference is not None:
+        replicated = group_comparison_replicates(y, flagged, labels, assessed, reference,
+                                                 replicates=bootstrap["replicates"], seed=bootstrap["seed"])
+    out = []
+    for row in rows:
+        row = dict(row)
+        if not row["too_small"]:
+            inside = labels == row["group"]
+            counts = _group_counts(np.array([inside.sum(), (inside & flagged).sum(), y[inside].sum(),
+                                             (inside & flagged & (y == 1)).sum()], dtype=np.int64))
+            row["intervals"] = {key: metrics.wilson_interval(int(counts[num]), int(counts[den]), level=level)
+                                for key, num, den in _WILSON_RATES}
+            for key in BOOTSTRAP_COMPARISONS:
+                row["intervals"][key] = None if replicated is None else metrics.bootstrap_interval(
+                    replicated[row["group"]][key], estimate=row[key], level=level, method=bootstrap["method"]) | {
+                    "method": bootstrap["method"], "level": level}
+        out.append(row)
+    return out

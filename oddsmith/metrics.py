@@ -317,8 +317,9 @@ def hosmer_lemeshow(y, p, *, groups: int = 10) -> dict:
             "sample_check": hosmer_lemeshow_sample_check(expected, n_g)}
 
 
-def _rate_interval(events: int, n: int) -> tuple[float, float]:
-    """Wilson score 95% interval of ``events / n``, exact at the ends of [0, 1].
+def _rate_interval(events: int, n: int, *, level: float = 0.95) -> tuple[float, float]:
+    """Wilson score interval of ``events / n`` (95% unless ``level`` says otherwise), exact
+    at the ends of [0, 1].
 
     The closed form leaves rounding residue where the interval touches 0 or 1 (a lower bound
     of 8.7e-19 with no events, an upper bound 1e-16 below 1 with only events); the bound is
@@ -326,7 +327,7 @@ def _rate_interval(events: int, n: int) -> tuple[float, float]:
     """
     from statsmodels.stats.proportion import proportion_confint
 
-    low, high = (float(v) for v in proportion_confint(events, n, alpha=0.05, method="wilson"))
+    low, high = (float(v) for v in proportion_confint(events, n, alpha=1.0 - level, method="wilson"))
     rate = events / n
     low = 0.0 if events == 0 else min(max(low, 0.0), rate)
     high = 1.0 if events == n else max(min(high, 1.0), rate)
@@ -549,3 +550,350 @@ def summarise(y, p) -> dict:
         "hl_p_value": hl["p_value"],
         "notes": notes,
     }
+
+
+# ---------------------------------------------------------------------------------------------
+# intervals: Wilson for proportions, a stratified percentile bootstrap for the rest
+
+#: How every bootstrap replicate draws its rows (stated in every artifact that uses it).
+BOOTSTRAP_RESAMPLING = ("rows drawn with replacement within each outcome class (stratified by outcome: every "
+                        "replicate keeps the test part's numbers of events and non-events); replicate b draws "
+                        "from numpy's default generator seeded with [seed, b], events first, then non-events")
+PERCENTILE_METHOD = "percentile bootstrap (Efron & Tibshirani 1993, ch. 13)"
+WILSON_METHOD = "Wilson score interval (Wilson 1927)"
+#: Counts matrices are built this many cells (replicates × rows) at a time, bounding memory
+#: to a few tens of MB whatever the size of the test part.
+_CHUNK_CELLS = 2_000_000
+
+
+def wilson_interval(events: int, n: int, *, level: float = 0.95) -> dict:
+    """Wilson score interval of the proportion ``events / n``.
+
+    Returns
+    -------
+    dict
+        ``rate``, ``lower``, ``upper``, ``level``, ``method``; all None but ``level`` and
+        ``method`` when ``n`` is 0 (the rate is undefined).
+
+    Examples
+    --------
+    >>> out = wilson_interval(8, 10)
+    >>> round(out["lower"], 4), round(out["upper"], 4)
+    (0.4902, 0.9433)
+    """
+    _check_level(level)
+    for name, value in (("events", events), ("n", n)):
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 0:
+            raise OddsmithError(f"{name} must be a non-negative integer, got {value!r}")
+    if events > n:
+        raise OddsmithError(f"events must not exceed n, got {events} events in {n}")
+    if n == 0:
+        return {"rate": None, "lower": None, "upper": None, "level": level, "method": WILSON_METHOD}
+    low, high = _rate_interval(int(events), int(n), level=level)
+    return {"rate": events / n, "lower": low, "upper": high, "level": level, "method": WILSON_METHOD}
+
+
+def _check_level(level) -> None:
+    if not (isinstance(level, float) and 0.0 < level < 1.0):
+        raise OddsmithError(f"level must be a float strictly between 0 and 1, got {level!r}")
+
+
+def _check_bootstrap(replicates, seed) -> None:
+    if isinstance(replicates, bool) or not isinstance(replicates, (int, np.integer)) or replicates < 1:
+        raise OddsmithError(f"replicates must be a positive integer, got {replicates!r}")
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise OddsmithError(f"seed must be a non-negative integer, got {seed!r}")
+
+
+def bootstrap_rows(y, *, replicate: int, seed: int) -> np.ndarray:
+    """Row indices of bootstrap replicate ``replicate`` (see :data:`BOOTSTRAP_RESAMPLING`).
+
+    The slow reference of every bootstrap here: a replicate's statistics equal those
+    computed on ``y[rows], p[rows]``.
+    """
+    y = np.asarray(y)
+    events, non_events = np.flatnonzero(y == 1), np.flatnonzero(y != 1)
+    rng = np.random.default_rng([int(seed), int(replicate)])
+    return np.concatenate([events[rng.integers(0, events.size, events.size)],
+                           non_events[rng.integers(0, non_events.size, non_events.size)]])
+
+
+def bootstrap_counts(y, *, replicates: int, seed: int, column=None):
+    """Yield ``(first, counts)``: how often each row is drawn, for blocks of replicates.
+
+    ``counts`` is a float array (replicates in the block × rows) whose row ``b - first``
+    counts the draws of replicate ``b`` (:func:`bootstrap_rows`). ``column`` maps each row
+    to its column of ``counts`` (a permutation; default the identity), so callers can have
+    the counts in the order they need, e.g. sorted by prediction.
+    """
+    y = np.asarray(y)
+    n = y.shape[0]
+    events, non_events = np.flatnonzero(y == 1), np.flatnonzero(y != 1)
+    target = np.arange(n) if column is None else np.asarray(column)
+    events, non_events = target[events], target[non_events]
+    block = max(1, _CHUNK_CELLS // max(n, 1))
+    for first in range(0, replicates, block):
+        last = min(replicates, first + block)
+        counts = np.empty((last - first, n))
+        for b in range(first, last):
+            rng = np.random.default_rng([int(seed), b])
+            drawn = np.concatenate([events[rng.integers(0, events.size, events.size)],
+                                    non_events[rng.integers(0, non_events.size, non_events.size)]])
+            counts[b - first] = np.bincount(drawn, minlength=n)
+        yield first, counts
+
+
+def percentile_interval(values, *, level: float) -> dict:
+    """Percentile interval of replicate values; NaN marks a replicate where the statistic is
+    undefined: those are counted and left out.
+
+    Returns
+    -------
+    dict
+        ``lower``, ``upper`` (None when fewer than 2 replicates are defined), ``defined``,
+        ``undefined``.
+    """
+    values = np.asarray(values, dtype=float)
+    ok = np.isfinite(values)
+    defined = int(ok.sum())
+    out = {"lower": None, "upper": None, "defined": defined, "undefined": int(values.size - defined)}
+    if defined >= 2:
+        low, high = np.quantile(values[ok], [(1.0 - level) / 2.0, (1.0 + level) / 2.0])
+        out["lower"], out["upper"] = float(low), float(high)
+    return out
+
+
+def _weighted_rank_measures(w: np.ndarray, y_s: np.ndarray, starts: np.ndarray) -> tuple:
+    """AUC and KS of each replicate from draw counts ``w`` (replicates × rows sorted by p).
+
+    Rows with equal p form one block starting at ``starts``: a tie between an event and a
+    non-event counts one half (AUC), and a cut-off never splits a block (KS).
+    """
+    wp = np.add.reduceat(w * y_s, starts, axis=1)
+    wn = np.add.reduceat(w * (1.0 - y_s), starts, axis=1)
+    total_p, total_n = wp.sum(axis=1), wn.sum(axis=1)
+    below_n = np.cumsum(wn, axis=1) - wn
+    auc_values = (wp * (below_n + 0.5 * wn)).sum(axis=1) / (total_p * total_n)
+    # flag p >= value of block j: the share of events and non-events in blocks j, j+1, ...
+    tpr = (total_p[:, None] - np.cumsum(wp, axis=1) + wp) / total_p[:, None]
+    fpr = (total_n[:, None] - np.cumsum(wn, axis=1) + wn) / total_n[:, None]
+    ks_values = np.maximum(np.max(tpr - fpr, axis=1), 0.0)
+    return auc_values, ks_values
+
+
+def _newton_rows(state, evaluate, *, max_iter: int, tolerance: float):
+    """Newton's method run on many replicates at once, each with its own parameters.
+
+    ``evaluate(params, rows)`` returns ``(objective, step)`` for the given replicate rows
+    (objective to maximise; step the Newton step). A step is halved until the objective
+    does not fall. Returns the parameters and a mask of the replicates that converged.
+    """
+    params = state
+    count = params.shape[0]
+    active = np.arange(count)
+    converged = np.zeros(count, dtype=bool)
+    objective, step = evaluate(params, active)
+    for _ in range(max_iter):
+        if active.size == 0:
+            break
+        length = np.ones(active.size)
+        trial = params[active] + step
+        trial_objective, trial_step = evaluate(trial, active)
+        for _ in range(40):
+            worse = ~(trial_objective >= objective - 1e-12 * np.abs(objective))
+            if not worse.any():
+                break
+            length[worse] *= 0.5
+            trial[worse] = params[active[worse]] + length[worse, None] * step[worse]
+            trial_objective[worse], trial_step[worse] = evaluate(trial[worse], active[worse])
+        moved = np.max(np.abs(length[:, None] * step), axis=1)
+        params[active] = trial
+        done = moved <= tolerance * np.maximum(1.0, np.max(np.abs(trial), axis=1))
+        converged[active[done]] = True
+        keep = ~done & np.isfinite(trial_objective)
+        active, objective, step = active[keep], trial_objective[keep], trial_step[keep]
+    return params, converged
+
+
+def _calibration_replicates(w: np.ndarray, y_s: np.ndarray, lp_s: np.ndarray) -> tuple:
+    """Calibration intercept (offset model) and slope of each replicate, weighted by draw
+    counts; NaN where the fit is undefined (one distinct prediction) or did not converge."""
+    from scipy.special import expit
+
+    wy = w @ y_s
+    n = w.sum(axis=1)
+
+    def slope_model(params, rows):
+        eta = params[:, :1] + params[:, 1:] * lp_s
+        q, wr = expit(eta), w[rows]
+        loglik = (wr * (y_s * eta - np.logaddexp(0.0, eta))).sum(axis=1)
+        resid, v = wr * (y_s - q), wr * q * (1.0 - q)
+        g_a, g_s = resid.sum(axis=1), resid @ lp_s
+        h_aa, h_as, h_ss = v.sum(axis=1), v @ lp_s, v @ (lp_s * lp_s)
+        det = h_aa * h_ss - h_as * h_as
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = np.stack([(h_ss * g_a - h_as * g_s) / det, (h_aa * g_s - h_as * g_a) / det], axis=1)
+        return loglik, step
+
+    def offset_model(params, rows):
+        eta = params[:, :1] + lp_s
+        q, wr = expit(eta), w[rows]
+        loglik = (wr * (y_s * eta - np.logaddexp(0.0, eta))).sum(axis=1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = ((wy[rows] - (wr * q).sum(axis=1)) / (wr * q * (1.0 - q)).sum(axis=1))[:, None]
+        return loglik, step
+
+    rate = np.clip(wy / n, 1e-12, 1 - 1e-12)
+    start = np.stack([np.log(rate) - np.log1p(-rate), np.zeros_like(rate)], axis=1)
+    slope_params, slope_ok = _newton_rows(start, slope_model, max_iter=100, tolerance=1e-10)
+    offset_params, offset_ok = _newton_rows(np.zeros((w.shape[0], 1)), offset_model, max_iter=200,
+                                            tolerance=1e-12)
+    drawn = w > 0
+    first, last = drawn.argmax(axis=1), w.shape[1] - 1 - drawn[:, ::-1].argmax(axis=1)
+    varies = lp_s[first] != lp_s[last]
+    slope = np.where(slope_ok & varies, slope_params[:, 1], np.nan)
+    intercept = np.where(offset_ok & varies, offset_params[:, 0], np.nan)
+    return intercept, slope
+
+
+#: Statistics of :func:`bootstrap_performance`, in the order they are reported.
+BOOTSTRAP_METRICS = ("auc", "gini", "ks", "log_loss", "brier", "calibration_intercept", "calibration_slope")
+
+
+def bootstrap_replicate_values(y, p, *, replicates: int, seed: int) -> dict:
+    """Every replicate's value of each statistic in :data:`BOOTSTRAP_METRICS` (NaN where
+    undefined), computed from draw counts without copying rows.
+
+    Rows are sorted by ``p`` once; each replicate's counts are laid out in that order, so
+    AUC and KS need one cumulative sum per replicate rather than a sort.
+    """
+    y, p = outcomes_and_probabilities(y, p)
+    _require_both_classes(y, "the stratified bootstrap")
+    _check_bootstrap(replicates, seed)
+    order = np.argsort(p, kind="stable")
+    column = np.empty_like(order)
+    column[order] = np.arange(order.size)
+    p_s, y_s = p[order], y[order].astype(float)
+    starts = np.flatnonzero(np.concatenate([[True], p_s[1:] != p_s[:-1]]))
+    clipped = np.clip(p_s, _EPS, 1.0 - _EPS)
+    loss_terms = -(y_s * np.log(clipped) + (1.0 - y_s) * np.log1p(-clipped))
+    squared = (p_s - y_s) ** 2
+    lp_s = _logit(p_s)
+    values = {name: np.empty(replicates) for name in BOOTSTRAP_METRICS}
+    for first, w in bootstrap_counts(y, replicates=replicates, seed=seed, column=column):
+        block = slice(first, first + w.shape[0])
+        values["auc"][block], values["ks"][block] = _weighted_rank_measures(w, y_s, starts)
+        values["log_loss"][block] = (w @ loss_terms) / y.shape[0]
+        values["brier"][block] = (w @ squared) / y.shape[0]
+        values["calibration_intercept"][block], values["calibration_slope"][block] = (
+            _calibration_replicates(w, y_s, lp_s))
+    values["gini"] = 2.0 * values["auc"] - 1.0
+    return values
+
+
+NORMAL_METHOD = ("normal interval with the bootstrap standard error, estimate ± z·SE (Efron & Tibshirani 1993, "
+                 "ch. 13): used when the replicates are cut by the draw budget, as a standard error needs far "
+                 "fewer replicates than percentile tails")
+
+
+def bootstrap_plan(n: int, *, replicates: int, max_draws: int | None) -> dict:
+    """How many replicates to draw for ``n`` rows, and which interval to form from them.
+
+    With ``max_draws`` set and ``replicates · n`` above it, the replicates are cut to
+    ``max(max_draws // n, 50)`` (never more than asked) and the interval becomes the normal
+    one with the bootstrap standard error.
+
+    Examples
+    --------
+    >>> bootstrap_plan(3000, replicates=1000, max_draws=100_000_000)["replicates"]
+    1000
+    >>> bootstrap_plan(1_000_000, replicates=1000, max_draws=100_000_000)["replicates"]
+    100
+    """
+    _check_bootstrap(replicates, 0)
+    plan = {"replicates_requested": int(replicates), "replicates": int(replicates), "method": PERCENTILE_METHOD,
+            "max_draws": max_draws, "reduced": None}
+    if max_draws is not None and replicates * n > max_draws:
+        plan["replicates"] = min(int(replicates), max(int(max_draws) // max(n, 1), 50))
+        plan["method"] = NORMAL_METHOD
+        plan["reduced"] = (f"{replicates:,} replicates of {n:,} rows exceed the budget of {max_draws:,} drawn rows "
+                           f"(evaluation.bootstrap_max_draws): {plan['replicates']:,} replicates drawn")
+    return plan
+
+
+def bootstrap_interval(values, *, estimate, level: float, method: str) -> dict:
+    """The interval of one statistic from its replicate values (NaN = undefined, counted):
+    percentile, or normal with the bootstrap standard error (see :func:`bootstrap_plan`)."""
+    if method == PERCENTILE_METHOD or estimate is None:
+        return percentile_interval(values, level=level)
+    from scipy import stats
+
+    values = np.asarray(values, dtype=float)
+    ok = np.isfinite(values)
+    out = {"lower": None, "upper": None, "defined": int(ok.sum()), "undefined": int(values.size - ok.sum())}
+    if out["defined"] >= 2:
+        half = float(stats.norm.ppf(0.5 + level / 2.0)) * float(values[ok].std(ddof=1))
+        out["lower"], out["upper"] = estimate - half, estimate + half
+    return out
+
+
+def bootstrap_performance(y, p, *, replicates: int, seed: int, level: float = 0.95, max_draws: int | None = None,
+                          estimates: dict | None = None) -> dict:
+    """Bootstrap intervals of the headline test measures.
+
+    Each replicate resamples the rows as :func:`bootstrap_rows` states and recomputes AUC,
+    Gini, KS, log loss, Brier score and the calibration intercept and slope exactly as
+    :func:`summarise` defines them. A statistic undefined in a replicate (a calibration fit
+    on one distinct prediction, or one that does not converge, e.g. under separation) is
+    counted and left out of its interval. The interval is the percentile one unless the
+    draw budget ``max_draws`` cuts the replicates (:func:`bootstrap_plan`); the normal one
+    is centred on ``estimates`` (default: :func:`summarise` of ``y``, ``p``).
+
+    Returns
+    -------
+    dict
+        ``method``, ``resampling``, ``level``, ``replicates``, ``replicates_requested``,
+        ``max_draws``, ``reduced`` (None, or why fewer replicates were drawn), ``seed`` and
+        ``intervals``: statistic → ``{lower, upper, defined, undefined}``.
+    """
+    _check_level(level)
+    y, p = outcomes_and_probabilities(y, p)
+    plan = bootstrap_plan(y.shape[0], replicates=replicates, max_draws=max_draws)
+    values = bootstrap_replicate_values(y, p, replicates=plan["replicates"], seed=seed)
+    if plan["method"] != PERCENTILE_METHOD and estimates is None:
+        estimates = summarise(y, p)
+    estimates = estimates or {}
+    return plan | {"resampling": BOOTSTRAP_RESAMPLING, "level": level, "seed": int(seed), "intervals": {
+        name: bootstrap_interval(values[name], estimate=estimates.get(name), level=level, method=plan["method"])
+        for name in BOOTSTRAP_METRICS}}
+
+
+WALD_INTERCEPT_METHOD = ("Wald interval of the offset logistic fit, a ± z/√Σq(1 − q): resampling within each "
+                         "outcome class fixes the number of events, which pins calibration-in-the-large, so "
+                         "the stratified bootstrap is not used for it")
+
+
+def calibration_intercept_interval(y, p, *, level: float = 0.95) -> dict:
+    """Wald interval of the calibration intercept (slope fixed at 1, ``logit(p)`` as offset).
+
+    The standard error is the inverse square root of the fit's information
+    ``Σ q(1 − q)``, ``q = expit(a + logit p)`` at the estimate ``a``.
+
+    Returns
+    -------
+    dict
+        ``estimate``, ``se``, ``lower``, ``upper``, ``level``, ``method``.
+    """
+    from scipy import stats
+    from scipy.special import expit
+
+    _check_level(level)
+    y, p = outcomes_and_probabilities(y, p)
+    _require_both_classes(y, "calibration")
+    lp = _logit(p)
+    a = _calibration_in_the_large(y, lp)
+    q = expit(a + lp)
+    se = 1.0 / math.sqrt(float(np.sum(q * (1.0 - q))))
+    half = float(stats.norm.ppf(0.5 + level / 2.0)) * se
+    return {"estimate": a, "se": se, "lower": a - half, "upper": a + half, "level": level,
+            "method": WALD_INTERCEPT_METHOD}

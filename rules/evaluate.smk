@@ -20,7 +20,16 @@ rule evaluate:
         "benchmarks/{run}/evaluate.tsv"
     params:
         candidates=CANDIDATES,
-        data={k: CONFIG["data"][k] for k in ("id_column", "target", "date_column")},
+        data={
+            k: CONFIG["data"][k]
+            for k in (
+                "id_column",
+                "target",
+                "date_column",
+                "outcome_window_months",
+                "extraction_date",
+            )
+        },
         fairness=CONFIG["fairness"],
         feature_names=[f["name"] for f in CONFIG["features"]],
         evaluation=CONFIG["evaluation"],

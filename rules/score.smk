@@ -51,6 +51,7 @@ if SCORING["data"]:
                 for k in ("id_column", "target", "encoding", "allow_outside_project")
             },
             scoring=SCORING,
+            monitoring=CONFIG["monitoring"],
             code=code(script="scripts/score.py"),
         script:
             "../scripts/score.py"

@@ -61,7 +61,11 @@ def test_decision_figures_come_from_the_scores_and_the_choice(tmp_path):
     for row in result["periods"]:
         assert row["flag_rate"] == pytest.approx(flag[period == row["period"]].mean(), abs=1e-15)
     whole = fairness.subgroup_table(y, p, region, cutoff=cutoff, min_group_size=100, attribute="region")
-    assert subgroups["attributes"]["region"]["rows"] == json.loads(json.dumps(whole))
+    rows = subgroups["attributes"]["region"]["rows"]
+    assert [{k: v for k, v in r.items() if k != "intervals"} for r in rows] == json.loads(json.dumps(whole))
+    # no bootstrap in this evaluation: Wilson intervals only, none for the comparisons
+    assert all(r["intervals"]["adverse_impact_ratio"] is None for r in rows if not r["too_small"])
+    assert subgroups["intervals"]["comparisons"] is None
     assert subgroups["attributes"]["region"]["kind"] == "segments" and subgroups["min_group_size"] == 100
     predictions = read_parquet(outputs["out_predictions"])
     assert predictions["flagged"].tolist() == flag.astype(int).tolist()
@@ -97,3 +101,19 @@ def test_periods_that_differ_from_the_evaluation_are_refused(tmp_path):
     with pytest.raises(ArtifactError, match="the scores' periods do not match the evaluation's"):
         run_apply_cutoff(**paths, **outputs)
     assert not (tmp_path / "out").exists()
+
+
+def test_outcome_maturity_counts_rows_whose_window_had_not_closed():
+    from oddsmith.stages.evaluate import outcome_maturity
+
+    # hand-computed: extraction 2025-12-31 (the last date), 6-month window → matured through
+    # 2025-06-30; test rows dated 2025-07-01 and 2025-12-31 are not matured, 2025-06-30 is.
+    dates = ["2025-01-15", "2025-06-30", "2025-06-30", "2025-07-01", "2025-12-31"]
+    parts = ["train", "train", "test", "test", "test"]
+    out = outcome_maturity(dates, parts, window_months=6, extraction_date=None)
+    assert out["matured_through"] == "2025-06-30" and out["extraction_date"] == "2025-12-31"
+    assert out["parts"]["test"] == {"rows": 3, "immature_rows": 2, "first_immature_date": "2025-07-01"}
+    assert out["parts"]["train"]["immature_rows"] == 0 and out["test_matured"] is False
+    later = outcome_maturity(dates, parts, window_months=6, extraction_date="2026-07-01")
+    assert later["test_matured"] and later["extraction_date_source"] == "config data.extraction_date"
+    assert outcome_maturity(dates, parts, window_months=None, extraction_date=None) is None

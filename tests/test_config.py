@@ -178,3 +178,21 @@ def test_long_values_are_cut_in_config_messages(demo_config, root):
     message = _problems(demo_config, project_dir=root)
     assert "cross_validation.folds" in message and "cut; 100,000 characters in all" in message
     assert len(message) < 1_000
+
+
+def test_validation_file_keys_checked_together(demo_config, root):
+    demo_config["monitoring"] = {"psi_warning": 0.3, "psi_action": 0.2}
+    demo_config["data"]["extraction_date"] = "2025-02-30"
+    demo_config["data"]["date_column"] = None
+    demo_config["split"]["method"] = "stratified"
+    demo_config["split"].pop("cutoff_date")
+    msg = _problems(demo_config, project_dir=root)
+    assert "psi_warning (0.3) must be below psi_action (0.2)" in msg
+    assert "data.extraction_date" in msg and "2025-02-30" in msg
+    assert "data.outcome_window_months: needs data.date_column" in msg
+
+
+def test_exclusion_needs_reason_and_a_count(demo_config, root):
+    demo_config["data"]["exclusions"] = [{"reason": "fraud", "rows": -1}, {"rows": 3}]
+    msg = _problems(demo_config, project_dir=root)
+    assert "data.exclusions.0.rows" in msg and "'reason' is a required property" in msg

@@ -14,6 +14,8 @@ from oddsmith.drift import (EMPTY_BIN_POLICY, RefusedFetch, band, categorical_dr
                             numeric_drift, pdf_bytes, psi, psi_from_shares, render_html, shares)
 
 from conftest import ROOT
+from oddsmith import drift
+from oddsmith.errors import OddsmithError
 
 TEMPLATE = ROOT / "reports" / "drift.html.j2"
 
@@ -134,3 +136,23 @@ def test_pdf_is_deterministic_and_fetches_nothing_outside(tmp_path):
             pdf_bytes(html.replace("</body>", f'<img src="{url}"></body>'), folder=tmp_path / "one")
     (tmp_path / "one" / "ok.svg").write_text('<svg xmlns="http://www.w3.org/2000/svg" width="4" height="4"/>')
     assert pdf_bytes(html.replace("</body>", '<img src="ok.svg"></body>'), folder=tmp_path / "one")
+
+
+def test_bands_follow_configured_limits_and_refuse_inverted_ones():
+    assert [drift.band(v, warning=0.05, action=0.2) for v in (0.04, 0.05, 0.2, 0.21)] == [
+        "little change", "moderate shift", "moderate shift", "significant shift"]
+    with pytest.raises(OddsmithError, match="warning < action"):
+        drift.band(0.1, warning=0.3, action=0.2)
+
+
+def test_report_records_and_applies_the_limits():
+    rng = np.random.default_rng(0)
+    dev = pd.DataFrame({"x": rng.normal(size=2000)})
+    new = pd.DataFrame({"x": rng.normal(0.3, 1, size=2000)})
+    kwargs = dict(development=dev, batch=new, features=[{"name": "x", "type": "numeric"}],
+                  development_scores=rng.random(2000), batch_scores=rng.random(2000))
+    default = drift.drift_report(**kwargs)
+    strict = drift.drift_report(**kwargs, psi_warning=0.001, psi_action=0.002)
+    assert default["limits"] == {"psi_warning": 0.10, "psi_action": 0.25}
+    assert strict["features"][0]["band"] == "significant shift" != default["features"][0]["band"]
+    assert "monitoring.psi_warning" in strict["method"]["bands"]

@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 from sklearn.metrics import roc_auc_score
 
-from oddsmith import fairness
+from oddsmith import fairness, metrics
 from oddsmith.errors import OddsmithError
 
 # ------------------------------------------------------------------ adverse impact
@@ -277,3 +277,51 @@ def test_blank_cells_take_the_declared_group_label():
     assert labels.tolist() == ["a", "not stated", "b"]
     banded = attribute_groups(pd.Series([20.0, None, 50.0]), bands=[30], blanks="not stated")
     assert banded.tolist() == ["below 30", "not stated", "30 and over"]
+
+
+def test_group_comparison_replicates_equal_a_plain_loop():
+    # Slow reference: copy each replicate's rows (metrics.bootstrap_rows) and count by hand.
+    from oddsmith import metrics as m
+
+    rng = np.random.default_rng(8)
+    n = 400
+    labels = rng.choice(np.array(["a", "b", "c"]), size=n)
+    p = rng.random(n)
+    y = (rng.random(n) < p).astype(int)
+    flagged = p >= 0.6
+    fast = fairness.group_comparison_replicates(y, flagged, labels, ["a", "b", "c"], "b", replicates=20, seed=4)
+    for b in range(20):
+        rows = m.bootstrap_rows(y, replicate=b, seed=4)
+        yy, ff, gg = y[rows], flagged[rows], labels[rows]
+
+        def rates(g):
+            inside = gg == g
+            return ((~ff & inside).sum() / inside.sum(), (ff & inside & (yy == 1)).sum() / (inside & (yy == 1)).sum(),
+                    (ff & inside & (yy == 0)).sum() / (inside & (yy == 0)).sum())
+
+        ref = rates("b")
+        for g in ("a", "b", "c"):
+            fav, tpr, fpr = rates(g)
+            assert fast[g]["adverse_impact_ratio"][b] == pytest.approx(fav / ref[0], abs=1e-12)
+            assert fast[g]["tpr_gap"][b] == pytest.approx(tpr - ref[1], abs=1e-12)
+            assert fast[g]["fpr_gap"][b] == pytest.approx(fpr - ref[2], abs=1e-12)
+
+
+def test_add_intervals_wilson_rates_and_undefined_replicates_counted():
+    from statsmodels.stats.proportion import proportion_confint
+
+    # group "z" has only 3 events: some replicates draw none of them, so its TPR gap is
+    # undefined there; they are counted, not crashed on.
+    y = np.array([1] * 40 + [0] * 160 + [1] * 3 + [0] * 197)
+    groups = np.array(["w"] * 200 + ["z"] * 200)
+    p = np.concatenate([np.linspace(0, 1, 200), np.linspace(0, 1, 200)])
+    rows = fairness.subgroup_table(y, p, groups, cutoff=0.5, min_group_size=50)
+    out = fairness.add_intervals(rows, y, p, groups, cutoff=0.5, bootstrap={
+        "replicates": 200, "seed": 1, "method": metrics.PERCENTILE_METHOD})
+    z = next(r for r in out if r["group"] == "z")
+    flagged_z = int((p[200:] >= 0.5).sum())
+    low, high = proportion_confint(flagged_z, 200, alpha=0.05, method="wilson")  # statsmodels reference
+    assert z["intervals"]["flag_rate"]["lower"] == pytest.approx(low) and z["intervals"]["flag_rate"]["upper"] == pytest.approx(high)
+    gap = z["intervals"]["tpr_gap"]
+    assert gap["defined"] + gap["undefined"] == 200 and gap["undefined"] > 0
+    assert "intervals" not in rows[0]  # the input rows are not modified

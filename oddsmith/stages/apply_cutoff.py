@@ -11,8 +11,9 @@ import logging
 import numpy as np
 import pandas as pd
 
+from oddsmith import metrics
 from oddsmith.errors import ArtifactError
-from oddsmith.fairness import GROUP_COLUMN_PREFIX, add_decisions
+from oddsmith.fairness import GROUP_COLUMN_PREFIX, add_decisions, add_intervals
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
 from oddsmith.threshold import confusion_at, realised_cost_per_1000
 
@@ -63,6 +64,31 @@ def _check_artifacts(scores: pd.DataFrame, evaluation: dict, choice: dict) -> No
                             problems)
 
 
+def _group_rows(summaries: list[dict], y, p, labels, *, cutoff, attribute: str, evaluation: dict) -> list[dict]:
+    """Decision figures of one attribute's groups with their intervals; the bootstrap (if
+    any) repeats the evaluation's replicates: same seed, same count, same resampling rule."""
+    rows = add_decisions(summaries, y, p, labels, cutoff=cutoff, attribute=attribute)
+    boot = evaluation.get("bootstrap")
+    return add_intervals(rows, y, p, labels, cutoff=cutoff, level=_level(evaluation), bootstrap=boot and {
+        "replicates": boot["replicates"], "seed": boot["seed"], "method": boot["method"]})
+
+
+def _level(evaluation: dict) -> float:
+    """The evaluation's interval level (its bootstrap's, else its AUC interval's, else 95%)."""
+    return (evaluation.get("bootstrap") or evaluation.get("auc_ci") or {}).get("level", 0.95)
+
+
+def _interval_note(evaluation: dict) -> dict:
+    """How the group intervals were made (stated once in subgroups.json)."""
+    boot = evaluation.get("bootstrap")
+    return {"rates": f"{metrics.WILSON_METHOD} for the flag rate, favourable rate, TPR and FPR",
+            "comparisons": None if boot is None else (
+                f"{boot['method']} for the adverse-impact ratio and the TPR/FPR gaps; {boot['resampling']}; the "
+                "most favoured group is held fixed at the observed one"),
+            "level": _level(evaluation),
+            "replicates": None if boot is None else boot["replicates"], "seed": None if boot is None else boot["seed"]}
+
+
 def run_apply_cutoff(*, scores_path: str, probability_metrics_path: str, choice_path: str, out_metrics: str,
                      out_subgroups: str, out_predictions: str) -> dict:
     """Apply the adopted cut-off to the test scores; write metrics, subgroups and predictions."""
@@ -77,8 +103,8 @@ def run_apply_cutoff(*, scores_path: str, probability_metrics_path: str, choice_
                            "cutoff_table": _cutoff_table(y, p, choice)}
     if evaluation["periods"] is not None:
         result["periods"] = _period_flag_rates(evaluation["periods"], scores["period"].to_numpy(), p, cutoff)
-    groups = {name: block | {"rows": add_decisions(block["rows"], y, p, scores[GROUP_COLUMN_PREFIX + name].to_numpy(),
-                                                   cutoff=cutoff, attribute=name)}
+    groups = {name: block | {"rows": _group_rows(block["rows"], y, p, scores[GROUP_COLUMN_PREFIX + name].to_numpy(),
+                                                 cutoff=cutoff, attribute=name, evaluation=evaluation)}
               for name, block in subgroups["attributes"].items()}
     log.info("cut-off %s on %d test rows: %d flagged", cutoff, len(y), int(flagged(p, cutoff).sum()))
     predictions = pd.DataFrame({"id": scores["id"].to_numpy(), "y": y, "p": p,
@@ -86,5 +112,6 @@ def run_apply_cutoff(*, scores_path: str, probability_metrics_path: str, choice_
     write_parquet(out_predictions, predictions)
     write_json(out_metrics, result)
     write_json(out_subgroups, {"min_group_size": subgroups["min_group_size"], "attributes": groups,
-                               "rule": SUBGROUP_RULE, "favourable_outcome": "not flagged for review"})
+                               "rule": SUBGROUP_RULE, "favourable_outcome": "not flagged for review",
+                               "intervals": _interval_note(evaluation)})
     return result

@@ -34,6 +34,50 @@ def _periods(labels: np.ndarray, y, p) -> list[dict]:
     return out
 
 
+def outcome_maturity(dates, parts, *, window_months, extraction_date) -> dict | None:
+    """Whether every row's outcome window had closed by the data's extraction date.
+
+    An application dated ``d`` has a matured outcome when ``d + window_months`` falls on or
+    before the extraction date, i.e. ``d`` is on or before ``matured_through`` (extraction
+    date minus the window, calendar months). The extraction date is ``extraction_date``
+    when given, else the last date in the data file.
+
+    Returns
+    -------
+    dict or None
+        None without a window; else ``window_months``, ``extraction_date``,
+        ``extraction_date_source``, ``matured_through``, ``test_last_date`` and, per part
+        (``train``, ``test``), ``{"rows", "immature_rows", "first_immature_date"}``, and
+        ``test_matured`` (True when no test row is immature).
+    """
+    if not window_months:
+        return None
+    dates = pd.to_datetime(pd.Series(dates)).reset_index(drop=True)
+    parts = pd.Series(parts).reset_index(drop=True)
+    source = "config data.extraction_date" if extraction_date else "the last date in the data file"
+    extracted = pd.Timestamp(extraction_date) if extraction_date else dates.max()
+    matured_through = extracted - pd.DateOffset(months=int(window_months))
+    result = {"window_months": int(window_months), "extraction_date": extracted.date().isoformat(),
+              "extraction_date_source": source, "matured_through": matured_through.date().isoformat(),
+              "test_last_date": dates[parts == "test"].max().date().isoformat(), "parts": {}}
+    for part in ("train", "test"):
+        inside = dates[parts == part]
+        late = inside[inside > matured_through]
+        result["parts"][part] = {"rows": int(inside.shape[0]), "immature_rows": int(late.shape[0]),
+                                 "first_immature_date": late.min().date().isoformat() if len(late) else None}
+    result["test_matured"] = result["parts"]["test"]["immature_rows"] == 0
+    return result
+
+
+def _intervals(y, p, overall: dict, evaluation: dict) -> dict | None:
+    """Bootstrap intervals of the headline measures (None when evaluation.bootstrap is 0)."""
+    if not evaluation.get("bootstrap"):
+        return None
+    return metrics.bootstrap_performance(y, p, replicates=evaluation["bootstrap"], seed=evaluation["seed"],
+                                         level=evaluation["interval_level"],
+                                         max_draws=evaluation["bootstrap_max_draws"], estimates=overall)
+
+
 def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, selected_path: str, model_paths: dict,
                  data: dict, fairness: dict, feature_names: list, evaluation: dict, split_method: str,
                  out_scores: str, out_probability_metrics: str) -> dict:
@@ -49,8 +93,12 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
     model = read_json(model_paths[selected])
     y = test[data["target"]].to_numpy().astype(int)
     p = predict_frame(load_recipe(recipe_path), model, test)
-    result = {"candidate": selected, "n": int(len(y)), "events": int(y.sum()), "overall": metrics.summarise(y, p),
-              "auc_ci": metrics.auc_confidence_interval(y, p),
+    overall = metrics.summarise(y, p)
+    level = evaluation["interval_level"]
+    result = {"candidate": selected, "n": int(len(y)), "events": int(y.sum()), "overall": overall,
+              "auc_ci": metrics.auc_confidence_interval(y, p, level=level),
+              "bootstrap": _intervals(y, p, overall, evaluation), "outcome_maturity": None,
+              "calibration_intercept_ci": metrics.calibration_intercept_interval(y, p, level=level),
               "hosmer_lemeshow": metrics.hosmer_lemeshow(y, p),
               "reliability": metrics.reliability_bins(y, p, bins=evaluation["calibration_bins"]), "periods": None}
     scores = {"id": test[data["id_column"]].to_numpy(), "y": y, "p": p}
@@ -59,6 +107,11 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
         result["periods"] = _periods(periods, y, p)
         result["period_unit"] = evaluation["period"]
         scores["period"] = periods
+        if data.get("outcome_window_months"):
+            dates = read_parquet(data_path, columns=[data["date_column"]])[data["date_column"]]
+            result["outcome_maturity"] = outcome_maturity(
+                dates, read_parquet(assignment_path, columns=["part"])["part"],
+                window_months=data["outcome_window_months"], extraction_date=data.get("extraction_date"))
     groups = {}
     for kind in ("sensitive", "segments"):
         for name in fairness[kind]:
@@ -68,7 +121,8 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
                 y, p, labels, min_group_size=fairness["min_group_size"], attribute=name)}
             scores[GROUP_COLUMN_PREFIX + name] = labels
     result["subgroups"] = {"min_group_size": fairness["min_group_size"], "attributes": groups}
-    log.info("test AUC %s (n=%d)", result["overall"]["auc"], len(y))
+    log.info("test AUC %s (n=%d); bootstrap %s", result["overall"]["auc"], len(y),
+             "off" if result["bootstrap"] is None else f"{result['bootstrap']['replicates']} replicates")
     write_parquet(out_scores, pd.DataFrame(scores))
     write_json(out_probability_metrics, result)
     return result

@@ -31,12 +31,15 @@ DEFAULTS = {"top_k": DEFAULT_TOP_K, "reference": "training_mean", "extra_columns
 
 
 def score_batch(sm: ScoringModel, *, batch_path, scoring: dict, encoding: str = "utf-8", template=TEMPLATE,
-                stylesheets=(), folder=".") -> dict:
+                stylesheets=(), folder=".", monitoring: dict | None = None) -> dict:
     """Score one batch; return every output in memory (name -> DataFrame, dict or bytes).
 
     ``scoring`` holds ``top_k``, ``reference``, ``extra_columns`` and ``carry_columns``
     (the config section ``scoring``). ``folder`` is where the PDF renderer may read files.
+    ``monitoring`` (the config section) gives the PSI limits; missing keys take the defaults.
     """
+    limits = {"psi_warning": drift.BAND_LOW, "psi_action": drift.BAND_HIGH} | {
+        k: v for k, v in (monitoring or {}).items() if k in ("psi_warning", "psi_action")}
     settings = _settings(sm, scoring)
     raw = read_batch(batch_path, encoding=encoding)
     batch, ignored = check_batch(sm, raw, extra_columns=settings["extra_columns"], source=str(batch_path))
@@ -49,7 +52,7 @@ def score_batch(sm: ScoringModel, *, batch_path, scoring: dict, encoding: str = 
         development=sm.training, batch=batch, features=sm.recipe["features"],
         development_scores=probabilities(sm, sm.training), batch_scores=scored["probability"].to_numpy(),
         model_features=_model_features(sm),
-        other_columns=[c for c in sm.contract["columns"] if c not in (sm.id_column, sm.target)])
+        other_columns=[c for c in sm.contract["columns"] if c not in (sm.id_column, sm.target)], **limits)
     log.info("scored %d rows: %d flagged; score PSI %.4f; largest feature PSI %s", len(scored), summary["flagged"],
              report["score"]["psi"], report["ranking"][:1])
     html = drift.render_html(report, summary, template_path=template, batch_name=Path(batch_path).name,
@@ -94,7 +97,7 @@ def write_outputs(outputs: dict, paths: dict) -> None:
 
 def run_score(*, new_path: str, recipe_path: str, selected_path: str, model_paths: dict, choice_path: str,
               contract_path: str, data_path: str, assignment_path: str, data: dict, scoring: dict,
-              outputs: dict, template=TEMPLATE, stylesheets: list | None = None) -> dict:
+              outputs: dict, template=TEMPLATE, stylesheets: list | None = None, monitoring: dict | None = None) -> dict:
     """The score rule: score ``new_path`` with this build's selected model, write the outputs.
 
     ``new_path`` must resolve inside the project folder (the working directory) unless
@@ -107,7 +110,7 @@ def run_score(*, new_path: str, recipe_path: str, selected_path: str, model_path
                         source=str(Path(recipe_path).parent.parent))
     folder = Path(outputs["drift.pdf"]).parent
     result = score_batch(sm, batch_path=new_path, scoring=scoring, encoding=data.get("encoding", "utf-8"),
-                         template=template,
+                         template=template, monitoring=monitoring,
                          stylesheets=card_stylesheets() if stylesheets is None else stylesheets, folder=folder)
     write_outputs(result, outputs)
     return result["summary.json"]

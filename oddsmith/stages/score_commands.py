@@ -115,7 +115,7 @@ def score_folder(model_dir, batch_path, out_dir, *, overrides: dict | None = Non
     out_dir.mkdir(parents=True, exist_ok=True)
     result = score_batch(sm, batch_path=batch_path, scoring=scoring,
                          encoding=config["data"].get("encoding", "utf-8"),
-                         stylesheets=card_stylesheets(), folder=out_dir)
+                         stylesheets=card_stylesheets(), folder=out_dir, monitoring=config.get("monitoring"))
     write_outputs(result, {name: out_dir / name for name in OUTPUTS})
     return result["summary.json"]
 
