@@ -42,7 +42,7 @@ rule compare:
             "work/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
         ),
         models=expand(
-            "results/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
+            "work/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
         ),
     output:
         table="work/{run}/comparison/table.json",
