@@ -71,7 +71,9 @@ def _cmd_build(args) -> int:
         print(f"oddsmith build: no Snakefile in {Path.cwd()}; run it from the project folder", file=sys.stderr)
         return 1
     try:
-        check_config(read_config_file(args.config), project_dir=".")
+        missing = _missing_inputs(check_config(read_config_file(args.config), project_dir="."))
+        if missing:
+            raise ConfigError(f"the configuration names {len(missing)} file(s) that do not exist", missing)
     except ConfigError as exc:
         print(f"oddsmith build: {args.config} is not a usable configuration; nothing was built.\n{exc}",
               file=sys.stderr)
@@ -81,6 +83,16 @@ def _cmd_build(args) -> int:
            "--configfile", args.config]
     print("oddsmith build: " + " ".join(shlex.quote(part) for part in cmd[2:]), file=sys.stderr)
     return subprocess.run(cmd, check=False).returncode
+
+
+def _missing_inputs(config: dict) -> list[str]:
+    """The data and contract files a checked config names but the project folder lacks.
+
+    Checked here so that a wrong path is one line of our own, not Snakemake's missing-input trace.
+    """
+    return [f"data.{key}: '{config['data'][key]}' is not a file (looked in {Path.cwd()}); "
+            "copy the file into the project or correct the path"
+            for key in ("path", "contract") if not Path(config["data"][key]).is_file()]
 
 
 def build_parser() -> argparse.ArgumentParser:

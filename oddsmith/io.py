@@ -202,6 +202,19 @@ class _PlainLoader(yaml.SafeLoader):
             )
         return super().compose_node(parent, index)
 
+    def construct_mapping(self, node, deep=False):
+        # PyYAML keeps the last of two equal keys without a word; in a config that silently
+        # drops a value the person wrote (two false_positive lines), so a repeat is refused.
+        seen = set()
+        for key_node, _ in node.value:
+            key = self.construct_object(key_node, deep=deep)
+            if isinstance(key, (str, int, float, bool)) and key in seen:
+                raise yaml.MarkedYAMLError(problem=f"the key {key!r} appears twice in one mapping; keep one",
+                                           problem_mark=key_node.start_mark)
+            if isinstance(key, (str, int, float, bool)):
+                seen.add(key)
+        return super().construct_mapping(node, deep=deep)
+
 
 def _yaml_problem(exc: yaml.YAMLError) -> str:
     """Line, column and problem of a YAML error (marks are 0-based, people count from 1)."""
