@@ -157,6 +157,48 @@ def read_parquet(path: str | Path, columns=None, rows=None):
     return pd.DataFrame(pieces, copy=False)
 
 
+def read_parquet_pieces(path: str | Path, columns: list[str], *, rows=None, piece_rows: int = 32_768):
+    """Read columns of a Parquet artifact into pandas, ``piece_rows`` file rows at a time.
+
+    ``rows``, a boolean mask with one value per row of the file, keeps only those rows. Each
+    piece's index continues the count of the rows kept, so the pieces concatenated equal
+    :func:`read_parquet` of the same columns and rows; a piece with no kept row is skipped.
+    Only one piece of the file is in memory at a time.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise ArtifactError(f"required artifact not found: {path}")
+    # Without pre-buffering: a pre-buffering reader keeps every range it has read until it
+    # is closed, which here would be most of the file.
+    parquet = pq.ParquetFile(path, pre_buffer=False)
+    missing = [c for c in columns if c not in parquet.schema_arrow.names]
+    if missing:
+        raise ArtifactError(f"{path} has no columns {missing}")
+    if rows is not None and len(rows) != parquet.metadata.num_rows:
+        raise ValueError(f"rows has {len(rows)} values, {path} has {parquet.metadata.num_rows} rows")
+    start = kept = 0
+    for batch in parquet.iter_batches(batch_size=piece_rows, columns=list(columns), use_threads=False):
+        table = pa.Table.from_batches([batch])
+        if rows is not None:
+            table = table.filter(pa.array(rows[start:start + batch.num_rows], type=pa.bool_()))
+        start += batch.num_rows
+        if table.num_rows:
+            piece = table.to_pandas()
+            piece.index = range(kept, kept + len(piece))
+            kept += len(piece)
+            yield piece
+
+
+def release_arrow_memory() -> None:
+    """Hand the memory of freed Arrow buffers back to the system.
+
+    Columns read from Parquet live in Arrow's memory pool (pandas gets views of them); the
+    pool keeps freed pages for reuse, so without this the memory of a frame that is done with
+    still counts while the next large array is allocated outside the pool.
+    """
+    pa.default_memory_pool().release_unused()
+
+
 def parquet_columns(path: str | Path) -> list[str]:
     """Column names of a Parquet artifact, from its footer (no data is read)."""
     path = Path(path)
