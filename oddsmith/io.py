@@ -170,6 +170,8 @@ def read_parquet_pieces(path: str | Path, columns: list[str], *, rows=None, piec
         raise ArtifactError(f"required artifact not found: {path}")
     # Without pre-buffering: a pre-buffering reader keeps every range it has read until it
     # is closed, which here would be most of the file.
+    import pandas as pd
+
     parquet = pq.ParquetFile(path, pre_buffer=False)
     missing = [c for c in columns if c not in parquet.schema_arrow.names]
     if missing:
@@ -177,13 +179,20 @@ def read_parquet_pieces(path: str | Path, columns: list[str], *, rows=None, piec
     if rows is not None and len(rows) != parquet.metadata.num_rows:
         raise ValueError(f"rows has {len(rows)} values, {path} has {parquet.metadata.num_rows} rows")
     start = kept = 0
-    for batch in parquet.iter_batches(batch_size=piece_rows, columns=list(columns), use_threads=False):
-        table = pa.Table.from_batches([batch])
-        if rows is not None:
-            table = table.filter(pa.array(rows[start:start + batch.num_rows], type=pa.bool_()))
-        start += batch.num_rows
-        if table.num_rows:
-            piece = table.to_pandas()
+    for group in range(parquet.metadata.num_row_groups):
+        n = parquet.metadata.row_group(group).num_rows
+        mask = None if rows is None else pa.array(rows[start:start + n], type=pa.bool_())
+        start += n
+        # One column of one row group at a time: the batch reader holds decoded buffers of
+        # the whole row group for every column besides the pieces it hands out.
+        columns_read = {}
+        for name in columns:
+            table = parquet.read_row_group(group, columns=[name], use_threads=False)
+            columns_read[name] = (table if mask is None else table.filter(mask)).to_pandas(self_destruct=True)[name]
+        frame = pd.DataFrame(columns_read, copy=False)
+        del columns_read
+        for s in range(0, len(frame), piece_rows):
+            piece = frame.iloc[s:s + piece_rows]
             piece.index = range(kept, kept + len(piece))
             kept += len(piece)
             yield piece

@@ -369,7 +369,7 @@ def _row_groups(check: ContractCheck, pieces, rows: int):
     Once a piece has failed a check nothing more is yielded (the scratch file will be
     removed), but every later piece is still checked, so that all problems are reported.
     """
-    held, count, empty = [], 0, None
+    held, count, written, empty = [], 0, False, None
     for raw in pieces:
         typed = check.add(raw)
         raw = None  # noqa: F841 (the text of this piece may go before the next is read)
@@ -382,13 +382,12 @@ def _row_groups(check: ContractCheck, pieces, rows: int):
         while count >= rows:
             block = pd.concat(held, ignore_index=True) if len(held) > 1 else held[0]
             yield block.iloc[:rows]
-            held = [block.iloc[rows:]]
+            written, held = True, [block.iloc[rows:]]
             count = len(held[0])
-            empty = False
     if count:
         yield pd.concat(held, ignore_index=True) if len(held) > 1 else held[0]
-    elif empty is not None and empty is not False:
-        yield empty  # nothing was good: an empty but valid scratch file, removed after the report
+    elif not written and empty is not None:
+        yield empty  # nothing was good: an empty (valid) scratch file, removed after the report
 
 
 def _store_whole_numbers(path: Path, names: list[str]) -> None:
