@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 import pandera.pandas as pa
 
-from oddsmith.errors import ContractError, quoted
+from oddsmith.errors import ArgumentError, ContractError, quoted
 from oddsmith.io import read_yaml
 
 CONTRACT_FORMAT = "oddsmith-contract/1"
@@ -63,22 +63,83 @@ def _contract_problems(doc) -> list[str]:
     return problems
 
 
+#: Rows per piece when a file is read and checked piece by piece (the validate stage): the
+#: text of one piece, its typed copy and the checks' temporaries are all that is held at once.
+PIECE_ROWS = 32_768
+
+
 def read_raw(path: str | Path, *, encoding: str = "utf-8") -> pd.DataFrame:
     """Read a CSV as text cells (empty cell = missing), with clear errors for unusable files.
 
     A UTF-8 byte-order mark is accepted. A file that does not decode in ``encoding`` is
-    refused with the offset of the first bad byte.
+    refused with the offset of the first bad byte. The whole file is held as text; the
+    validate stage reads it in pieces instead (:func:`read_raw_pieces`).
     """
+    return next(_raw_pieces(path, encoding=encoding, rows=None, columns=None))
+
+
+def read_raw_pieces(path: str | Path, *, encoding: str = "utf-8", rows: int = PIECE_ROWS,
+                    columns: list[str] | None = None):
+    """Read a CSV as :func:`read_raw` does, in pieces of at most ``rows`` rows.
+
+    Yields DataFrames of text cells whose index continues across pieces (row ``i`` of the
+    file's data has index ``i``). The file is refused with the same messages as
+    :func:`read_raw`; a ragged row is reported when the piece holding it is read, with its
+    line in the file. ``columns`` reads only those columns (a second look at a few columns).
+    Every piece carries the header as written in ``attrs["header"]``.
+    """
+    if rows is None or rows < 1:
+        raise ArgumentError(f"rows must be a positive number of rows, found {rows!r}")
+    return _raw_pieces(path, encoding=encoding, rows=rows, columns=columns)
+
+
+def _raw_pieces(path, *, encoding: str, rows: int | None, columns: list[str] | None):
     path = Path(path)
     if not path.is_file():
         raise ContractError(f"data file not found: {path}")
     codec = "utf-8-sig" if encoding == "utf-8" else encoding
     if not _check_decodes(path, codec, encoding):
         raise ContractError(f"data file {path} is empty (0 rows, no header)")
+    # pandas renames a repeated name ("region", "region.1"); the header as written is kept so
+    # that the contract check reports the repeat itself.
+    header = _header(path, codec)
+    options = dict(dtype=str, keep_default_na=False, na_values=[""], encoding=codec, usecols=columns)
+    if rows is None:
+        reader = None
+        pieces = _parsed(path, lambda: iter([pd.read_csv(path, **options)]))
+    else:
+        reader = pd.read_csv(path, chunksize=rows, **options)
+        pieces = _parsed(path, lambda: reader)
     try:
-        df = pd.read_csv(path, dtype=str, keep_default_na=False, na_values=[""], encoding=codec)
+        seen = False
+        for piece in pieces:
+            if not seen:
+                _check_first_piece(path, piece)
+                seen = True
+            piece.attrs["header"] = header
+            yield piece
+        if not seen:
+            raise ContractError(f"data file {path} has a header but no data rows")
+    finally:
+        if reader is not None:
+            reader.close()
+
+
+def _parsed(path: Path, open_pieces):
+    """The pieces of a CSV reader, a parser error turned into a message naming the line."""
+    try:
+        pieces = open_pieces()
+        while True:
+            try:
+                piece = next(pieces)
+            except StopIteration:
+                return
+            yield piece
     except pd.errors.ParserError as exc:
         raise ContractError(_parser_message(path, exc)) from None
+
+
+def _check_first_piece(path: Path, df: pd.DataFrame) -> None:
     if len(df.columns) == 1 and any(sep in df.columns[0] for sep in (";", "\t", "|")):
         sep = next(s for s in (";", "\t", "|") if s in df.columns[0])
         raise ContractError(
@@ -87,10 +148,6 @@ def read_raw(path: str | Path, *, encoding: str = "utf-8") -> pd.DataFrame:
         )
     if df.empty:
         raise ContractError(f"data file {path} has a header but no data rows")
-    # pandas renames a repeated name ("region", "region.1"); the header as written is kept so
-    # that the contract check reports the repeat itself.
-    df.attrs["header"] = _header(path, codec)
-    return df
 
 
 def _header(path: Path, codec: str) -> list[str]:
@@ -152,31 +209,203 @@ def validate_frame(
     """Type and check a raw frame against the contract; return the typed frame.
 
     The target (if given) is returned as int8: 1 where it equals ``positive_label``.
-    Pass ``target=None`` to validate new data that has no outcome yet (scoring).
+    Pass ``target=None`` to validate new data that has no outcome yet (scoring). The frame is
+    checked as a single piece of a :class:`ContractCheck`, so a file checked in pieces gets
+    exactly these problems and values.
 
     Raises
     ------
     ContractError
         Listing every failing column and check with counts and example rows.
     """
-    columns = {n: s for n, s in contract["columns"].items() if n != target or target is not None}
-    problems = _header_problems(raw, columns, contract, id_column=id_column, target=target, extra=extra_columns)
-    if problems:
-        raise ContractError(f"{source}: the columns do not match the contract", problems)
-    raw = raw[[c for c in raw.columns if c in columns]]
-    ids = raw[id_column].fillna("(missing id)")
-    typed, unparsed, problems = _coerce(raw, columns, ids)
-    problems += _check_values(typed, columns, ids, unparsed)
-    if target is not None and target in typed:
-        problems += _target_problems(typed[target], target, positive_label, columns[target])
-    if problems:
-        raise ContractError(f"{source}: {len(problems)} problem(s) against the data contract", problems)
-    if target is not None:
-        typed[target] = (typed[target] == positive_label).astype("int8")
-    for name, spec in columns.items():
-        if spec["type"] == "integer" and name in typed and typed[name].notna().all():
-            typed[name] = typed[name].astype("int64")
+    check = ContractCheck(contract, id_column=id_column, target=target, positive_label=positive_label,
+                          extra_columns=extra_columns, source=source)
+    typed = check.add(raw)
+    check.finish(lambda columns: [raw[columns]])
+    for name in check.whole_number_columns():
+        typed[name] = typed[name].astype("int64")
     return typed
+
+
+class ContractCheck:
+    """Type and check a file against its contract one piece of rows at a time.
+
+    Feed the pieces in file order to :meth:`add` (each returns the piece typed), then call
+    :meth:`finish`, which raises one :class:`ContractError` listing every problem of the
+    whole file: per column and check the total count of failing rows and the first
+    ``EXAMPLES`` examples in file order, as a check of the whole file at once would give.
+    Uniqueness is checked across pieces from 64-bit hashes of the typed values (8 bytes a
+    row, nothing of the text is kept); rows whose hashes repeat are looked at again through
+    ``second_look`` so that a reported repeat is a real one.
+
+    The typed pieces hold the final types except nullable integer columns, which stay
+    float64 (a blank anywhere in the file makes the whole column float64);
+    :meth:`whole_number_columns` names those without a blank, to be stored as int64.
+    """
+
+    def __init__(self, contract: dict, *, id_column: str, target: str | None, positive_label: str = "1",
+                 extra_columns: str = "reject", source: str = "data"):
+        self.contract, self.id_column, self.target = contract, id_column, target
+        self.positive_label, self.extra_columns, self.source = positive_label, extra_columns, source
+        self.columns = dict(contract["columns"])
+        # Uniqueness needs the whole file: it is checked from hashes, not by each piece.
+        self._schema = build_schema({n: s | {"unique": False} for n, s in self.columns.items()})
+        self.rows = 0
+        self.raw_columns: list[str] | None = None
+        self.blanks: dict[str, list] = {}  # column -> [count, first ids of blank rows]
+        self._tally: dict[tuple, list] = {}  # order key -> [label, count, examples]
+        self._classes: set = set()
+        self._hashes = {n: [] for n, s in self.columns.items() if s["unique"]}
+
+    @property
+    def problems(self) -> bool:
+        """True once any piece has failed a check (the typed pieces are then of no use)."""
+        return bool(self._tally)
+
+    def add(self, raw: pd.DataFrame) -> pd.DataFrame:
+        """Type and check the next piece; return it typed (index 0..len-1)."""
+        if self.raw_columns is None:
+            self._check_header(raw)
+        offset, self.rows = self.rows, self.rows + len(raw)
+        raw = raw[[c for c in raw.columns if c in self.columns]].reset_index(drop=True)
+        ids = raw[self.id_column].fillna("(missing id)")
+        typed, unparsed = self._coerce(raw, ids)
+        self._check_values(typed, ids, unparsed)
+        self._note_hashes(typed, offset)
+        self._note_blanks(typed)
+        if self.target is not None and self.target in typed:
+            self._classes.update(typed[self.target].dropna().unique().tolist())
+        if not self.problems:  # after a problem the typed pieces are of no use
+            self._final_types(typed)
+        return typed
+
+    def _final_types(self, typed: pd.DataFrame) -> None:
+        if self.target is not None and self.target in typed:
+            typed[self.target] = (typed[self.target] == self.positive_label).astype("int8")
+        for name, spec in self.columns.items():
+            if spec["type"] == "integer" and not spec["nullable"] and name in typed:
+                typed[name] = typed[name].astype("int64")
+
+    def finish(self, second_look) -> None:
+        """Raise ContractError listing every problem found in the pieces, if any.
+
+        ``second_look(columns)`` yields the raw pieces again (only ``columns``), in the same
+        order; it is called only when two rows of a unique column share a hash.
+        """
+        for name in self._hashes:
+            self._check_unique(name, second_look)
+        problems = [f"{label}: {count} row(s) fail, e.g. {', '.join(examples)}"
+                    for _, (label, count, examples) in sorted(self._tally.items())]
+        if self.target is not None and self.target in self.columns and self.target in (self.raw_columns or ()):
+            problems += _target_problems(sorted(self._classes), self.target, self.positive_label,
+                                         self.columns[self.target])
+        if problems:
+            raise ContractError(f"{self.source}: {len(problems)} problem(s) against the data contract", problems)
+
+    def whole_number_columns(self) -> list[str]:
+        """Nullable integer columns without a blank in the whole file (stored as int64)."""
+        return [n for n, s in self.columns.items()
+                if s["type"] == "integer" and s["nullable"] and n in self.blanks and self.blanks[n][0] == 0]
+
+    def _check_header(self, raw: pd.DataFrame) -> None:
+        problems = _header_problems(raw, self.columns, self.contract, id_column=self.id_column, target=self.target,
+                                    extra=self.extra_columns)
+        if problems:
+            raise ContractError(f"{self.source}: the columns do not match the contract", problems)
+        self.raw_columns = list(raw.columns)
+
+    def _note(self, key: tuple, label: str, count: int, examples: list[str]) -> None:
+        entry = self._tally.setdefault(key, [label, 0, []])
+        entry[1] += count
+        entry[2].extend(examples[:EXAMPLES - len(entry[2])])
+
+    def _coerce(self, raw: pd.DataFrame, ids: pd.Series):
+        typed, unparsed = pd.DataFrame(index=raw.index), {}
+        for position, (name, spec) in enumerate(self.columns.items()):
+            if name not in raw:
+                continue
+            text = raw[name]
+            values, bad, label, fraction = _typed(text, spec["type"])
+            if fraction is not None and fraction.any():
+                self._note((0, position, 0), f"column '{name}', check whole number", int(fraction.sum()),
+                           _examples(fraction, ids, text))
+            if bad.any():
+                self._note((0, position, 1), f"column '{name}', check type: expected {label}", int(bad.sum()),
+                           _examples(bad, ids, text))
+            unparsed[name] = set(np.flatnonzero(bad.to_numpy()).tolist())
+            typed[name] = values
+        return typed, unparsed
+
+    def _check_values(self, typed: pd.DataFrame, ids: pd.Series, unparsed: dict) -> None:
+        try:
+            self._schema.validate(typed, lazy=True)
+            return
+        except pa.errors.SchemaErrors as exc:
+            cases = exc.failure_cases
+        cases = cases[cases["column"].notna()]
+        for (column, check), group in cases.groupby(["column", "check"], sort=True):
+            rows = group["index"].dropna().astype(int).drop_duplicates().to_numpy()
+            # A cell that could not be parsed is already reported under its type check.
+            rows = np.array([r for r in rows if r not in unparsed.get(column, ())], dtype=int)
+            if rows.size:
+                shown = [f"{_id(ids.iloc[i])}={_show(typed[column].iloc[i])}" for i in rows[:EXAMPLES]]
+                self._note((1, column, check), f"column '{column}', check {_check_name(check)}", len(rows), shown)
+
+    def _note_blanks(self, typed: pd.DataFrame) -> None:
+        for name in typed.columns:
+            missing = typed[name].isna().to_numpy()
+            entry = self.blanks.setdefault(name, [0, []])
+            entry[0] += int(missing.sum())
+            if len(entry[1]) < BLANK_EXAMPLES and missing.any():
+                entry[1].extend(typed[self.id_column][missing].head(BLANK_EXAMPLES - len(entry[1])).tolist())
+
+    def _note_hashes(self, typed: pd.DataFrame, offset: int) -> None:
+        for name, pieces in self._hashes.items():
+            if name in typed:
+                present = typed[name].notna().to_numpy()
+                positions = np.flatnonzero(present)
+                pieces.append((positions + offset, _value_hashes(typed[name][present])))
+
+    def _check_unique(self, name: str, second_look) -> None:
+        pieces = self._hashes[name]
+        if not pieces:
+            return
+        positions = np.concatenate([p for p, _ in pieces])
+        hashes = np.concatenate([h for _, h in pieces])
+        values, counts = np.unique(hashes, return_counts=True)
+        suspects = np.sort(positions[np.isin(hashes, values[counts > 1])])
+        if suspects.size == 0:
+            return
+        ids, values = self._look_again(name, suspects, second_look)
+        repeated = values.duplicated(keep=False).to_numpy() & values.notna().to_numpy()
+        if repeated.any():
+            shown = [f"{_id(ids.iloc[i])}={_show(values.iloc[i])}" for i in np.flatnonzero(repeated)[:EXAMPLES]]
+            self._note((1, name, "field_uniqueness"), f"column '{name}', check unique", int(repeated.sum()), shown)
+
+    def _look_again(self, name: str, suspects: np.ndarray, second_look):
+        """The ids (as written) and typed values of column ``name`` at the rows ``suspects``."""
+        wanted = list(dict.fromkeys([self.id_column, name]))
+        ids, values, offset = [], [], 0
+        for raw in second_look(wanted):
+            local = suspects[(suspects >= offset) & (suspects < offset + len(raw))] - offset
+            offset += len(raw)
+            if local.size:
+                rows = raw.iloc[local].reset_index(drop=True)
+                ids.append(rows[self.id_column].fillna("(missing id)"))
+                values.append(_typed(rows[name], self.columns[name]["type"])[0])
+        return pd.concat(ids, ignore_index=True), pd.concat(values, ignore_index=True)
+
+
+#: Example ids given for blank cells of a column (see ContractCheck.blanks).
+BLANK_EXAMPLES = 5
+
+
+def _value_hashes(values: pd.Series) -> np.ndarray:
+    """64-bit hashes of typed values, equal for equal values (numbers as float64, so that
+    5 and 5.0 and -0.0 and 0.0 hash alike, as they compare)."""
+    if pd.api.types.is_numeric_dtype(values.dtype) and not pd.api.types.is_bool_dtype(values.dtype):
+        values = pd.Series(values.to_numpy(dtype="float64") + 0.0)
+    return pd.util.hash_pandas_object(values, index=False).to_numpy()
 
 
 def _header_problems(raw, columns, contract, *, id_column, target, extra) -> list[str]:
@@ -206,9 +435,9 @@ def _header_problems(raw, columns, contract, *, id_column, target, extra) -> lis
     return problems
 
 
-def _examples(mask: pd.Series, ids: pd.Series, values: pd.Series) -> str:
+def _examples(mask: pd.Series, ids: pd.Series, values: pd.Series) -> list[str]:
     rows = np.flatnonzero(mask.to_numpy())[:EXAMPLES]
-    return ", ".join(f"{_id(ids.iloc[i])}={quoted(values.iloc[i])}" for i in rows)
+    return [f"{_id(ids.iloc[i])}={quoted(values.iloc[i])}" for i in rows]
 
 
 def _id(value) -> str:
@@ -217,31 +446,22 @@ def _id(value) -> str:
     return text if len(text) <= 60 else quoted(text)
 
 
-def _coerce(raw: pd.DataFrame, columns: dict, ids: pd.Series):
-    typed, problems, unparsed = pd.DataFrame(index=raw.index), [], {}
-    for name, spec in columns.items():
-        if name not in raw:
-            continue
-        text = raw[name]
-        kind = spec["type"]
-        if kind in ("integer", "float"):
-            values = _to_float(text)
-            bad = values.isna() & text.notna()
-            label = "a number"
-            if kind == "integer":
-                frac = values.notna() & np.isfinite(values) & (values != np.round(values))
-                if frac.any():
-                    problems.append(_problem(name, "whole number", frac, ids, text))
-        elif kind == "date":
-            values = pd.to_datetime(text, format="%Y-%m-%d", errors="coerce")
-            bad, label = values.isna() & text.notna(), "a date YYYY-MM-DD"
-        else:
-            values, bad, label = text.astype("string"), pd.Series(False, index=raw.index), ""
-        if bad.any():
-            problems.append(_problem(name, f"type: expected {label}", bad, ids, text))
-        unparsed[name] = set(np.flatnonzero(bad.to_numpy()).tolist())
-        typed[name] = values
-    return typed, unparsed, problems
+def _typed(text: pd.Series, kind: str):
+    """Typed values of a text column, the cells that do not parse, the expected form, and
+    (integer columns) the cells that are numbers but not whole."""
+    fraction = None
+    if kind in ("integer", "float"):
+        values = _to_float(text)
+        bad, label = values.isna() & text.notna(), "a number"
+        if kind == "integer":
+            fraction = values.notna() & np.isfinite(values) & (values != np.round(values))
+    elif kind == "date":
+        # Microseconds always: pandas picks seconds for a piece whose cells are all blank.
+        values = pd.to_datetime(text, format="%Y-%m-%d", errors="coerce").astype("datetime64[us]")
+        bad, label = values.isna() & text.notna(), "a date YYYY-MM-DD"
+    else:
+        values, bad, label = text.astype("string"), pd.Series(False, index=text.index), ""
+    return values, bad, label, fraction
 
 
 def _to_float(text: pd.Series) -> pd.Series:
@@ -260,10 +480,6 @@ def _to_float(text: pd.Series) -> pd.Series:
     except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError):
         pass
     return pd.to_numeric(text, errors="coerce").astype("float64")
-
-
-def _problem(column: str, check: str, mask: pd.Series, ids: pd.Series, values: pd.Series) -> str:
-    return f"column '{column}', check {check}: {int(mask.sum())} row(s) fail, e.g. {_examples(mask, ids, values)}"
 
 
 def build_schema(columns: dict) -> pa.DataFrameSchema:
@@ -287,25 +503,6 @@ def build_schema(columns: dict) -> pa.DataFrameSchema:
     return pa.DataFrameSchema(schema_columns, strict=False)
 
 
-def _check_values(typed: pd.DataFrame, columns: dict, ids: pd.Series, unparsed: dict) -> list[str]:
-    try:
-        build_schema(columns).validate(typed, lazy=True)
-        return []
-    except pa.errors.SchemaErrors as exc:
-        cases = exc.failure_cases
-    problems = []
-    cases = cases[cases["column"].notna()]
-    for (column, check), group in cases.groupby(["column", "check"], sort=True):
-        rows = group["index"].dropna().astype(int).drop_duplicates().to_numpy()
-        # A cell that could not be parsed is already reported under its type check.
-        rows = np.array([r for r in rows if r not in unparsed.get(column, ())], dtype=int)
-        if rows.size == 0:
-            continue
-        shown = ", ".join(f"{_id(ids.iloc[i])}={_show(typed[column].iloc[i])}" for i in rows[:EXAMPLES])
-        problems.append(f"column '{column}', check {_check_name(check)}: {len(rows)} row(s) fail, e.g. {shown}")
-    return problems
-
-
 def _show(value) -> str:
     if value is None or (isinstance(value, float) and math.isnan(value)) or value is pd.NA or value is pd.NaT:
         return "(missing)"
@@ -318,7 +515,9 @@ def _check_name(check: str) -> str:
     return {"not_nullable": "not empty", "field_uniqueness": "unique"}.get(check, check)
 
 
-def _target_problems(values: pd.Series, name: str, positive: str, spec: dict) -> list[str]:
+def _target_problems(present: list, name: str, positive: str, spec: dict) -> list[str]:
+    """The target must be a two-level category holding ``positive``; ``present`` are the
+    distinct values found (sorted)."""
     problems = []
     levels = [str(v) for v in spec.get("levels", [])]
     if spec["type"] != "category" or len(levels) != 2:
@@ -327,7 +526,6 @@ def _target_problems(values: pd.Series, name: str, positive: str, spec: dict) ->
         )
     if positive not in levels:
         problems.append(f"target '{name}': positive_label {quoted(positive)} is not one of its levels {quoted(levels)}")
-    present = sorted(values.dropna().unique())
     if len(present) == 1:
         problems.append(f"target '{name}': only one class present ({quoted(present[0])}); a yes/no model needs both")
     return problems

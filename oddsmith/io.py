@@ -157,6 +157,57 @@ def read_parquet(path: str | Path, columns=None, rows=None):
     return pd.DataFrame(pieces, copy=False)
 
 
+def read_parquet_pieces(path: str | Path, columns: list[str], *, rows=None, piece_rows: int = 32_768):
+    """Read columns of a Parquet artifact into pandas, ``piece_rows`` file rows at a time.
+
+    ``rows``, a boolean mask with one value per row of the file, keeps only those rows. Each
+    piece's index continues the count of the rows kept, so the pieces concatenated equal
+    :func:`read_parquet` of the same columns and rows; a piece with no kept row is skipped.
+    Only one piece of the file is in memory at a time.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise ArtifactError(f"required artifact not found: {path}")
+    # Without pre-buffering: a pre-buffering reader keeps every range it has read until it
+    # is closed, which here would be most of the file.
+    import pandas as pd
+
+    parquet = pq.ParquetFile(path, pre_buffer=False)
+    missing = [c for c in columns if c not in parquet.schema_arrow.names]
+    if missing:
+        raise ArtifactError(f"{path} has no columns {missing}")
+    if rows is not None and len(rows) != parquet.metadata.num_rows:
+        raise ArgumentError(f"rows has {len(rows)} values, {path} has {parquet.metadata.num_rows} rows")
+    start = kept = 0
+    for group in range(parquet.metadata.num_row_groups):
+        n = parquet.metadata.row_group(group).num_rows
+        mask = None if rows is None else pa.array(rows[start:start + n], type=pa.bool_())
+        start += n
+        # One column of one row group at a time: the batch reader holds decoded buffers of
+        # the whole row group for every column besides the pieces it hands out.
+        columns_read = {}
+        for name in columns:
+            table = parquet.read_row_group(group, columns=[name], use_threads=False)
+            columns_read[name] = (table if mask is None else table.filter(mask)).to_pandas(self_destruct=True)[name]
+        frame = pd.DataFrame(columns_read, copy=False)
+        del columns_read
+        for s in range(0, len(frame), piece_rows):
+            piece = frame.iloc[s:s + piece_rows]
+            piece.index = range(kept, kept + len(piece))
+            kept += len(piece)
+            yield piece
+
+
+def release_arrow_memory() -> None:
+    """Hand the memory of freed Arrow buffers back to the system.
+
+    Columns read from Parquet live in Arrow's memory pool (pandas gets views of them); the
+    pool keeps freed pages for reuse, so without this the memory of a frame that is done with
+    still counts while the next large array is allocated outside the pool.
+    """
+    pa.default_memory_pool().release_unused()
+
+
 def parquet_columns(path: str | Path) -> list[str]:
     """Column names of a Parquet artifact, from its footer (no data is read)."""
     path = Path(path)

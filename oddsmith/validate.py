@@ -12,14 +12,17 @@ from __future__ import annotations
 
 import logging
 import math
+import os
+import tempfile
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from oddsmith.contract import load_contract, read_raw, validate_frame
+from oddsmith.contract import PIECE_ROWS, ContractCheck, load_contract, read_raw_pieces
 from oddsmith.errors import ContractError, DataError, quoted
-from oddsmith.io import sha256_file, write_bytes_atomic, write_json, write_parquet_chunks, write_text
+from oddsmith.io import (parquet_columns, read_parquet, sha256_file, write_bytes_atomic, write_json,
+                         write_parquet_chunks, write_text)
 from oddsmith.split import feasibility
 
 log = logging.getLogger("oddsmith.validate")
@@ -121,15 +124,20 @@ def planned_parameters(config: dict, contract: dict, *, features: list[str] | No
 
 def quality_profile(df: pd.DataFrame, *, id_column: str, target: str, n_parameters: int) -> dict:
     """Rows, columns, missing shares, (near-)constant columns, duplicates, balance, EPV."""
-    n = len(df)
-    events = int(df[target].sum())
+    return profile_columns(df.items(), ids=df[id_column], y=df[target], n_parameters=n_parameters)
+
+
+def profile_columns(columns, *, ids: pd.Series, y: pd.Series, n_parameters: int) -> dict:
+    """:func:`quality_profile` from ``(name, values)`` pairs taken one at a time (so that a
+    large snapshot can be profiled column by column), the id and target columns given apart."""
+    n = len(ids)
+    events = int(y.sum())
     minority = min(events, n - events)
-    columns = {}
-    for name in df.columns:
-        s = df[name]
+    profile = {}
+    for name, s in columns:
         counts = s.value_counts(dropna=False)  # one hashing pass gives both the top share and the distinct count
         missing = int(s.isna().sum())
-        columns[name] = {
+        profile[name] = {
             "dtype": str(s.dtype),
             "missing_share": missing / n,
             "distinct": int(len(counts) - (1 if missing else 0)),
@@ -144,11 +152,11 @@ def quality_profile(df: pd.DataFrame, *, id_column: str, target: str, n_paramete
         )
     return {
         "rows": n,
-        "columns": len(df.columns),
-        "column_profile": columns,
-        "constant_columns": [c for c, v in columns.items() if v["distinct"] <= 1],
-        "near_constant_columns": [c for c, v in columns.items() if v["distinct"] > 1 and v["top_share"] >= NEAR_CONSTANT_SHARE],
-        "duplicate_ids": int(df[id_column].duplicated().sum()),
+        "columns": len(profile),
+        "column_profile": profile,
+        "constant_columns": [c for c, v in profile.items() if v["distinct"] <= 1],
+        "near_constant_columns": [c for c, v in profile.items() if v["distinct"] > 1 and v["top_share"] >= NEAR_CONSTANT_SHARE],
+        "duplicate_ids": int(ids.duplicated().sum()),
         "target": {"events": events, "non_events": n - events, "event_rate": events / n},
         "planned_parameters": n_parameters,
         "events_per_parameter": epv,
@@ -157,16 +165,30 @@ def quality_profile(df: pd.DataFrame, *, id_column: str, target: str, n_paramete
     }
 
 
-def analysis_problems(df: pd.DataFrame, *, config: dict, contract: dict) -> list[str]:
+def analysis_columns(config: dict) -> list[str]:
+    """The columns :func:`analysis_problems` and :func:`cluster_problems` look at (besides the
+    blanks of features, which they can take as counts)."""
+    data, split, fairness = config["data"], config["split"], config["fairness"]
+    names = [data["id_column"], data["target"], data["date_column"], split.get("group_column"),
+             (config.get("inference") or {}).get("cluster_column"), *fairness["sensitive"], *fairness["segments"],
+             *(f["name"] for f in config["features"] if f["type"] == "categorical")]
+    return list(dict.fromkeys(n for n in names if n))
+
+
+def analysis_problems(df: pd.DataFrame, *, config: dict, contract: dict, blanks: dict | None = None) -> list[str]:
     """Conditions later stages need, checked on the typed data before anything is written.
 
     Uses ``config`` keys ``data``, ``features``, ``interactions``, ``fairness``, ``split``
     (method, test_fraction, cutoff_date, group_column), ``cross_validation`` (folds) and
     ``candidates`` (name, kind, features); no seed is read, so a change of seed needs no new
-    check.
+    check. ``df`` needs the :func:`analysis_columns`; the blank cells of the features come
+    from ``blanks`` (column → [count, first ids], as :class:`oddsmith.contract.ContractCheck`
+    counts them) or, without it, from ``df``.
     """
     data, ids = config["data"], df[config["data"]["id_column"]]
-    problems = _group_problems(df, config["fairness"], ids) + _blank_feature_problems(df, config["features"], ids)
+    if blanks is None:
+        blanks = {f["name"]: _blanks(df[f["name"]], ids) for f in config["features"]}
+    problems = _group_problems(df, config["fairness"], ids) + _blank_feature_problems(blanks, config["features"])
     plan = feasibility(
         df, id_column=data["id_column"], target=data["target"],
         split=config["split"] | {"date_column": data["date_column"]}, cross_validation=config["cross_validation"],
@@ -217,13 +239,18 @@ def _bands_used(values: pd.Series, edges: list) -> int:
     return len(np.unique(np.searchsorted(np.asarray(edges, dtype=float), numbers, side="right")))
 
 
-def _blank_feature_problems(df: pd.DataFrame, features: list, ids: pd.Series) -> list[str]:
+def _blanks(values: pd.Series, ids: pd.Series) -> list:
+    missing = values.isna().to_numpy()
+    return [int(missing.sum()), ids[missing].head(5).tolist()]
+
+
+def _blank_feature_problems(blanks: dict, features: list) -> list[str]:
     problems = []
     for f in features:
-        missing = df[f["name"]].isna().to_numpy()
-        if f["missing"] == "reject" and missing.any():
+        count, examples = blanks.get(f["name"], [0, []])
+        if f["missing"] == "reject" and count:
             problems.append(
-                f"features.{f['name']}: blank in {int(missing.sum())} row(s), e.g. ids {_id_examples(ids, missing)}; "
+                f"features.{f['name']}: blank in {count} row(s), e.g. ids {', '.join(quoted(v) for v in examples)}; "
                 "the feature has missing: reject (set missing: indicator to model blanks, or fill them in the data)"
             )
     return problems
@@ -283,41 +310,127 @@ PARQUET_CHUNK_ROWS = 131_072
 
 
 def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: str, out_report: str, out_summary: str,
-                 out_contract: str | None = None) -> dict:
+                 out_contract: str | None = None, piece_rows: int = PIECE_ROWS) -> dict:
     """Check the raw data against contract and config; write the snapshot, report, summary,
-    and a byte copy of the contract (so a results folder carries the contract it was checked by)."""
+    and a byte copy of the contract (so a results folder carries the contract it was checked by).
+
+    The file is read, typed and checked ``piece_rows`` rows at a time; the typed rows go
+    straight into a scratch Parquet file beside ``out_data`` (row groups of
+    ``PARQUET_CHUNK_ROWS``, whatever ``piece_rows`` is), which the checks that need whole
+    columns then read a few columns at a time. The scratch file becomes ``out_data`` only
+    when every check has passed, and is removed otherwise.
+    """
     contract = load_contract(contract_path)
     problems = config_contract_problems(config, contract)
     if problems:
         raise ContractError("the configuration and the data contract disagree", problems)
     data = config["data"]
-    raw = read_raw(data_path, encoding=data["encoding"])
-    df = validate_frame(
-        raw, contract, id_column=data["id_column"], target=data["target"],
-        positive_label=data["positive_label"], extra_columns=data["extra_columns"], source=str(data_path),
-    )
-    problems = analysis_problems(df, config=config, contract=contract)
-    problems += cluster_problems(df, config)
-    if problems:
-        raise DataError(f"{data_path}: the data cannot support the configured analysis", problems)
-    report = quality_profile(df, id_column=data["id_column"], target=data["target"],
-                             n_parameters=planned_parameters(config, contract))
-    report["source"] = {"path": str(data_path), "sha256": sha256_file(data_path), "contract": str(contract_path),
-                        "contract_sha256": sha256_file(contract_path)}
-    report["ignored_columns"] = [c for c in raw.columns if c not in contract["columns"]]
-    del raw  # the all-text copy of the file: the largest object here
-    report["target_encoding"] = f"{data['target']} = 1 where the raw value is {data['positive_label']!r}, else 0"
-    if data["date_column"]:
-        dates = df[data["date_column"]]
-        report["date_range"] = [dates.min().date().isoformat(), dates.max().date().isoformat()]
-    for w in report["warnings"]:
-        log.warning(w)
-    # Written in row groups: one piece at a time is converted to Arrow, not the whole frame.
-    write_parquet_chunks(out_data, (df.iloc[s:s + PARQUET_CHUNK_ROWS] for s in range(0, max(len(df), 1), PARQUET_CHUNK_ROWS)))
+    check = ContractCheck(contract, id_column=data["id_column"], target=data["target"],
+                          positive_label=data["positive_label"], extra_columns=data["extra_columns"],
+                          source=str(data_path))
+
+    def pieces(columns=None):
+        return read_raw_pieces(data_path, encoding=data["encoding"], rows=piece_rows, columns=columns)
+
+    scratch = _scratch_name(out_data)
+    try:
+        write_parquet_chunks(scratch, _row_groups(check, pieces(), PARQUET_CHUNK_ROWS))
+        check.finish(pieces)
+        _store_whole_numbers(scratch, check.whole_number_columns())
+        report = _checked_report(scratch, check, config=config, contract=contract)
+        report["source"] = {"path": str(data_path), "sha256": sha256_file(data_path), "contract": str(contract_path),
+                            "contract_sha256": sha256_file(contract_path)}
+        report["ignored_columns"] = [c for c in check.raw_columns if c not in contract["columns"]]
+        report["target_encoding"] = f"{data['target']} = 1 where the raw value is {data['positive_label']!r}, else 0"
+        for w in report["warnings"]:
+            log.warning(w)
+        os.replace(scratch, out_data)
+    finally:
+        Path(scratch).unlink(missing_ok=True)
     write_json(out_report, report)
     write_text(out_summary, render_summary(report))
     if out_contract:
         write_bytes_atomic(out_contract, Path(contract_path).read_bytes())
+    return report
+
+
+def _scratch_name(out_data: str) -> Path:
+    """A free name beside ``out_data`` (hidden, ``.part`` like every interrupted write)."""
+    path = Path(out_data)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".unchecked.part")
+    os.close(fd)
+    return Path(name)
+
+
+def _row_groups(check: ContractCheck, pieces, rows: int):
+    """Type and check every raw piece; yield the typed rows in frames of ``rows`` rows.
+
+    Once a piece has failed a check nothing more is yielded (the scratch file will be
+    removed), but every later piece is still checked, so that all problems are reported.
+    """
+    held, count, written, empty = [], 0, False, None
+    for raw in pieces:
+        typed = check.add(raw)
+        raw = None  # noqa: F841 (the text of this piece may go before the next is read)
+        empty = typed.iloc[:0] if empty is None else empty
+        if check.problems:
+            held, count = [], 0
+            continue
+        held.append(typed)
+        count += len(typed)
+        while count >= rows:
+            block = pd.concat(held, ignore_index=True) if len(held) > 1 else held[0]
+            yield block.iloc[:rows]
+            written, held = True, [block.iloc[rows:]]
+            count = len(held[0])
+    if count:
+        yield pd.concat(held, ignore_index=True) if len(held) > 1 else held[0]
+    elif not written and empty is not None:
+        yield empty  # nothing was good: an empty (valid) scratch file, removed after the report
+
+
+def _store_whole_numbers(path: Path, names: list[str]) -> None:
+    """Nullable integer columns without a blank in the whole file are stored as int64 (as a
+    whole-file typing gives them); the pieces held them as float64, so the file is rewritten
+    one row group at a time."""
+    if not names:
+        return
+    import pyarrow.parquet as pq
+
+    source = pq.ParquetFile(path)
+
+    def groups():
+        for i in range(source.metadata.num_row_groups):
+            frame = source.read_row_group(i).to_pandas()
+            for name in names:
+                frame[name] = frame[name].astype("int64")
+            yield frame
+
+    rewritten = path.with_name(path.name + ".int")
+    try:
+        write_parquet_chunks(rewritten, groups())
+        os.replace(rewritten, path)
+    finally:
+        rewritten.unlink(missing_ok=True)
+
+
+def _checked_report(path: Path, check: ContractCheck, *, config: dict, contract: dict) -> dict:
+    """The checks of later stages' needs, then the quality profile, from the typed snapshot
+    at ``path`` read a few columns at a time; DataError if the analysis cannot be done."""
+    data = config["data"]
+    present = parquet_columns(path)
+    df = read_parquet(path, columns=[c for c in analysis_columns(config) if c in present])
+    problems = analysis_problems(df, config=config, contract=contract, blanks=check.blanks)
+    problems += cluster_problems(df, config)
+    if problems:
+        raise DataError(f"{check.source}: the data cannot support the configured analysis", problems)
+    columns = ((name, df[name] if name in df else read_parquet(path, columns=[name])[name]) for name in present)
+    report = profile_columns(columns, ids=df[data["id_column"]], y=df[data["target"]],
+                             n_parameters=planned_parameters(config, contract))
+    if data["date_column"]:
+        dates = df[data["date_column"]]
+        report["date_range"] = [dates.min().date().isoformat(), dates.max().date().isoformat()]
     return report
 
 

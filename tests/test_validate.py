@@ -373,3 +373,170 @@ def test_banded_numeric_sensitive_attribute_validates(demo_config, tmp_path):
     assert (tmp_path / "data.parquet").exists()
     cfg["fairness"]["bands"] = {"credit_score": [100, 200]}  # every score is 300 or more: one band
     _expect_failure(cfg, tmp_path / "again", DEMO, "every value of 'credit_score' falls in one band")
+
+
+# ------------------------------------------------------- the file is read and checked in row pieces
+
+
+def _outputs(out: Path) -> dict:
+    return {name: (out / name).read_bytes() for name in ("data.parquet", "report.json", "summary.txt")}
+
+
+def _run_in_pieces(cfg, data: Path, out: Path, piece_rows: int):
+    return run_validate(config=cfg, data_path=str(data), contract_path=str(CONTRACT), out_data=str(out / "data.parquet"),
+                        out_report=str(out / "report.json"), out_summary=str(out / "summary.txt"), piece_rows=piece_rows)
+
+
+def _whole_frame_snapshot(cfg, data: Path, path: Path, group_rows: int) -> None:
+    """The snapshot as a check of the whole file at once writes it: the typed frame cut into
+    row groups (the reference for the piece-by-piece writer)."""
+    from oddsmith.contract import load_contract, read_raw, validate_frame
+    from oddsmith.io import write_parquet_chunks
+
+    d = cfg["data"]
+    typed = validate_frame(read_raw(data), load_contract(CONTRACT), id_column=d["id_column"], target=d["target"],
+                           positive_label=d["positive_label"], extra_columns=d["extra_columns"])
+    write_parquet_chunks(path, (typed.iloc[s:s + group_rows] for s in range(0, len(typed), group_rows)))
+
+
+def test_pieces_of_seven_rows_give_the_same_bytes_as_one_piece(cfg, tmp_path):
+    path = _write(tmp_path, _demo_frame())
+    _run_in_pieces(cfg, path, tmp_path / "one", piece_rows=100_000)
+    _run_in_pieces(cfg, path, tmp_path / "seven", piece_rows=7)  # 58 pieces, the last of 1 row
+    assert _outputs(tmp_path / "seven") == _outputs(tmp_path / "one")
+
+
+def test_row_groups_do_not_depend_on_the_pieces(cfg, tmp_path, monkeypatch):
+    # Row groups of 50 rows from pieces of 7 rows: each group is assembled from several
+    # pieces and cut inside one; the bytes equal the whole typed frame cut every 50 rows.
+    import oddsmith.validate as validate
+
+    monkeypatch.setattr(validate, "PARQUET_CHUNK_ROWS", 50)
+    path = _write(tmp_path, _demo_frame(333))
+    _run_in_pieces(cfg, path, tmp_path / "pieces", piece_rows=7)
+    _whole_frame_snapshot(cfg, path, tmp_path / "whole.parquet", group_rows=50)
+    assert (tmp_path / "pieces" / "data.parquet").read_bytes() == (tmp_path / "whole.parquet").read_bytes()
+    import pyarrow.parquet as pq
+    assert pq.ParquetFile(tmp_path / "whole.parquet").metadata.num_row_groups == 7
+
+
+def test_the_demo_snapshot_in_pieces_equals_the_whole_file_typed_at_once(cfg, tmp_path):
+    from oddsmith.validate import PARQUET_CHUNK_ROWS
+
+    _run_in_pieces(cfg, DEMO, tmp_path / "pieces", piece_rows=1_000)
+    _whole_frame_snapshot(cfg, DEMO, tmp_path / "whole.parquet", group_rows=PARQUET_CHUNK_ROWS)
+    assert (tmp_path / "pieces" / "data.parquet").read_bytes() == (tmp_path / "whole.parquet").read_bytes()
+
+
+def _scattered_problems() -> pd.DataFrame:
+    frame = _demo_frame()
+    frame.loc[[2, 150, 391], "credit_score"] = ["high", "low", "n/a"]     # type, in pieces 1, 22 and 56
+    frame.loc[[10, 200, 390, 399], "credit_score"] = "999"                # range, four pieces
+    frame.loc[[30, 260], "region"] = "moon"                                # unknown level
+    frame.loc[300, "application_id"] = frame.loc[5, "application_id"]     # repeat 295 rows apart
+    frame.loc[[80, 81, 350], "application_id"] = "LA-REPEAT"              # a second repeated id
+    frame.loc[[33, 333], "prior_late_payments"] = ["1.5", "2.5"]           # not whole numbers
+    return frame
+
+
+def test_problems_scattered_over_pieces_are_merged_as_one_piece_reports_them(cfg, tmp_path):
+    path = _write(tmp_path, _scattered_problems())
+    whole = _expect_failure(cfg, tmp_path, path)
+    pieces = str(pytest.raises(ContractError, _run_in_pieces, cfg, path, tmp_path / "validated", 7).value)
+    assert pieces == whole
+    assert not (tmp_path / "validated").exists() or not any((tmp_path / "validated").iterdir())
+    # Counts over all pieces, the first three examples in file order (ids count from 1).
+    for fragment in (
+        "column 'credit_score', check type: expected a number: 3 row(s) fail, e.g. LA-000003='high', "
+        "LA-000151='low', LA-000392='n/a'",
+        "column 'credit_score', check less_than_or_equal_to(850): 4 row(s) fail, e.g. LA-000011=999.0, "
+        "LA-000201=999.0, LA-000391=999.0",
+        "column 'region', check isin",
+        "column 'prior_late_payments', check whole number: 2 row(s) fail, e.g. LA-000034='1.5', LA-000334='2.5'",
+        "column 'application_id', check unique: 5 row(s) fail, e.g. LA-000006='LA-000006', "
+        "LA-REPEAT='LA-REPEAT', LA-REPEAT='LA-REPEAT'",
+    ):
+        assert fragment in pieces, f"{fragment!r} not in:\n{pieces}"
+    assert pieces.index("prior_late_payments', check whole") < pieces.index("credit_score', check type")
+
+
+def test_a_hash_shared_by_different_ids_is_not_a_repeat(cfg, tmp_path, monkeypatch):
+    # Rows whose hashes agree are looked at again: with every hash forced equal, only the
+    # real repeat (rows 6 and 301) may be reported.
+    import oddsmith.contract as contract
+
+    monkeypatch.setattr(contract, "_value_hashes", lambda values: np.zeros(len(values), dtype=np.uint64))
+    frame = _demo_frame()
+    frame.loc[300, "application_id"] = frame.loc[5, "application_id"]
+    message = str(pytest.raises(ContractError, _run_in_pieces, cfg, _write(tmp_path, frame), tmp_path / "v", 7).value)
+    assert "column 'application_id', check unique: 2 row(s) fail, e.g. LA-000006='LA-000006', LA-000006='LA-000006'" \
+        in message
+    frame.loc[300, "application_id"] = "LA-000301"
+    _run_in_pieces(cfg, _write(tmp_path, frame), tmp_path / "ok", 7)
+
+
+def test_ragged_row_in_a_later_piece_names_its_line(cfg, tmp_path):
+    path = _write(tmp_path, _demo_frame(60))
+    lines = path.read_text().splitlines()
+    lines[45] += ",surplus"  # line 46 of the file, in the seventh piece of 7 rows
+    path.write_text("\n".join(lines) + "\n")
+    with pytest.raises(ContractError, match="line 46: expected 14 fields") as err:
+        _run_in_pieces(cfg, path, tmp_path / "validated", 7)
+    assert "found 15" in str(err.value)
+    assert not any((tmp_path / "validated").iterdir())
+
+
+def test_blank_rejected_feature_counts_every_piece(cfg, tmp_path):
+    from oddsmith.errors import DataError
+
+    for f in cfg["features"]:
+        if f["name"] == "guarantor_score":
+            f["missing"] = "reject"
+    path = _write(tmp_path, _demo_frame())
+    whole = str(pytest.raises(DataError, _run_in_pieces, cfg, path, tmp_path / "a", 100_000).value)
+    pieces = str(pytest.raises(DataError, _run_in_pieces, cfg, path, tmp_path / "b", 7).value)
+    assert pieces == whole
+    blanks = int((_demo_frame()["guarantor_score"] == "").sum())
+    assert f"features.guarantor_score: blank in {blanks} row(s)" in pieces and blanks > 7
+
+
+def test_nullable_whole_numbers_without_blanks_are_stored_as_int64(cfg, tmp_path, monkeypatch):
+    # guarantor_score is a nullable integer: without a blank anywhere it is int64, as when the
+    # whole file is typed at once, although each piece held it as float64.
+    import oddsmith.validate as validate
+
+    monkeypatch.setattr(validate, "PARQUET_CHUNK_ROWS", 50)
+    frame = _demo_frame()
+    frame.loc[frame["guarantor_score"] == "", "guarantor_score"] = "700"
+    path = _write(tmp_path, frame)
+    _run_in_pieces(cfg, path, tmp_path / "pieces", piece_rows=7)
+    _whole_frame_snapshot(cfg, path, tmp_path / "whole.parquet", group_rows=50)
+    assert pd.read_parquet(tmp_path / "pieces" / "data.parquet")["guarantor_score"].dtype == "int64"
+    assert (tmp_path / "pieces" / "data.parquet").read_bytes() == (tmp_path / "whole.parquet").read_bytes()
+
+
+def test_the_file_is_read_in_bounded_pieces(cfg, tmp_path, monkeypatch):
+    import oddsmith.validate as validate
+    from oddsmith.contract import PIECE_ROWS
+
+    asked = []
+
+    def spy(path, **options):
+        asked.append(options)
+        return validate_reader(path, **options)
+
+    validate_reader = validate.read_raw_pieces
+    monkeypatch.setattr(validate, "read_raw_pieces", spy)
+    _run(cfg, _write(tmp_path, _demo_frame()), tmp_path / "v")
+    assert asked and all(o["rows"] == PIECE_ROWS <= 65_536 for o in asked)
+
+
+def test_rows_a_multiple_of_the_row_group_leave_no_empty_group(cfg, tmp_path, monkeypatch):
+    import pyarrow.parquet as pq
+
+    import oddsmith.validate as validate
+
+    monkeypatch.setattr(validate, "PARQUET_CHUNK_ROWS", 100)
+    _run_in_pieces(cfg, _write(tmp_path, _demo_frame()), tmp_path / "v", piece_rows=7)
+    groups = pq.ParquetFile(tmp_path / "v" / "data.parquet").metadata
+    assert [groups.row_group(i).num_rows for i in range(groups.num_row_groups)] == [100, 100, 100, 100]

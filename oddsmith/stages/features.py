@@ -9,8 +9,9 @@ import logging
 import numpy as np
 import pandas as pd
 
+from oddsmith.errors import ArtifactError
 from oddsmith.diagnostics import design_diagnostics, leakage_screen
-from oddsmith.io import read_parquet, write_json, write_parquet_chunks
+from oddsmith.io import read_parquet, read_parquet_pieces, release_arrow_memory, write_json, write_parquet_chunks
 from oddsmith.recipe import CLUSTER_LABELS, apply_recipe, dump_recipe, learn_recipe
 
 log = logging.getLogger("oddsmith.features")
@@ -23,14 +24,19 @@ CHUNK_ROWS = 131_072
 BUILD_ROWS = 32_768
 
 
-def _design(recipe: dict, train: pd.DataFrame) -> pd.DataFrame:
-    """The unstandardised design of the training rows, built piece by piece into one array."""
+def _design(recipe: dict, pieces, n_rows: int) -> pd.DataFrame:
+    """The unstandardised design of the training rows, built piece by piece into one array
+    from pieces of the raw training rows (in order, index = training row number)."""
     columns = recipe["columns"]
-    values = np.empty((len(train), len(columns)), order="F")
-    for s in range(0, len(train), BUILD_ROWS):
-        piece, _ = apply_recipe(recipe, train.iloc[s:s + BUILD_ROWS], standardise=False)
-        values[s:s + BUILD_ROWS] = piece.to_numpy()
-    return pd.DataFrame(values, columns=columns, index=train.index, copy=False)
+    values = np.empty((n_rows, len(columns)), order="F")
+    done = 0
+    for raw in pieces:
+        piece, _ = apply_recipe(recipe, raw, standardise=False)
+        values[done:done + len(piece)] = piece.to_numpy()
+        done += len(piece)
+    if done != n_rows:
+        raise ArtifactError(f"the design has {done} rows, expected {n_rows}")
+    return pd.DataFrame(values, columns=columns, copy=False)
 
 
 def run_features(*, data_path: str, assignment_path: str, features: list, interactions: list, target: str,
@@ -48,10 +54,12 @@ def run_features(*, data_path: str, assignment_path: str, features: list, intera
     recipe = learn_recipe(train, features=features, interactions=interactions, target=target)
     y = train[target].to_numpy().astype(int)
     # The leakage screen needs the raw columns, the rest of the diagnostics the design: the
-    # screen runs first so that the raw columns can go before the design is examined.
+    # screen runs first, and the raw columns go before the design is built (from the file
+    # again, a piece at a time), so that raw columns and design are never held together.
     leakage = leakage_screen(train[names], y, features, diagnostics.get("leak_auc", 0.95))
-    X = _design(recipe, train)
     del train
+    release_arrow_memory()
+    X = _design(recipe, read_parquet_pieces(data_path, names, rows=is_train, piece_rows=BUILD_ROWS), len(y))
     report = design_diagnostics(X, y, features=features, leakage=leakage, **diagnostics)
     for warning in report.get("warnings", []):
         log.warning(warning)

@@ -1,0 +1,49 @@
+"""Reading in pieces: a CSV piece by piece as text (the validate stage) and a Parquet
+snapshot piece by piece (the features stage) give what a whole read gives."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from oddsmith.contract import read_raw, read_raw_pieces
+from oddsmith.errors import ContractError
+from oddsmith.io import read_parquet, read_parquet_pieces, write_parquet_chunks
+
+
+def test_csv_pieces_continue_the_row_count_and_equal_the_whole_read(tmp_path):
+    path = tmp_path / "d.csv"
+    # BOM, CRLF line ends, a quoted comma and blanks: the pieces must read them as the whole read does.
+    rows = "".join(f'{i},"a, {i}",{"" if i % 4 == 0 else i * 1.5}\r\n' for i in range(23))
+    path.write_bytes(b"\xef\xbb\xbf" + ("id,text,x\r\n" + rows).encode())
+    pieces = list(read_raw_pieces(path, rows=5))
+    assert [len(p) for p in pieces] == [5, 5, 5, 5, 3]
+    assert [p.index[0] for p in pieces] == [0, 5, 10, 15, 20]
+    assert all(p.attrs["header"] == ["id", "text", "x"] for p in pieces)
+    pd.testing.assert_frame_equal(pd.concat(pieces), read_raw(path))
+    assert pieces[4]["text"].tolist() == ["a, 20", "a, 21", "a, 22"] and pieces[0]["x"].isna().tolist()[0]
+
+
+def test_csv_pieces_refuse_a_header_without_rows_and_a_bad_piece_size(tmp_path):
+    path = tmp_path / "d.csv"
+    path.write_text("id,x\n")
+    with pytest.raises(ContractError, match="has a header but no data rows"):
+        list(read_raw_pieces(path, rows=5))
+    with pytest.raises(ValueError, match="positive number of rows"):
+        read_raw_pieces(path, rows=0)
+
+
+def test_parquet_pieces_of_kept_rows_equal_the_whole_read(tmp_path):
+    rng = np.random.default_rng(3)
+    frame = pd.DataFrame({"x": rng.normal(size=95), "k": pd.Series(list("abcde") * 19, dtype="string"),
+                          "n": np.arange(95)})
+    path = tmp_path / "f.parquet"
+    write_parquet_chunks(path, (frame.iloc[s:s + 40] for s in range(0, 95, 40)))  # groups of 40, 40, 15
+    keep = rng.random(95) < 0.6
+    keep[10:30] = False  # a whole piece of 20 rows without a kept row is skipped
+    pieces = list(read_parquet_pieces(path, ["n", "x"], rows=keep, piece_rows=10))
+    assert all(len(p) for p in pieces)
+    pd.testing.assert_frame_equal(pd.concat(pieces), read_parquet(path, columns=["n", "x"], rows=keep))
+    pd.testing.assert_frame_equal(pd.concat(read_parquet_pieces(path, ["k"], piece_rows=7)),
+                                  read_parquet(path, columns=["k"]))
