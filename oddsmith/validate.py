@@ -219,7 +219,8 @@ def _group_problems(df: pd.DataFrame, fairness: dict, ids: pd.Series) -> list[st
                 problems.append(
                     f"fairness.{key}: column '{name}' is blank in {int(missing.sum())} row(s), e.g. ids "
                     f"{_id_examples(ids, missing)}; every row needs a group: fill them in the data with an "
-                    f"explicit group, or make the blanks a group of their own: {{name: {name}, blanks: not stated}}"
+                    + (f"explicit group, or make the blanks a group of their own: {{name: {name}, blanks: not stated}}"
+                       if key == "sensitive" else "explicit group (a segment has no blank-group option)")
                 )
                 continue
             edges = fairness.get("bands", {}).get(name)
@@ -332,6 +333,7 @@ def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: 
     def pieces(columns=None):
         return read_raw_pieces(data_path, encoding=data["encoding"], rows=piece_rows, columns=columns)
 
+    folder_existed = Path(out_data).parent.exists()
     scratch = _scratch_name(out_data)
     try:
         write_parquet_chunks(scratch, _row_groups(check, pieces(), PARQUET_CHUNK_ROWS))
@@ -345,8 +347,11 @@ def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: 
         for w in report["warnings"]:
             log.warning(w)
         os.replace(scratch, out_data)
-    finally:
+    except BaseException:
         Path(scratch).unlink(missing_ok=True)
+        if not folder_existed and not any(Path(out_data).parent.iterdir()):
+            Path(out_data).parent.rmdir()  # a refused file leaves nothing behind, not even a folder
+        raise
     write_json(out_report, report)
     write_text(out_summary, render_summary(report))
     if out_contract:

@@ -50,7 +50,7 @@ def _birthwt_project(dest: Path) -> Path:
         "candidates": [{"name": "logit_main", "kind": "logit", "features": list(MAIN)},
                        {"name": "ridge", "kind": "l2", "features": list(MAIN), "grid": [0.01, 0.1, 1.0]},
                        {"name": "logit_leak", "kind": "logit", "features": ["bwt"]}],
-        "fairness": {"segments": ["race"], "min_group_size": 10},
+        "fairness": {"min_group_size": 10},
         "costs": {"false_positive": 1, "false_negative": 5},
         "card": {"title": "Low birth weight (MASS birthwt)", "version": "0.1.0", "owner": "test",
                  "intended_use": "A test of the workflow on outside data."},
