@@ -23,6 +23,8 @@ from string import Formatter
 
 from oddsmith.errors import ArgumentError
 
+#: The folder of the jobs' provenance stamps.
+STAMP_DIR = "provenance"
 #: File kinds by suffix (what a reader of the folder needs to open the file).
 KINDS = {".json": "json", ".parquet": "parquet", ".svg": "svg", ".pdf": "pdf", ".html": "html", ".csv": "csv",
          ".yaml": "yaml", ".txt": "text", ".sha256": "sha256sum"}
@@ -50,6 +52,11 @@ class Artifact:
     def kind(self) -> str:
         """The file's format (json, parquet, svg, pdf, html, csv, yaml, text, sha256sum)."""
         return KINDS[PurePosixPath(self.path).suffix]
+
+    @property
+    def is_stamp(self) -> bool:
+        """Whether this is a job's provenance stamp (written by :func:`oddsmith.runner.write_stamp`)."""
+        return self.path.startswith(f"{STAMP_DIR}/")
 
     @property
     def wildcards(self) -> tuple[str, ...]:
@@ -148,8 +155,10 @@ def template(name: str) -> str:
         When ``name`` is not a registered artifact (a typo, or a new file not yet added here).
     """
     if name not in ARTIFACTS:
-        raise ArgumentError(f"no artifact named {name!r} in oddsmith.artifacts; "
-                            f"registered: {', '.join(ARTIFACTS)}")
+        folder = PurePosixPath(name).parent
+        near = [p for p in ARTIFACTS if PurePosixPath(p).parent == folder]
+        raise ArgumentError(f"no artifact named {name!r} in oddsmith.artifacts (register a new file there); "
+                            f"registered in {folder}/: {', '.join(near) or 'nothing'}")
     return name
 
 
@@ -176,6 +185,12 @@ def in_folder(folder, name: str, **wildcards: str) -> Path:
 def written_by(rule: str) -> list[Artifact]:
     """The artifacts ``rule`` writes, in registry order."""
     return [a for a in ARTIFACTS.values() if a.rule == rule]
+
+
+def outputs_of(rule: str) -> tuple[str, ...]:
+    """File names (no folder) of what ``rule`` writes besides its stamp, e.g. the names
+    ``oddsmith score`` writes into its own output folder."""
+    return tuple(PurePosixPath(a.path).name for a in written_by(rule) if not a.is_stamp)
 
 
 def figures() -> dict[str, str]:

@@ -147,7 +147,7 @@ def rule_fingerprint(name):
 
 def artifact(name):
     """``work/{run}/<name>`` for a file registered in oddsmith.artifacts (raises otherwise)."""
-    return "work/{run}/" + artifacts.template(name)
+    return f"work/{{run}}/{artifacts.template(name)}"
 
 
 def per_candidate(name):

@@ -14,7 +14,7 @@ rule publish:
         manifest=artifact("manifest.json"),
         card=artifact("card/card.sha256"),
     output:
-        marker="work/" + artifacts.PUBLISHED_MARKER,
+        marker=f"work/{artifacts.PUBLISHED_MARKER}",
     log:
         "logs/{run}/publish.log",
     benchmark:

@@ -19,11 +19,11 @@ import yaml
 from markupsafe import escape
 from pypdf import PdfReader
 
-from oddsmith import card
+from oddsmith import artifacts, card, selection
 from oddsmith.card import (CardError, RunFolderFetcher, clip, fmt_count, fmt_fixed, fmt_p, fmt_pct, fmt_sig,
                            render_card, render_pdf)
 from oddsmith.errors import ArtifactError
-from oddsmith import selection
+from oddsmith.threshold import evaluation_at_cutoff
 
 ROOT = Path(__file__).resolve().parent.parent
 RUN = Path("results") / "lease_demo"
@@ -149,8 +149,14 @@ def demo_text(demo_run) -> str:
     return _pdf_text(demo_run / "card" / "model_card.pdf")
 
 
-def _load(run: Path, rel: str):
-    return json.loads((run / rel).read_text(encoding="utf-8"))
+def _load(run: Path, rel: str, **wildcards):
+    return json.loads(artifacts.in_folder(run, rel, **wildcards).read_text(encoding="utf-8"))
+
+
+def _test_metrics(run: Path) -> dict:
+    """The test part's evaluation as the card reads it: evaluate's and apply_cutoff's files joined."""
+    return evaluation_at_cutoff(_load(run, "evaluation/probability_metrics.json"),
+                                _load(run, "evaluation/cutoff_metrics.json"))
 
 
 @pytest.mark.e2e
@@ -167,13 +173,13 @@ def test_card_files_and_sha256_list(demo_run):
 
 @pytest.mark.e2e
 def test_pdf_shows_key_numbers_exactly_as_formatted_from_the_artifacts(demo_run, demo_text):
-    metrics = _load(demo_run, "evaluation/metrics.json")
+    metrics = _test_metrics(demo_run)
     selected = _load(demo_run, "comparison/selected.json")["candidate"]
-    model = _load(demo_run, f"candidates/{selected}/model.json")
+    model = _load(demo_run, artifacts.MODEL, candidate=selected)
     text = _squash(demo_text)
     expected = [
-        fmt_fixed(metrics["auc_ci"]["auc"], 3),
-        f"{fmt_fixed(metrics['auc_ci']['lower'], 3)}–{fmt_fixed(metrics['auc_ci']['upper'], 3)}",
+        fmt_fixed(metrics["overall"]["auc"], 3),
+        f"{fmt_fixed(metrics['auc_test_ci']['lower'], 3)}–{fmt_fixed(metrics['auc_test_ci']['upper'], 3)}",
         fmt_fixed(metrics["cutoff"], 4),
         *(fmt_count(metrics["confusion"][k]) for k in ("tp", "fp", "tn", "fn")),
         fmt_pct(metrics["confusion"]["flag_rate"]),
@@ -222,12 +228,12 @@ def test_rerender_is_byte_identical_in_another_folder_time_and_hash_seed(demo_ru
 def test_missing_artifacts_are_named_and_nothing_is_written(demo_run, tmp_path):
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
-    (copy / "evaluation" / "metrics.json").unlink()
-    (copy / "figures" / "roc.svg").unlink()
+    artifacts.in_folder(copy, "evaluation/cutoff_metrics.json").unlink()
+    artifacts.in_folder(copy, "figures/roc.svg").unlink()
     with pytest.raises(ArtifactError) as info:
         render_card(copy)
     message = str(info.value)
-    assert "evaluation/metrics.json" in message and "figures/roc.svg" in message
+    assert "evaluation/cutoff_metrics.json" in message and "figures/roc.svg" in message
     assert not (copy / "card").exists()
 
 
@@ -347,7 +353,7 @@ def test_hostile_text_is_escaped_laid_out_and_never_fetched_in_a_release_copy(de
 def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
-    run = card.load_run(copy)
+    run = card.load_run(card.folder_inputs(copy))
     run["diagnostics"]["events_per_parameter"] = 6.5  # Peduzzi et al. (1996): below 10
     run["metrics"]["overall"]["calibration_slope"] = 0.71  # outside [0.8, 1.2]
     first = run["table"]["rows"][0]
@@ -381,7 +387,7 @@ def test_a_penalised_selection_shows_its_penalty_instead_of_wald_intervals(demo_
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
     (copy / "comparison" / "selected.json").write_text(json.dumps({"candidate": "lasso", "reason": "test"}))
-    run = card.load_run(copy)
+    run = card.load_run(card.folder_inputs(copy))
     html = card.render_html(card.build_context(run, release=None))
     penalty = run["model"]["penalty"]
     assert f"C = {penalty['C']:g} chosen from" in html and "Standardised coefficient" in html
@@ -391,7 +397,7 @@ def test_a_penalised_selection_shows_its_penalty_instead_of_wald_intervals(demo_
 @pytest.mark.e2e
 def test_card_states_its_definitions_units_and_the_deciding_numbers(demo_run, demo_text):
     text = _squash(demo_text)
-    choice, metrics = _load(demo_run, "threshold/choice.json"), _load(demo_run, "evaluation/metrics.json")
+    choice, metrics = _load(demo_run, "threshold/choice.json"), _test_metrics(demo_run)
     selected, table = _load(demo_run, "comparison/selected.json"), _load(demo_run, "comparison/table.json")
     assert _squash("Kolmogorov–Smirnov statistic (KS): the largest gap between the cumulative score distributions "
                    "of events and non-events") in text

@@ -209,11 +209,11 @@ def test_card_shows_the_challenger_line_and_says_when_it_is_off(demo_run, tmp_pa
     assert sentence.replace("'", "&#39;") in html
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
-    run = card.load_run(copy)
+    run = card.load_run(card.folder_inputs(copy))
     run["config"]["challenger"]["enabled"], run["challenger"] = False, None
     off = card.render_html(card.build_context(run, release=None))
     assert "Not run: challenger.enabled is false" in off and "not for adoption" in off
     (copy / "challenger" / "cv.json").unlink()
     with pytest.raises(ArtifactError) as info:
-        card.load_run(copy)
+        card.load_run(card.folder_inputs(copy))
     assert "challenger/cv.json" in str(info.value)

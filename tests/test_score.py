@@ -20,8 +20,8 @@ from oddsmith.recipe import learn_recipe
 from oddsmith.score import (ScoringModel, check_batch, contributions, csv_bytes, design_matrix, feature_weights,
                             load_artifacts, neutralise_text, reason_reference, score_frame,
                             top_reasons)
-from oddsmith.stages.score import OUTPUTS, run_score
-from oddsmith.stages.score_commands import load_results_folder, score_folder
+from oddsmith.stages.score import run_score
+from oddsmith.stages.score_commands import OUTPUTS, load_results_folder, score_folder
 
 from conftest import ROOT, run_snakemake
 

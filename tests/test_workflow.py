@@ -26,7 +26,7 @@ def test_every_stage_writes_its_artifacts(demo_build):
                  "split/summary.json", "features/recipe.json", "features/diagnostics.json",
                  "comparison/table.json", "comparison/selected.json", "threshold/choice.json",
                  "threshold/cost_curve.parquet", "evaluation/scores.parquet", "evaluation/probability_metrics.json",
-                 "evaluation/metrics.json", "evaluation/subgroups.json", "evaluation/predictions.parquet"):
+                 "evaluation/cutoff_metrics.json", "evaluation/subgroups.json", "evaluation/predictions.parquet"):
         assert (demo_build / RUN / path).is_file(), path
     cfg = yaml.safe_load((demo_build / DEMO_CONFIG).read_text())
     for c in [c["name"] for c in cfg["candidates"]] + ["baseline"]:
@@ -79,7 +79,7 @@ def test_selection_is_explained_and_baseline_is_compared(demo_build):
 
 def test_test_predictions_come_from_the_selected_model(demo_build):
     predictions = pd.read_parquet(demo_build / RUN / "evaluation/predictions.parquet")
-    metrics = _json(demo_build, "evaluation/metrics.json")
+    metrics = _json(demo_build, "evaluation/cutoff_metrics.json")
     choice = _json(demo_build, "threshold/choice.json")
     assert metrics["cutoff"] == choice["adopted_cutoff"]
     flagged = predictions["p"] >= metrics["cutoff"]
