@@ -7,7 +7,8 @@ so the layout is defined once. Each file has exactly one writing rule (``tests/t
 compares the registry with the rules' outputs, both ways).
 
 Paths are relative to the run folder, POSIX-style; ``{candidate}`` stands for a candidate's
-name (one file per candidate).
+name (one file per candidate). :func:`evaluation_at_cutoff` reads the test evaluation, which
+two rules write in two files (evaluate and apply_cutoff), as the one record readers want.
 
 >>> path("candidates/{candidate}/model.json", candidate="lasso")
 'candidates/lasso/model.json'
@@ -21,7 +22,7 @@ from dataclasses import dataclass
 from pathlib import Path, PurePosixPath
 from string import Formatter
 
-from oddsmith.errors import ArgumentError
+from oddsmith.errors import ArgumentError, ArtifactError
 
 #: The folder of the jobs' provenance stamps.
 STAMP_DIR = "provenance"
@@ -196,3 +197,37 @@ def outputs_of(rule: str) -> tuple[str, ...]:
 def figures() -> dict[str, str]:
     """Figure name → relative path of every figure of the card (``figures/<name>.svg``)."""
     return {PurePosixPath(p).stem: p for p in ARTIFACTS if p.startswith("figures/")}
+
+
+# ---------------------------------------------------------------------------------------------
+# reading the test evaluation, written by two rules, as one record
+
+#: The keys of ``evaluation/cutoff_metrics.json`` that join the cut-off-free evaluation.
+CUTOFF_KEYS = ("cutoff", "adopted", "confusion", "cost_per_1000", "cutoff_table")
+
+
+def evaluation_at_cutoff(probability_metrics: dict, cutoff_metrics: dict) -> dict:
+    """The test part's evaluation as one record: the cut-off-free metrics (evaluate's
+    ``probability_metrics.json``, subgroups left out) joined with the figures at the adopted
+    cut-off (apply_cutoff's ``cutoff_metrics.json``); each period row gains its flag rate.
+
+    Raises
+    ------
+    ArtifactError
+        When the two files describe different candidates or periods.
+    """
+    problems = []
+    if probability_metrics.get("candidate") != cutoff_metrics.get("candidate"):
+        problems.append(f"probability metrics of {probability_metrics.get('candidate')!r}, cut-off metrics of "
+                        f"{cutoff_metrics.get('candidate')!r}")
+    periods, rates = probability_metrics.get("periods"), cutoff_metrics.get("period_flag_rates")
+    if (periods is None) != (rates is None) or (
+            periods is not None and [r["period"] for r in periods] != [r["period"] for r in rates]):
+        problems.append("the period rows of the two files differ")
+    if problems:
+        raise ArtifactError("the test part's cut-off-free and cut-off metrics do not belong together", problems)
+    joined = {k: v for k, v in probability_metrics.items() if k != "subgroups"}
+    joined |= {k: cutoff_metrics[k] for k in CUTOFF_KEYS}
+    if periods is not None:
+        joined["periods"] = [row | {"flag_rate": rate["flag_rate"]} for row, rate in zip(periods, rates)]
+    return joined

@@ -30,11 +30,11 @@ from markupsafe import Markup, escape
 from weasyprint.urls import FatalURLFetchingError, URLFetcher
 
 from oddsmith import artifacts
+from oddsmith.artifacts import evaluation_at_cutoff
 from oddsmith.errors import ArtifactError, OddsmithError
 from oddsmith.io import read_json, sha256_bytes, sha256_file, write_bytes_atomic
 from oddsmith.plots import FIGURE_NAMES, cost_unit, equal_count
 from oddsmith.resources import template_dir
-from oddsmith.threshold import evaluation_at_cutoff
 
 log = logging.getLogger("oddsmith.card")
 

@@ -14,7 +14,7 @@ from numbers import Real
 import numpy as np
 import pandas as pd
 
-from oddsmith.errors import ArtifactError, CostError, OddsmithError
+from oddsmith.errors import CostError, OddsmithError
 from oddsmith.settings import COST_KEYS, constrained_problem
 from oddsmith.metrics import outcomes_and_probabilities
 
@@ -637,37 +637,3 @@ def choose_cutoff(
         "reason": reason,
         "confusion_at_adopted": confusion,
     }
-
-
-# ---------------------------------------------------------------------------------------------
-# the test evaluation at the adopted cut-off
-
-#: The keys of ``evaluation/cutoff_metrics.json`` that join the cut-off-free evaluation.
-CUTOFF_KEYS = ("cutoff", "adopted", "confusion", "cost_per_1000", "cutoff_table")
-
-
-def evaluation_at_cutoff(probability_metrics: dict, cutoff_metrics: dict) -> dict:
-    """The test part's evaluation as one record: the cut-off-free metrics (evaluate's
-    ``probability_metrics.json``, subgroups left out) joined with the figures at the adopted
-    cut-off (apply_cutoff's ``cutoff_metrics.json``); each period row gains its flag rate.
-
-    Raises
-    ------
-    ArtifactError
-        When the two files describe different candidates or periods.
-    """
-    problems = []
-    if probability_metrics.get("candidate") != cutoff_metrics.get("candidate"):
-        problems.append(f"probability metrics of {probability_metrics.get('candidate')!r}, cut-off metrics of "
-                        f"{cutoff_metrics.get('candidate')!r}")
-    periods, rates = probability_metrics.get("periods"), cutoff_metrics.get("period_flag_rates")
-    if (periods is None) != (rates is None) or (
-            periods is not None and [r["period"] for r in periods] != [r["period"] for r in rates]):
-        problems.append("the period rows of the two files differ")
-    if problems:
-        raise ArtifactError("the test part's cut-off-free and cut-off metrics do not belong together", problems)
-    joined = {k: v for k, v in probability_metrics.items() if k != "subgroups"}
-    joined |= {k: cutoff_metrics[k] for k in CUTOFF_KEYS}
-    if periods is not None:
-        joined["periods"] = [row | {"flag_rate": rate["flag_rate"]} for row, rate in zip(periods, rates)]
-    return joined

@@ -20,10 +20,11 @@ from markupsafe import escape
 from pypdf import PdfReader
 
 from oddsmith import artifacts, card, selection
+from oddsmith.artifacts import evaluation_at_cutoff
 from oddsmith.card import (CardError, RunFolderFetcher, clip, fmt_count, fmt_fixed, fmt_p, fmt_pct, fmt_sig,
                            render_card, render_pdf)
 from oddsmith.errors import ArtifactError
-from oddsmith.threshold import evaluation_at_cutoff
+from oddsmith.stages.card import run_card
 
 ROOT = Path(__file__).resolve().parent.parent
 RUN = Path("results") / "lease_demo"
@@ -222,6 +223,33 @@ def test_rerender_is_byte_identical_in_another_folder_time_and_hash_seed(demo_ru
     subprocess.run([sys.executable, "-c", script], check=True, cwd=tmp_path, env=env, capture_output=True)
     for name in ("model_card.html", "model_card.pdf", "card.sha256"):
         assert (copy / "card" / name).read_bytes() == (demo_run / "card" / name).read_bytes(), name
+
+
+@pytest.mark.e2e
+def test_the_card_reads_the_paths_it_is_given_not_the_folder_layout(demo_run, tmp_path):
+    """The card rule passes its declared inputs: a figure and the cut-off file moved out of the
+    run folder and named in the inputs give the same HTML; the folder's own copies are absent."""
+    copy = tmp_path / "lease_demo"
+    shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
+    inputs = card.folder_inputs(copy)
+    moved = {}
+    for key, path in (("cutoff_metrics", inputs["cutoff_metrics"]), ("roc", inputs["figures"]["roc"])):
+        moved[key] = tmp_path / "elsewhere" / path.name
+        moved[key].parent.mkdir(exist_ok=True)
+        path.rename(moved[key])
+    inputs["cutoff_metrics"], inputs["figures"]["roc"] = moved["cutoff_metrics"], moved["roc"]
+    run_card(inputs=inputs, **{f"out_{k}": copy / rel for k, rel in zip(("html", "pdf", "sha256"), card.CARD_FILES)})
+    assert (copy / "card" / "model_card.html").read_bytes() == (demo_run / "card" / "model_card.html").read_bytes()
+
+
+def test_the_card_stage_refuses_outputs_outside_the_run_folders_card(tmp_path):
+    run_dir = tmp_path / "run"
+    inputs = {"manifest": run_dir / "manifest.json"}
+    with pytest.raises(CardError) as info:
+        run_card(inputs=inputs, out_html=str(tmp_path / "card" / "model_card.html"),
+                 out_pdf=str(run_dir / "card" / "model_card.pdf"), out_sha256=str(run_dir / "card" / "card.sha256"))
+    assert f"card/model_card.html: got {tmp_path / 'card' / 'model_card.html'}" in str(info.value)
+    assert not (tmp_path / "card").exists() and not run_dir.exists()
 
 
 @pytest.mark.e2e

@@ -1,7 +1,7 @@
 """The apply_cutoff stage: the adopted cut-off applied to the test scores written by evaluate.
 The confusion matrix, a cut-off table, the realised cost and flag rates per period go to
 ``evaluation/cutoff_metrics.json`` (evaluate's cut-off-free metrics stay in its own file;
-:func:`oddsmith.threshold.evaluation_at_cutoff` joins the two for readers); the subgroup
+:func:`oddsmith.artifacts.evaluation_at_cutoff` joins the two for readers); the subgroup
 decision figures (error rates, adverse-impact ratios) join evaluate's group rows in
 ``evaluation/subgroups.json``. Reads artifacts only; the test part itself
 is not read here, and nothing is fitted or scored."""
