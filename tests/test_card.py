@@ -147,7 +147,7 @@ def demo_run(demo_build) -> Path:
 
 @pytest.fixture(scope="session")
 def demo_text(demo_run) -> str:
-    return _pdf_text(demo_run / "card" / "model_card.pdf")
+    return _pdf_text(artifacts.in_folder(demo_run, "card/model_card.pdf"))
 
 
 def _load(run: Path, rel: str, **wildcards):
@@ -162,12 +162,12 @@ def _test_metrics(run: Path) -> dict:
 
 @pytest.mark.e2e
 def test_card_files_and_sha256_list(demo_run):
-    lines = (demo_run / "card" / "card.sha256").read_text().splitlines()
+    lines = artifacts.in_folder(demo_run, "card/card.sha256").read_text().splitlines()
     assert [line.split("  ")[1] for line in lines] == ["manifest.json", "card/model_card.html", "card/model_card.pdf"]
     for line in lines:
         digest, rel = line.split("  ")
         assert hashlib.sha256((demo_run / rel).read_bytes()).hexdigest() == digest, rel
-    assert (demo_run / "card" / "model_card.pdf").read_bytes().startswith(b"%PDF")
+    assert artifacts.in_folder(demo_run, "card/model_card.pdf").read_bytes().startswith(b"%PDF")
     log = (demo_run.parent.parent / "logs" / "lease_demo" / "card.log").read_text()
     assert "weasyprint:" not in log, "WeasyPrint warned while rendering the demo card:\n" + log
 
@@ -205,7 +205,7 @@ def test_pdf_has_every_section_the_cautions_and_the_fingerprint(demo_run, demo_t
     for _, heading in card.SECTIONS:
         assert _squash(heading) in text, heading
     assert _squash(_cautions()) in text
-    fingerprint = hashlib.sha256((demo_run / "manifest.json").read_bytes()).hexdigest()
+    fingerprint = hashlib.sha256(artifacts.in_folder(demo_run, artifacts.MANIFEST).read_bytes()).hexdigest()
     assert fingerprint[:12] in text
     assert "Mitchelletal." in text
     assert "Workingdraft" in text and "Release" not in demo_text.split("Working draft")[0]
@@ -239,15 +239,17 @@ def test_the_card_reads_the_paths_it_is_given_not_the_folder_layout(demo_run, tm
         path.rename(moved[key])
     inputs["cutoff_metrics"], inputs["figures"]["roc"] = moved["cutoff_metrics"], moved["roc"]
     run_card(inputs=inputs, **{f"out_{k}": copy / rel for k, rel in zip(("html", "pdf", "sha256"), card.CARD_FILES)})
-    assert (copy / "card" / "model_card.html").read_bytes() == (demo_run / "card" / "model_card.html").read_bytes()
+    html = "card/model_card.html"
+    assert artifacts.in_folder(copy, html).read_bytes() == artifacts.in_folder(demo_run, html).read_bytes()
 
 
 def test_the_card_stage_refuses_outputs_outside_the_run_folders_card(tmp_path):
     run_dir = tmp_path / "run"
-    inputs = {"manifest": run_dir / "manifest.json"}
+    inputs = {"manifest": artifacts.in_folder(run_dir, artifacts.MANIFEST)}
     with pytest.raises(CardError) as info:
-        run_card(inputs=inputs, out_html=str(tmp_path / "card" / "model_card.html"),
-                 out_pdf=str(run_dir / "card" / "model_card.pdf"), out_sha256=str(run_dir / "card" / "card.sha256"))
+        run_card(inputs=inputs, out_html=str(artifacts.in_folder(tmp_path, "card/model_card.html")),
+                 out_pdf=str(artifacts.in_folder(run_dir, "card/model_card.pdf")),
+                 out_sha256=str(artifacts.in_folder(run_dir, "card/card.sha256")))
     assert f"card/model_card.html: got {tmp_path / 'card' / 'model_card.html'}" in str(info.value)
     assert not (tmp_path / "card").exists() and not run_dir.exists()
 
@@ -330,7 +332,7 @@ def _poison(run: Path) -> None:
     edit(f"candidates/{json.loads((run / 'comparison/selected.json').read_text())['candidate']}/model.json", model)
     edit("features/diagnostics.json", diagnostics)
     edit("validated/report.json", report)
-    contract_path = run / "validated" / "contract.yaml"
+    contract_path = artifacts.in_folder(run, "validated/contract.yaml")
     contract = yaml.safe_load(contract_path.read_text(encoding="utf-8"))
     contract["columns"][HOSTILE["script"] + HOSTILE["long"]] = {"type": "category", "levels": [HOSTILE["image"]],
                                                                 "description": HOSTILE["rtl"]}
@@ -414,7 +416,7 @@ def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
 def test_a_penalised_selection_shows_its_penalty_instead_of_wald_intervals(demo_run, tmp_path):
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
-    (copy / "comparison" / "selected.json").write_text(json.dumps({"candidate": "lasso", "reason": "test"}))
+    artifacts.in_folder(copy, "comparison/selected.json").write_text(json.dumps({"candidate": "lasso", "reason": "test"}))
     run = card.load_run(card.folder_inputs(copy))
     html = card.render_html(card.build_context(run, release=None))
     penalty = run["model"]["penalty"]
