@@ -1,9 +1,9 @@
 """Every file a build writes in its run folder: its path, the rule that writes it, its kind.
 
 A build writes under ``work/<run>/`` and publishes the same names to ``results/<run>/``. The
-rules (``artifact(...)`` in ``rules/common.smk``), the stages, the card, scoring, diff, verify,
-release and the tests take their paths from :data:`ARTIFACTS` rather than spelling them out,
-so the layout is defined once. Each file has exactly one writing rule (``tests/test_artifacts.py``
+rules (``artifact(...)`` in ``rules/common.smk``), the card, ``oddsmith score``, diff, verify,
+publish and release take their paths from :data:`ARTIFACTS` rather than spelling them out
+(stages get theirs from their rule), so the layout is defined once. Each file has exactly one writing rule (``tests/test_artifacts.py``
 compares the registry with the rules' outputs, both ways).
 
 Paths are relative to the run folder, POSIX-style; ``{candidate}`` stands for a candidate's
