@@ -31,7 +31,7 @@ include: "rules/publish.smk"
 
 rule all:
     input:
-        f"work/{RUN}.published",
+        f"work/{artifacts.PUBLISHED_MARKER.format(run=RUN)}",
 
 
 # Threads, memory and run time of every job from the config's `resources` section (after

@@ -21,7 +21,7 @@ import datetime as dt
 import logging
 import math
 import os
-from pathlib import Path
+from pathlib import Path, PurePosixPath
 from urllib.parse import unquote, urlsplit
 
 import yaml
@@ -29,6 +29,8 @@ from jinja2 import Environment, FileSystemLoader, StrictUndefined
 from markupsafe import Markup, escape
 from weasyprint.urls import FatalURLFetchingError, URLFetcher
 
+from oddsmith import artifacts
+from oddsmith.artifacts import evaluation_at_cutoff
 from oddsmith.errors import ArtifactError, OddsmithError
 from oddsmith.io import read_json, sha256_bytes, sha256_file, write_bytes_atomic
 from oddsmith.plots import FIGURE_NAMES, cost_unit, equal_count
@@ -40,21 +42,23 @@ TEMPLATE_DIR = template_dir()
 TEMPLATE = "model_card.html.j2"
 STYLESHEET = "model_card.css"
 
-#: artifact key → path inside the run folder (everything the card reads besides models).
+#: The card's inputs besides models, figures and the challenger: key → registered artifact.
 ARTIFACTS = {
-    "manifest": "manifest.json",
+    "manifest": artifacts.MANIFEST,
     "report": "validated/report.json",
     "contract": "validated/contract.yaml",
     "split": "split/summary.json",
     "recipe": "features/recipe.json",
     "diagnostics": "features/diagnostics.json",
     "table": "comparison/table.json",
-    "selected": "comparison/selected.json",
+    "selected": artifacts.SELECTED,
     "choice": "threshold/choice.json",
-    "metrics": "evaluation/metrics.json",
+    "probability_metrics": "evaluation/probability_metrics.json",
+    "cutoff_metrics": "evaluation/cutoff_metrics.json",
     "subgroups": "evaluation/subgroups.json",
 }
-FIGURES = {name: f"figures/{name}.svg" for name in FIGURE_NAMES}
+#: What the card rule writes (HTML, PDF, hashes), in that order.
+CARD_FILES = tuple(a.path for a in artifacts.written_by("card"))
 #: The flexible challenger's results, present when the run's config has challenger.enabled.
 CHALLENGER_ARTIFACT = "challenger/cv.json"
 
@@ -269,46 +273,66 @@ FILTERS = {
 # reading the run folder
 
 
-def load_run(run_dir) -> dict:
-    """Read every artifact the card needs from ``run_dir``.
+def folder_inputs(run_dir) -> dict:
+    """The card's inputs as they lie in a run folder (``work/<run>`` or ``results/<run>``),
+    named by :mod:`oddsmith.artifacts`: for rendering a published folder again (a release)
+    outside the workflow, whose card rule passes its declared inputs instead. Only the
+    selected candidate's model is named (read from the folder's selection)."""
+    run_dir = Path(run_dir)
+    if not run_dir.is_dir():
+        raise ArtifactError(f"run folder not found: {run_dir}")
+    inputs = {key: artifacts.in_folder(run_dir, name) for key, name in ARTIFACTS.items()}
+    selected_path = inputs["selected"]
+    selected = read_json(selected_path)["candidate"] if selected_path.is_file() else None
+    inputs["models"] = {} if selected is None else {
+        selected: artifacts.in_folder(run_dir, artifacts.MODEL, candidate=str(selected))}
+    inputs["figures"] = {name: run_dir / rel for name, rel in artifacts.figures().items()}
+    inputs["challenger"] = artifacts.in_folder(run_dir, CHALLENGER_ARTIFACT)
+    return inputs
+
+
+def load_run(inputs: dict) -> dict:
+    """Read every artifact the card needs from the paths in ``inputs``.
+
+    ``inputs`` maps each key of :data:`ARTIFACTS` to a path, ``models`` to {candidate: path}
+    (at least the selected one), ``figures`` to {name: path} for :data:`FIGURE_NAMES` and
+    ``challenger`` to the challenger's cv.json (or None when the rule declares none); see
+    :func:`folder_inputs`. The run folder is the manifest's.
 
     Raises
     ------
     ArtifactError
         Naming every missing or unreadable artifact at once.
     """
-    run_dir = Path(run_dir)
-    if not run_dir.is_dir():
-        raise ArtifactError(f"run folder not found: {run_dir}")
-    wanted = {key: run_dir / rel for key, rel in ARTIFACTS.items()} | {
-        f"figure:{name}": run_dir / rel for name, rel in FIGURES.items()}
-    missing = [str(path) for path in wanted.values() if not path.is_file()]
+    wanted = {key: Path(inputs[key]) for key in ARTIFACTS} | {
+        f"figure:{name}": Path(inputs["figures"][name]) for name in FIGURE_NAMES if name in inputs["figures"]}
+    missing = [f"missing: {path}" for path in wanted.values() if not path.is_file()]
+    missing += [f"missing: figure {name}" for name in FIGURE_NAMES if name not in inputs["figures"]]
     if missing:
-        raise ArtifactError("the model card needs artifacts that are missing", [f"missing: {m}" for m in missing])
-    run = {"dir": run_dir, "manifest_sha256": sha256_file(wanted["manifest"])}
-    for key, path in wanted.items():
-        if key.startswith("figure:"):
-            continue
-        run[key] = _read_yaml(path) if path.suffix == ".yaml" else read_json(path)
-    run["figures"] = {name: (run_dir / rel).read_bytes() for name, rel in FIGURES.items()}
+        raise ArtifactError("the model card needs artifacts that are missing", missing)
+    run = {"dir": wanted["manifest"].parent, "manifest_sha256": sha256_file(wanted["manifest"])}
+    for key in ARTIFACTS:
+        run[key] = _read_yaml(wanted[key]) if wanted[key].suffix == ".yaml" else read_json(wanted[key])
+    run["metrics"] = evaluation_at_cutoff(run.pop("probability_metrics"), run.pop("cutoff_metrics"))
+    run["figures"] = {name: wanted[f"figure:{name}"].read_bytes() for name in FIGURE_NAMES}
     selected = run["selected"]["candidate"]
-    model_path = run_dir / "candidates" / selected / "model.json"
-    if not model_path.is_file():
-        raise ArtifactError(f"the model card needs the selected model, which is missing: {model_path}")
+    model_path = inputs["models"].get(selected)
+    if model_path is None or not Path(model_path).is_file():
+        raise ArtifactError(f"the model card needs the selected model {selected!r}, which is missing: "
+                            f"{model_path or 'no path given'}")
     run["model"] = read_json(model_path)
     run["config"] = _manifest_config(run["manifest"], wanted["manifest"])
-    run["challenger"] = _load_challenger(run_dir, run["config"])
+    run["challenger"] = _load_challenger(inputs.get("challenger"), run["config"])
     return run
 
 
-def _load_challenger(run_dir: Path, config: dict) -> dict | None:
+def _load_challenger(path, config: dict) -> dict | None:
     """The challenger's cv.json when the run's configuration enabled it, else None."""
     if not (config.get("challenger") or {}).get("enabled"):
         return None
-    path = run_dir / CHALLENGER_ARTIFACT
-    if not path.is_file():
+    if not path or not Path(path).is_file():
         raise ArtifactError("the model card needs the challenger's results (challenger.enabled is true), "
-                            "which are missing", [f"missing: {path}"])
+                            "which are missing", [f"missing: {path or CHALLENGER_ARTIFACT}"])
     return read_json(path)
 
 
@@ -625,9 +649,9 @@ def _drift_finding(run):
 
 def _decision_findings(run):
     out, metrics, choice = [], run["metrics"], run["choice"]
-    if metrics["auc_ci"]["lower"] is not None and metrics["auc_ci"]["lower"] <= 0.5:
+    if metrics["auc_test_ci"]["lower"] is not None and metrics["auc_test_ci"]["lower"] <= 0.5:
         out.append(_finding("attention", "Discrimination above chance (test)", "AUC interval above 0.5",
-                            f"{fmt_fixed(metrics['auc_ci']['lower'])}–{fmt_fixed(metrics['auc_ci']['upper'])}",
+                            f"{fmt_fixed(metrics['auc_test_ci']['lower'])}–{fmt_fixed(metrics['auc_test_ci']['upper'])}",
                             "The model does not rank cases better than chance with confidence; do not deploy."))
     if choice["adopted_cutoff"] is None:
         out.append(_finding("attention", "Adopted cut-off", "flags some cases", "flags no case",
@@ -802,19 +826,23 @@ def render_pdf(html: str, *, run_dir, epoch: int, fetcher: RunFolderFetcher | No
     return pdf
 
 
-def render_card(run_dir, *, out_dir=None, release=None) -> dict:
+def render_card(run_dir, *, out_dir=None, release=None, inputs: dict | None = None) -> dict:
     """Render the model card of the run in ``run_dir`` and write it with its hashes.
 
-    Reads the artifacts, figures and ``manifest.json`` of ``run_dir`` (the configuration
+    Reads the artifacts, figures and ``manifest.json`` named by ``inputs`` (the configuration
     comes from the manifest), writes ``model_card.html``, ``model_card.pdf`` and
     ``card.sha256`` into ``out_dir`` (default ``run_dir/card``).
 
     Parameters
     ----------
     run_dir : path
-        The results folder of one run, ``results/<run>``.
+        The folder of one run, ``work/<run>`` or ``results/<run>``: the only place the PDF
+        renderer may read from, and what the paths in ``card.sha256`` are relative to.
     out_dir : path, optional
         Where the three files go.
+    inputs : dict, optional
+        The paths :func:`load_run` reads (the card rule's declared inputs); default: the
+        files of ``run_dir`` (:func:`folder_inputs`).
     release : dict, optional
         ``{"version": ..., "released_at": ISO date}`` for a release copy; None (default) for a
         working draft. When None, a ``release`` record in the manifest is used if present.
@@ -834,18 +862,18 @@ def render_card(run_dir, *, out_dir=None, release=None) -> dict:
     """
     run_dir = Path(run_dir)
     out_dir = Path(out_dir) if out_dir is not None else run_dir / "card"
-    run = load_run(run_dir)
+    run = load_run(folder_inputs(run_dir) if inputs is None else inputs)
     release = _check_release(release if release is not None else run["manifest"].get("release"))
     context = build_context(run, release=release)
     html = render_html(context)
     pdf = render_pdf(html, run_dir=run_dir, epoch=context["dates"]["epoch"])
     html_bytes = html.encode("utf-8")
-    write_bytes_atomic(out_dir / "model_card.html", html_bytes)
-    write_bytes_atomic(out_dir / "model_card.pdf", pdf)
-    hashes = {"manifest.json": run["manifest_sha256"],
-              _relative(out_dir / "model_card.html", run_dir): sha256_bytes(html_bytes),
-              _relative(out_dir / "model_card.pdf", run_dir): sha256_bytes(pdf)}
-    write_bytes_atomic(out_dir / "card.sha256", "".join(f"{h}  {p}\n" for p, h in hashes.items()).encode("utf-8"))
+    out_html, out_pdf, out_sha256 = (out_dir / PurePosixPath(name).name for name in CARD_FILES)
+    write_bytes_atomic(out_html, html_bytes)
+    write_bytes_atomic(out_pdf, pdf)
+    hashes = {artifacts.MANIFEST: run["manifest_sha256"],
+              _relative(out_html, run_dir): sha256_bytes(html_bytes), _relative(out_pdf, run_dir): sha256_bytes(pdf)}
+    write_bytes_atomic(out_sha256, "".join(f"{h}  {p}\n" for p, h in hashes.items()).encode("utf-8"))
     log.info("model card written to %s (manifest %s)", out_dir, run["manifest_sha256"][:12])
     return hashes
 

@@ -16,6 +16,7 @@ import math
 import stat
 from pathlib import Path
 
+from oddsmith import artifacts
 from oddsmith.errors import ArtifactError, ManifestError
 from oddsmith.verify import read_manifest, verify_results
 
@@ -55,23 +56,26 @@ def _load(folder: Path) -> dict:
     raw, manifest = read_manifest(folder, problems)
     if manifest is None:
         raise ManifestError(f"cannot compare {folder}", problems)
-    selected = _artifact(folder, "comparison/selected.json")
+    selected = _artifact(folder, artifacts.SELECTED)
     names = dict.fromkeys(n for n in [selected.get("candidate")] if n)
     return {
         "manifest": manifest,
         "manifest_sha256": hashlib.sha256(raw).hexdigest(),
         "verified": not verify_results(folder),
         "selected": selected,
-        "models": {n: _artifact(folder, f"candidates/{n}/model.json") for n in names},
-        "metrics": _artifact(folder, "evaluation/metrics.json"),
+        "models": {n: _artifact(folder, artifacts.MODEL, candidate=n) for n in names},
+        "metrics": {"probability": _artifact(folder, "evaluation/probability_metrics.json"),
+                    "cutoff": _artifact(folder, "evaluation/cutoff_metrics.json")},
         "choice": _artifact(folder, "threshold/choice.json"),
         "subgroups": _artifact(folder, "evaluation/subgroups.json"),
         "folder": folder,
     }
 
 
-def _artifact(folder: Path, rel: str) -> dict:
-    """A JSON artifact of the folder; a missing one is an empty record, a symlink is refused."""
+def _artifact(folder: Path, name: str, **wildcards: str) -> dict:
+    """A JSON artifact of the folder (``name`` registered in :mod:`oddsmith.artifacts`); a
+    missing one is an empty record, a symlink is refused."""
+    rel = artifacts.path(name, **wildcards)
     path = folder
     for part in rel.split("/"):
         path = path / part
@@ -138,7 +142,7 @@ def _data(first: dict, second: dict) -> dict:
         manifest = run["manifest"]
         path = str(manifest["config"].get("data", {}).get("path"))
         raw = manifest.get("raw_inputs", {}).get(path, {})
-        snapshot = manifest.get("files", {}).get("validated/data.parquet", {})
+        snapshot = manifest.get("files", {}).get(artifacts.path("validated/data.parquet"), {})
         out[side] = {"path": path, "sha256": raw.get("sha256"), "snapshot_sha256": snapshot.get("sha256")}
     out["changed"] = (out["a"]["sha256"], out["a"]["snapshot_sha256"]) != (out["b"]["sha256"], out["b"]["snapshot_sha256"])
     return out
@@ -203,10 +207,15 @@ def _changes(pairs) -> list[dict]:
     return out
 
 
-def _metrics(a: dict, b: dict) -> dict:
-    oa, ob = a.get("overall", {}), b.get("overall", {})
+def _metrics(first: dict, second: dict) -> dict:
+    """Changes of the test metrics: ``first``/``second`` hold evaluate's cut-off-free metrics
+    (``probability``) and apply_cutoff's (``cutoff``)."""
+    pa, pb = first["probability"], second["probability"]
+    oa, ob = pa.get("overall", {}), pb.get("overall", {})
     free = _changes((k, oa.get(k), ob.get(k)) for k in THRESHOLD_FREE)
-    free += _changes((f"auc_ci.{k}", a.get("auc_ci", {}).get(k), b.get("auc_ci", {}).get(k)) for k in ("lower", "upper"))
+    free += _changes((f"auc_test_ci.{k}", pa.get("auc_test_ci", {}).get(k), pb.get("auc_test_ci", {}).get(k))
+                     for k in ("lower", "upper"))
+    a, b = first["cutoff"], second["cutoff"]
     ca, cb = a.get("confusion", {}), b.get("confusion", {})
     at_cutoff = _changes([("cutoff", a.get("cutoff"), b.get("cutoff")),
                           ("cost_per_1000", a.get("cost_per_1000"), b.get("cost_per_1000"))]

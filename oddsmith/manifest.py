@@ -26,6 +26,7 @@ import stat
 import subprocess
 from pathlib import Path, PurePosixPath
 
+from oddsmith import artifacts
 from oddsmith.errors import ManifestError
 from oddsmith.io import canonical_json, sha256_file
 
@@ -34,8 +35,8 @@ log = logging.getLogger("oddsmith.manifest")
 FORMAT_NAME = "oddsmith-manifest"
 FORMAT_VERSION = 1
 FORMAT = f"{FORMAT_NAME}/{FORMAT_VERSION}"
-MANIFEST_NAME = "manifest.json"
-CARD_DIR = "card"
+MANIFEST_NAME = artifacts.MANIFEST
+CARD_DIR = str(PurePosixPath(artifacts.CARD_HASHES).parent)
 #: Where the workflow builds (one folder per run) and where finished, verified builds are published.
 STAGING_DIR = "work"
 RESULTS_DIR = "results"

@@ -25,6 +25,7 @@ import os
 import shutil
 from pathlib import Path
 
+from oddsmith import artifacts
 from oddsmith.errors import OddsmithError
 from oddsmith.io import read_json, sha256_file
 from oddsmith.manifest import MANIFEST_NAME, RESULTS_DIR, STAGING_DIR, unsafe_path_reason
@@ -157,7 +158,7 @@ def after_build(run: str, *, since: float, project_dir: str | Path = ".") -> str
 
 def marker_path(run: str, *, project_dir: str | Path = ".") -> Path:
     """The publish rule's output: a small record beside the staging folder of what it published."""
-    return Path(project_dir) / STAGING_DIR / f"{run}.published"
+    return Path(project_dir) / STAGING_DIR / artifacts.PUBLISHED_MARKER.format(run=run)
 
 
 def _swap(where: dict) -> None:

@@ -27,13 +27,14 @@ import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from oddsmith import artifacts
 from oddsmith.io import canonical_json, sha256_file
 from oddsmith.manifest import (CARD_DIR, FORMAT_NAME, FORMAT_VERSION, GIT_OVERRIDE_ENV, MANIFEST_NAME,
                                STAGING_DIR, config_sha256, git_state, is_hex_digest, run_files, run_relative,
                                unsafe_path_reason)
 
 MAX_MANIFEST_BYTES = 64 << 20
-CARD_HASHES = f"{CARD_DIR}/card.sha256"
+CARD_HASHES = artifacts.CARD_HASHES
 _CARD_LINE = re.compile(r"^([0-9a-f]{64})  (\S(?:.*\S)?)$")
 _FILE_KEYS = {"sha256", "size", "rule", "stamp", "inputs", "params_sha256", "code_sha256"}
 _TOP_KEYS = {"format", "run", "config", "config_sha256", "files", "raw_inputs", "environment", "git",

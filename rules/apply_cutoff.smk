@@ -1,13 +1,13 @@
 rule apply_cutoff:
     input:
-        scores="work/{run}/evaluation/scores.parquet",
-        probability_metrics="work/{run}/evaluation/probability_metrics.json",
-        choice="work/{run}/threshold/choice.json",
+        scores=artifact("evaluation/scores.parquet"),
+        probability_metrics=artifact("evaluation/probability_metrics.json"),
+        choice=artifact("threshold/choice.json"),
     output:
-        metrics="work/{run}/evaluation/metrics.json",
-        subgroups="work/{run}/evaluation/subgroups.json",
-        predictions="work/{run}/evaluation/predictions.parquet",
-        stamp="work/{run}/provenance/apply_cutoff.json",
+        cutoff_metrics=artifact("evaluation/cutoff_metrics.json"),
+        subgroups=artifact("evaluation/subgroups.json"),
+        predictions=artifact("evaluation/predictions.parquet"),
+        stamp=artifact("provenance/apply_cutoff.json"),
     log:
         "logs/{run}/apply_cutoff.log",
     benchmark:

@@ -4,30 +4,32 @@
 
 rule card:
     input:
-        manifest="work/{run}/manifest.json",
-        report="work/{run}/validated/report.json",
-        split="work/{run}/split/summary.json",
-        recipe="work/{run}/features/recipe.json",
-        diagnostics="work/{run}/features/diagnostics.json",
-        models=expand(
-            "work/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
-        ),
-        table="work/{run}/comparison/table.json",
-        selected="work/{run}/comparison/selected.json",
-        choice="work/{run}/threshold/choice.json",
-        metrics="work/{run}/evaluation/metrics.json",
-        subgroups="work/{run}/evaluation/subgroups.json",
-        figures=expand("work/{{run}}/figures/{figure}.svg", figure=FIGURES),
+        manifest=artifact("manifest.json"),
+        report=artifact("validated/report.json"),
+        contract=artifact("validated/contract.yaml"),
+        split=artifact("split/summary.json"),
+        recipe=artifact("features/recipe.json"),
+        diagnostics=artifact("features/diagnostics.json"),
+        models=per_candidate("candidates/{candidate}/model.json"),
+        table=artifact("comparison/table.json"),
+        selected=artifact("comparison/selected.json"),
+        choice=artifact("threshold/choice.json"),
+        probability_metrics=artifact("evaluation/probability_metrics.json"),
+        cutoff_metrics=artifact("evaluation/cutoff_metrics.json"),
+        subgroups=artifact("evaluation/subgroups.json"),
+        figures=[artifact(f"figures/{name}.svg") for name in FIGURES],
         challenger=CHALLENGER_OUTPUTS,
     output:
-        html="work/{run}/card/model_card.html",
-        pdf="work/{run}/card/model_card.pdf",
-        sha256="work/{run}/card/card.sha256",
+        html=artifact("card/model_card.html"),
+        pdf=artifact("card/model_card.pdf"),
+        sha256=artifact("card/card.sha256"),
     log:
         "logs/{run}/card.log",
     benchmark:
         "benchmarks/{run}/card.tsv"
     params:
+        candidates=CANDIDATES,
+        figures=FIGURES,
         code=code(script="scripts/card.py"),
     script:
         "../scripts/card.py"

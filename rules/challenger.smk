@@ -6,21 +6,19 @@ CHALLENGER = CONFIG["challenger"]
 CHALLENGER_OUTPUTS = []
 
 if CHALLENGER["enabled"]:
-    CHALLENGER_OUTPUTS = expand("work/{run}/challenger/cv.json", run=RUN)
+    CHALLENGER_OUTPUTS = [artifact("challenger/cv.json")]
 
     rule challenger:
         input:
-            design="work/{run}/features/train_design.parquet",
-            assignment="work/{run}/split/assignment.parquet",
-            recipe="work/{run}/features/recipe.json",
-            selected="work/{run}/comparison/selected.json",
-            cv=expand(
-                "work/{{run}}/candidates/{candidate}/cv.json", candidate=CANDIDATES
-            ),
+            design=artifact("features/train_design.parquet"),
+            assignment=artifact("split/assignment.parquet"),
+            recipe=artifact("features/recipe.json"),
+            selected=artifact("comparison/selected.json"),
+            cv=per_candidate("candidates/{candidate}/cv.json"),
         output:
-            cv="work/{run}/challenger/cv.json",
-            oof="work/{run}/challenger/oof.parquet",
-            stamp="work/{run}/provenance/challenger.json",
+            cv=artifact("challenger/cv.json"),
+            oof=artifact("challenger/oof.parquet"),
+            stamp=artifact("provenance/challenger.json"),
         log:
             "logs/{run}/challenger.log",
         benchmark:

@@ -5,6 +5,7 @@ import sys
 from snakemake.io import get_wildcard_names, strip_wildcard_constraints
 from snakemake.resources import Resources
 
+from oddsmith import artifacts
 from oddsmith.config import check_config, read_config_file
 from oddsmith.errors import ConfigError
 from oddsmith.manifest import build_info, environment, source_date_epoch
@@ -142,3 +143,13 @@ def rule_fingerprint(name):
         return None
     params = dict(found[0].params.items())
     return {"params_sha256": params_hash(params), "code_sha256": params.get("code")}
+
+
+def artifact(name):
+    """``work/{run}/<name>`` for a file registered in oddsmith.artifacts (raises otherwise)."""
+    return f"work/{{run}}/{artifacts.template(name)}"
+
+
+def per_candidate(name):
+    """One path per candidate of a ``{candidate}`` artifact, keeping the ``{run}`` wildcard."""
+    return expand(artifact(name), candidate=CANDIDATES, allow_missing=True)

@@ -1,16 +1,12 @@
 rule compare:
     input:
-        cv=expand("work/{{run}}/candidates/{candidate}/cv.json", candidate=CANDIDATES),
-        oof=expand(
-            "work/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
-        ),
-        models=expand(
-            "work/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
-        ),
+        cv=per_candidate("candidates/{candidate}/cv.json"),
+        oof=per_candidate("candidates/{candidate}/oof.parquet"),
+        models=per_candidate("candidates/{candidate}/model.json"),
     output:
-        table="work/{run}/comparison/table.json",
-        selected="work/{run}/comparison/selected.json",
-        stamp="work/{run}/provenance/compare.json",
+        table=artifact("comparison/table.json"),
+        selected=artifact("comparison/selected.json"),
+        stamp=artifact("provenance/compare.json"),
     log:
         "logs/{run}/compare.log",
     benchmark:

@@ -3,17 +3,15 @@
 # apply_cutoff, not evaluate. Neither threshold nor compare reads an evaluation artifact.
 rule evaluate:
     input:
-        data="work/{run}/validated/data.parquet",
-        assignment="work/{run}/split/assignment.parquet",
-        recipe="work/{run}/features/recipe.json",
-        selected="work/{run}/comparison/selected.json",
-        models=expand(
-            "work/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
-        ),
+        data=artifact("validated/data.parquet"),
+        assignment=artifact("split/assignment.parquet"),
+        recipe=artifact("features/recipe.json"),
+        selected=artifact("comparison/selected.json"),
+        models=per_candidate("candidates/{candidate}/model.json"),
     output:
-        scores="work/{run}/evaluation/scores.parquet",
-        probability_metrics="work/{run}/evaluation/probability_metrics.json",
-        stamp="work/{run}/provenance/evaluate.json",
+        scores=artifact("evaluation/scores.parquet"),
+        probability_metrics=artifact("evaluation/probability_metrics.json"),
+        stamp=artifact("provenance/evaluate.json"),
     log:
         "logs/{run}/evaluate.log",
     benchmark:

@@ -1,12 +1,12 @@
 rule features:
     input:
-        data="work/{run}/validated/data.parquet",
-        assignment="work/{run}/split/assignment.parquet",
+        data=artifact("validated/data.parquet"),
+        assignment=artifact("split/assignment.parquet"),
     output:
-        recipe="work/{run}/features/recipe.json",
-        diagnostics="work/{run}/features/diagnostics.json",
-        design="work/{run}/features/train_design.parquet",
-        stamp="work/{run}/provenance/features.json",
+        recipe=artifact("features/recipe.json"),
+        diagnostics=artifact("features/diagnostics.json"),
+        design=artifact("features/train_design.parquet"),
+        stamp=artifact("provenance/features.json"),
     log:
         "logs/{run}/features.log",
     benchmark:

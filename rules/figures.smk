@@ -8,16 +8,14 @@ FIGURES = DECISION_FIGURES + MODEL_FIGURES
 
 rule model_figures:
     input:
-        probability_metrics="work/{run}/evaluation/probability_metrics.json",
-        selected="work/{run}/comparison/selected.json",
-        recipe="work/{run}/features/recipe.json",
-        models=expand(
-            "work/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
-        ),
+        probability_metrics=artifact("evaluation/probability_metrics.json"),
+        selected=artifact("comparison/selected.json"),
+        recipe=artifact("features/recipe.json"),
+        models=per_candidate("candidates/{candidate}/model.json"),
     output:
-        reliability="work/{run}/figures/reliability.svg",
-        coefficients="work/{run}/figures/coefficients.svg",
-        stamp="work/{run}/provenance/model_figures.json",
+        reliability=artifact("figures/reliability.svg"),
+        coefficients=artifact("figures/coefficients.svg"),
+        stamp=artifact("provenance/model_figures.json"),
     log:
         "logs/{run}/model_figures.log",
     benchmark:
@@ -32,17 +30,18 @@ rule model_figures:
 
 rule figures:
     input:
-        predictions="work/{run}/evaluation/predictions.parquet",
-        metrics="work/{run}/evaluation/metrics.json",
-        subgroups="work/{run}/evaluation/subgroups.json",
-        choice="work/{run}/threshold/choice.json",
-        curve="work/{run}/threshold/cost_curve.parquet",
+        predictions=artifact("evaluation/predictions.parquet"),
+        probability_metrics=artifact("evaluation/probability_metrics.json"),
+        cutoff_metrics=artifact("evaluation/cutoff_metrics.json"),
+        subgroups=artifact("evaluation/subgroups.json"),
+        choice=artifact("threshold/choice.json"),
+        curve=artifact("threshold/cost_curve.parquet"),
     output:
-        roc="work/{run}/figures/roc.svg",
-        cost_curve="work/{run}/figures/cost_curve.svg",
-        score_distribution="work/{run}/figures/score_distribution.svg",
-        subgroups="work/{run}/figures/subgroups.svg",
-        stamp="work/{run}/provenance/figures.json",
+        roc=artifact("figures/roc.svg"),
+        cost_curve=artifact("figures/cost_curve.svg"),
+        score_distribution=artifact("figures/score_distribution.svg"),
+        subgroups=artifact("figures/subgroups.svg"),
+        stamp=artifact("provenance/figures.json"),
     log:
         "logs/{run}/figures.log",
     benchmark:

@@ -1,13 +1,13 @@
 rule fit:
     input:
-        design="work/{run}/features/train_design.parquet",
-        assignment="work/{run}/split/assignment.parquet",
-        recipe="work/{run}/features/recipe.json",
+        design=artifact("features/train_design.parquet"),
+        assignment=artifact("split/assignment.parquet"),
+        recipe=artifact("features/recipe.json"),
     output:
-        model="work/{run}/candidates/{candidate}/model.json",
-        cv="work/{run}/candidates/{candidate}/cv.json",
-        oof="work/{run}/candidates/{candidate}/oof.parquet",
-        stamp="work/{run}/provenance/fit-{candidate}.json",
+        model=artifact("candidates/{candidate}/model.json"),
+        cv=artifact("candidates/{candidate}/cv.json"),
+        oof=artifact("candidates/{candidate}/oof.parquet"),
+        stamp=artifact("provenance/fit-{candidate}.json"),
     log:
         "logs/{run}/fit/{candidate}.log",
     benchmark:

@@ -6,7 +6,7 @@ rule manifest:
         configs=config_files(),
         batches=scoring_batches(),
     output:
-        manifest="work/{run}/manifest.json",
+        manifest=artifact("manifest.json"),
     log:
         "logs/{run}/manifest.log",
     benchmark:

@@ -11,10 +11,10 @@ PUBLISH_PENDING = pending(RUN)
 
 rule publish:
     input:
-        manifest="work/{run}/manifest.json",
-        card="work/{run}/card/card.sha256",
+        manifest=artifact("manifest.json"),
+        card=artifact("card/card.sha256"),
     output:
-        marker="work/{run}.published",
+        marker=f"work/{artifacts.PUBLISHED_MARKER}",
     log:
         "logs/{run}/publish.log",
     benchmark:

@@ -17,28 +17,25 @@ SCORING_FILES = {
 }
 
 if SCORING["data"]:
-    SCORING_OUTPUTS = expand("work/{run}/scoring/summary.json", run=RUN)
+    SCORING_OUTPUTS = expand(artifact("scoring/summary.json"), run=RUN)
 
     rule score:
         input:
-            recipe="work/{run}/features/recipe.json",
-            selected="work/{run}/comparison/selected.json",
-            models=expand(
-                "work/{{run}}/candidates/{candidate}/model.json",
-                candidate=CANDIDATES,
-            ),
-            choice="work/{run}/threshold/choice.json",
-            contract="work/{run}/validated/contract.yaml",
-            data="work/{run}/validated/data.parquet",
-            assignment="work/{run}/split/assignment.parquet",
+            recipe=artifact("features/recipe.json"),
+            selected=artifact("comparison/selected.json"),
+            models=per_candidate("candidates/{candidate}/model.json"),
+            choice=artifact("threshold/choice.json"),
+            contract=artifact("validated/contract.yaml"),
+            data=artifact("validated/data.parquet"),
+            assignment=artifact("split/assignment.parquet"),
         output:
-            scores="work/{run}/scoring/scores.parquet",
-            csv="work/{run}/scoring/scores.csv",
-            summary="work/{run}/scoring/summary.json",
-            drift="work/{run}/scoring/drift.json",
-            html="work/{run}/scoring/drift.html",
-            pdf="work/{run}/scoring/drift.pdf",
-            stamp="work/{run}/provenance/score.json",
+            scores=artifact("scoring/scores.parquet"),
+            csv=artifact("scoring/scores.csv"),
+            summary=artifact("scoring/summary.json"),
+            drift=artifact("scoring/drift.json"),
+            html=artifact("scoring/drift.html"),
+            pdf=artifact("scoring/drift.pdf"),
+            stamp=artifact("provenance/score.json"),
         log:
             "logs/{run}/score.log",
         benchmark:

@@ -1,11 +1,11 @@
 rule split:
     input:
-        data="work/{run}/validated/data.parquet",
-        report="work/{run}/validated/report.json",
+        data=artifact("validated/data.parquet"),
+        report=artifact("validated/report.json"),
     output:
-        assignment="work/{run}/split/assignment.parquet",
-        summary="work/{run}/split/summary.json",
-        stamp="work/{run}/provenance/split.json",
+        assignment=artifact("split/assignment.parquet"),
+        summary=artifact("split/summary.json"),
+        stamp=artifact("provenance/split.json"),
     log:
         "logs/{run}/split.log",
     benchmark:

@@ -1,13 +1,11 @@
 rule threshold:
     input:
-        selected="work/{run}/comparison/selected.json",
-        oof=expand(
-            "work/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
-        ),
+        selected=artifact("comparison/selected.json"),
+        oof=per_candidate("candidates/{candidate}/oof.parquet"),
     output:
-        choice="work/{run}/threshold/choice.json",
-        curve="work/{run}/threshold/cost_curve.parquet",
-        stamp="work/{run}/provenance/threshold.json",
+        choice=artifact("threshold/choice.json"),
+        curve=artifact("threshold/cost_curve.parquet"),
+        stamp=artifact("provenance/threshold.json"),
     log:
         "logs/{run}/threshold.log",
     benchmark:

@@ -3,11 +3,11 @@ rule validate:
         data=CONFIG["data"]["path"],
         contract=CONFIG["data"]["contract"],
     output:
-        data="work/{run}/validated/data.parquet",
-        report="work/{run}/validated/report.json",
-        summary="work/{run}/validated/summary.txt",
-        contract="work/{run}/validated/contract.yaml",
-        stamp="work/{run}/provenance/validate.json",
+        data=artifact("validated/data.parquet"),
+        report=artifact("validated/report.json"),
+        summary=artifact("validated/summary.txt"),
+        contract=artifact("validated/contract.yaml"),
+        stamp=artifact("provenance/validate.json"),
     log:
         "logs/{run}/validate.log",
     benchmark:

@@ -5,5 +5,5 @@ from oddsmith.stages.apply_cutoff import run_apply_cutoff
 
 sm = snakemake  # noqa: F821 (provided by Snakemake)
 stage(sm, run_apply_cutoff, scores_path=sm.input.scores, probability_metrics_path=sm.input.probability_metrics,
-      choice_path=sm.input.choice, out_metrics=sm.output.metrics, out_subgroups=sm.output.subgroups,
+      choice_path=sm.input.choice, out_cutoff_metrics=sm.output.cutoff_metrics, out_subgroups=sm.output.subgroups,
       out_predictions=sm.output.predictions)

@@ -1,8 +1,12 @@
-"""Snakemake script of the card rule: render the model card from the run's folder."""
+"""Snakemake script of the card rule: render the model card from the rule's declared inputs."""
 
+from oddsmith.card import ARTIFACTS
 from oddsmith.runner import stage
 from oddsmith.stages.card import run_card
 
 sm = snakemake  # noqa: F821 (provided by Snakemake)
-stage(sm, run_card, manifest_path=sm.input.manifest, out_html=sm.output.html, out_pdf=sm.output.pdf,
-      out_sha256=sm.output.sha256)
+inputs = {key: getattr(sm.input, key) for key in ARTIFACTS} | {
+    "models": dict(zip(sm.params.candidates, sm.input.models)),
+    "figures": dict(zip(sm.params.figures, sm.input.figures)),
+    "challenger": next(iter(sm.input.challenger), None)}
+stage(sm, run_card, inputs=inputs, out_html=sm.output.html, out_pdf=sm.output.pdf, out_sha256=sm.output.sha256)

@@ -1,5 +1,7 @@
 """Snakemake script of the score rule: a later batch scored with the selected model, plus drift."""
 
+import os
+
 from oddsmith.runner import stage
 from oddsmith.stages.score import run_score
 
@@ -8,5 +10,4 @@ stage(sm, run_score, new_path=sm.params.batch["path"], recipe_path=sm.input.reci
       model_paths=dict(zip(sm.params.candidates, sm.input.models)), choice_path=sm.input.choice,
       contract_path=sm.input.contract, data_path=sm.input.data, assignment_path=sm.input.assignment,
       data=sm.params.data, scoring=sm.params.scoring, monitoring=sm.params.monitoring,
-      outputs={"scores.parquet": sm.output.scores, "scores.csv": sm.output.csv, "summary.json": sm.output.summary,
-               "drift.json": sm.output.drift, "drift.html": sm.output.html, "drift.pdf": sm.output.pdf})
+      outputs={os.path.basename(path): path for key, path in sm.output.items() if key != "stamp"})

@@ -10,6 +10,7 @@ import pandas as pd
 import pytest
 
 from oddsmith import fairness, metrics
+from oddsmith.artifacts import evaluation_at_cutoff
 from oddsmith.errors import ArtifactError
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
 from oddsmith.stages.apply_cutoff import run_apply_cutoff
@@ -39,7 +40,7 @@ def _artifacts(folder, *, n=3000, seed=4):
     write_parquet(paths["scores_path"], scores)
     write_json(paths["probability_metrics_path"], evaluation)
     write_json(paths["choice_path"], choice)
-    outputs = {"out_metrics": folder / "out" / "metrics.json", "out_subgroups": folder / "out" / "subgroups.json",
+    outputs = {"out_cutoff_metrics": folder / "out" / "cutoff_metrics.json", "out_subgroups": folder / "out" / "subgroups.json",
                "out_predictions": folder / "out" / "predictions.parquet"}
     return paths, outputs, (y, p, region, period, choice)
 
@@ -47,7 +48,7 @@ def _artifacts(folder, *, n=3000, seed=4):
 def test_decision_figures_come_from_the_scores_and_the_choice(tmp_path):
     paths, outputs, (y, p, region, period, choice) = _artifacts(tmp_path)
     run_apply_cutoff(**paths, **outputs)
-    result, subgroups = read_json(outputs["out_metrics"]), read_json(outputs["out_subgroups"])
+    result, subgroups = read_json(outputs["out_cutoff_metrics"]), read_json(outputs["out_subgroups"])
     cutoff = choice["adopted_cutoff"]
     flag = p >= cutoff
     assert result["cutoff"] == cutoff and result["adopted"] == "empirical"
@@ -55,11 +56,15 @@ def test_decision_figures_come_from_the_scores_and_the_choice(tmp_path):
     assert (c["tp"], c["fp"], c["fn"], c["tn"]) == (int(np.sum(flag & (y == 1))), int(np.sum(flag & (y == 0))),
                                                     int(np.sum(~flag & (y == 1))), int(np.sum(~flag & (y == 0))))
     assert result["cost_per_1000"] == pytest.approx(1000 * (c["fp"] + 4.5 * c["fn"]) / len(y), rel=1e-12)
-    # the cut-off-free metrics pass through unchanged
-    assert result["overall"] == json.loads(json.dumps(metrics.summarise(y, p)))
+    # the cut-off-free metrics stay in evaluate's file; the reader's join passes them through unchanged
+    assert "overall" not in result and result["candidate"] == "logit"
+    joined = evaluation_at_cutoff(read_json(paths["probability_metrics_path"]), result)
+    assert joined["overall"] == json.loads(json.dumps(metrics.summarise(y, p))) and joined["cutoff"] == cutoff
+    assert "subgroups" not in joined and joined["period_unit"] == "quarter"
     assert {row["mark"] for row in result["cutoff_table"]} >= {"adopted", "Bayes"}
-    for row in result["periods"]:
+    for row in joined["periods"]:
         assert row["flag_rate"] == pytest.approx(flag[period == row["period"]].mean(), abs=1e-15)
+        assert row["n"] == int((period == row["period"]).sum())
     whole = fairness.subgroup_table(y, p, region, cutoff=cutoff, min_group_size=100, attribute="region")
     rows = subgroups["attributes"]["region"]["rows"]
     assert [{k: v for k, v in r.items() if k != "intervals"} for r in rows] == json.loads(json.dumps(whole))
@@ -117,3 +122,23 @@ def test_outcome_maturity_counts_rows_whose_window_had_not_closed():
     later = outcome_maturity(dates, parts, window_months=6, extraction_date="2026-07-01")
     assert later["test_matured"] and later["extraction_date_source"] == "config data.extraction_date"
     assert outcome_maturity(dates, parts, window_months=None, extraction_date=None) is None
+
+
+def test_joining_the_two_evaluation_files_refuses_files_of_different_runs():
+    """Hand-made records: the join adds the cut-off keys and each period's flag rate, and
+    refuses a candidate or period mismatch, naming both sides."""
+    probability = {"candidate": "logit", "n": 4, "overall": {"auc": 0.75}, "subgroups": {"attributes": {}},
+                   "periods": [{"period": "2025Q3", "n": 2}, {"period": "2025Q4", "n": 2}]}
+    at_cutoff = {"candidate": "logit", "n": 4, "cutoff": 0.5, "adopted": "empirical", "confusion": {"tp": 1},
+                 "cost_per_1000": 250.0, "cutoff_table": [],
+                 "period_flag_rates": [{"period": "2025Q3", "flag_rate": 0.5}, {"period": "2025Q4", "flag_rate": 0.0}]}
+    joined = evaluation_at_cutoff(probability, at_cutoff)
+    assert joined == {"candidate": "logit", "n": 4, "overall": {"auc": 0.75}, "cutoff": 0.5, "adopted": "empirical",
+                      "confusion": {"tp": 1}, "cost_per_1000": 250.0, "cutoff_table": [],
+                      "periods": [{"period": "2025Q3", "n": 2, "flag_rate": 0.5},
+                                  {"period": "2025Q4", "n": 2, "flag_rate": 0.0}]}
+    with pytest.raises(ArtifactError) as info:
+        evaluation_at_cutoff(probability | {"candidate": "probit"}, at_cutoff | {"period_flag_rates": None})
+    message = str(info.value)
+    assert "probability metrics of 'probit', cut-off metrics of 'logit'" in message
+    assert "the period rows of the two files differ" in message

@@ -19,11 +19,12 @@ import yaml
 from markupsafe import escape
 from pypdf import PdfReader
 
-from oddsmith import card
+from oddsmith import artifacts, card, selection
+from oddsmith.artifacts import evaluation_at_cutoff
 from oddsmith.card import (CardError, RunFolderFetcher, clip, fmt_count, fmt_fixed, fmt_p, fmt_pct, fmt_sig,
                            render_card, render_pdf)
 from oddsmith.errors import ArtifactError
-from oddsmith import selection
+from oddsmith.stages.card import run_card
 
 ROOT = Path(__file__).resolve().parent.parent
 RUN = Path("results") / "lease_demo"
@@ -146,34 +147,40 @@ def demo_run(demo_build) -> Path:
 
 @pytest.fixture(scope="session")
 def demo_text(demo_run) -> str:
-    return _pdf_text(demo_run / "card" / "model_card.pdf")
+    return _pdf_text(artifacts.in_folder(demo_run, "card/model_card.pdf"))
 
 
-def _load(run: Path, rel: str):
-    return json.loads((run / rel).read_text(encoding="utf-8"))
+def _load(run: Path, rel: str, **wildcards):
+    return json.loads(artifacts.in_folder(run, rel, **wildcards).read_text(encoding="utf-8"))
+
+
+def _test_metrics(run: Path) -> dict:
+    """The test part's evaluation as the card reads it: evaluate's and apply_cutoff's files joined."""
+    return evaluation_at_cutoff(_load(run, "evaluation/probability_metrics.json"),
+                                _load(run, "evaluation/cutoff_metrics.json"))
 
 
 @pytest.mark.e2e
 def test_card_files_and_sha256_list(demo_run):
-    lines = (demo_run / "card" / "card.sha256").read_text().splitlines()
+    lines = artifacts.in_folder(demo_run, "card/card.sha256").read_text().splitlines()
     assert [line.split("  ")[1] for line in lines] == ["manifest.json", "card/model_card.html", "card/model_card.pdf"]
     for line in lines:
         digest, rel = line.split("  ")
         assert hashlib.sha256((demo_run / rel).read_bytes()).hexdigest() == digest, rel
-    assert (demo_run / "card" / "model_card.pdf").read_bytes().startswith(b"%PDF")
+    assert artifacts.in_folder(demo_run, "card/model_card.pdf").read_bytes().startswith(b"%PDF")
     log = (demo_run.parent.parent / "logs" / "lease_demo" / "card.log").read_text()
     assert "weasyprint:" not in log, "WeasyPrint warned while rendering the demo card:\n" + log
 
 
 @pytest.mark.e2e
 def test_pdf_shows_key_numbers_exactly_as_formatted_from_the_artifacts(demo_run, demo_text):
-    metrics = _load(demo_run, "evaluation/metrics.json")
+    metrics = _test_metrics(demo_run)
     selected = _load(demo_run, "comparison/selected.json")["candidate"]
-    model = _load(demo_run, f"candidates/{selected}/model.json")
+    model = _load(demo_run, artifacts.MODEL, candidate=selected)
     text = _squash(demo_text)
     expected = [
-        fmt_fixed(metrics["auc_ci"]["auc"], 3),
-        f"{fmt_fixed(metrics['auc_ci']['lower'], 3)}–{fmt_fixed(metrics['auc_ci']['upper'], 3)}",
+        fmt_fixed(metrics["overall"]["auc"], 3),
+        f"{fmt_fixed(metrics['auc_test_ci']['lower'], 3)}–{fmt_fixed(metrics['auc_test_ci']['upper'], 3)}",
         fmt_fixed(metrics["cutoff"], 4),
         *(fmt_count(metrics["confusion"][k]) for k in ("tp", "fp", "tn", "fn")),
         fmt_pct(metrics["confusion"]["flag_rate"]),
@@ -198,7 +205,7 @@ def test_pdf_has_every_section_the_cautions_and_the_fingerprint(demo_run, demo_t
     for _, heading in card.SECTIONS:
         assert _squash(heading) in text, heading
     assert _squash(_cautions()) in text
-    fingerprint = hashlib.sha256((demo_run / "manifest.json").read_bytes()).hexdigest()
+    fingerprint = hashlib.sha256(artifacts.in_folder(demo_run, artifacts.MANIFEST).read_bytes()).hexdigest()
     assert fingerprint[:12] in text
     assert "Mitchelletal." in text
     assert "Workingdraft" in text and "Release" not in demo_text.split("Working draft")[0]
@@ -219,15 +226,44 @@ def test_rerender_is_byte_identical_in_another_folder_time_and_hash_seed(demo_ru
 
 
 @pytest.mark.e2e
+def test_the_card_reads_the_paths_it_is_given_not_the_folder_layout(demo_run, tmp_path):
+    """The card rule passes its declared inputs: a figure and the cut-off file moved out of the
+    run folder and named in the inputs give the same HTML; the folder's own copies are absent."""
+    copy = tmp_path / "lease_demo"
+    shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
+    inputs = card.folder_inputs(copy)
+    moved = {}
+    for key, path in (("cutoff_metrics", inputs["cutoff_metrics"]), ("roc", inputs["figures"]["roc"])):
+        moved[key] = tmp_path / "elsewhere" / path.name
+        moved[key].parent.mkdir(exist_ok=True)
+        path.rename(moved[key])
+    inputs["cutoff_metrics"], inputs["figures"]["roc"] = moved["cutoff_metrics"], moved["roc"]
+    run_card(inputs=inputs, **{f"out_{k}": copy / rel for k, rel in zip(("html", "pdf", "sha256"), card.CARD_FILES)})
+    html = "card/model_card.html"
+    assert artifacts.in_folder(copy, html).read_bytes() == artifacts.in_folder(demo_run, html).read_bytes()
+
+
+def test_the_card_stage_refuses_outputs_outside_the_run_folders_card(tmp_path):
+    run_dir = tmp_path / "run"
+    inputs = {"manifest": artifacts.in_folder(run_dir, artifacts.MANIFEST)}
+    with pytest.raises(CardError) as info:
+        run_card(inputs=inputs, out_html=str(artifacts.in_folder(tmp_path, "card/model_card.html")),
+                 out_pdf=str(artifacts.in_folder(run_dir, "card/model_card.pdf")),
+                 out_sha256=str(artifacts.in_folder(run_dir, "card/card.sha256")))
+    assert f"card/model_card.html: got {tmp_path / 'card' / 'model_card.html'}" in str(info.value)
+    assert not (tmp_path / "card").exists() and not run_dir.exists()
+
+
+@pytest.mark.e2e
 def test_missing_artifacts_are_named_and_nothing_is_written(demo_run, tmp_path):
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
-    (copy / "evaluation" / "metrics.json").unlink()
-    (copy / "figures" / "roc.svg").unlink()
+    artifacts.in_folder(copy, "evaluation/cutoff_metrics.json").unlink()
+    artifacts.in_folder(copy, "figures/roc.svg").unlink()
     with pytest.raises(ArtifactError) as info:
         render_card(copy)
     message = str(info.value)
-    assert "evaluation/metrics.json" in message and "figures/roc.svg" in message
+    assert "evaluation/cutoff_metrics.json" in message and "figures/roc.svg" in message
     assert not (copy / "card").exists()
 
 
@@ -296,7 +332,7 @@ def _poison(run: Path) -> None:
     edit(f"candidates/{json.loads((run / 'comparison/selected.json').read_text())['candidate']}/model.json", model)
     edit("features/diagnostics.json", diagnostics)
     edit("validated/report.json", report)
-    contract_path = run / "validated" / "contract.yaml"
+    contract_path = artifacts.in_folder(run, "validated/contract.yaml")
     contract = yaml.safe_load(contract_path.read_text(encoding="utf-8"))
     contract["columns"][HOSTILE["script"] + HOSTILE["long"]] = {"type": "category", "levels": [HOSTILE["image"]],
                                                                 "description": HOSTILE["rtl"]}
@@ -347,7 +383,7 @@ def test_hostile_text_is_escaped_laid_out_and_never_fetched_in_a_release_copy(de
 def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
-    run = card.load_run(copy)
+    run = card.load_run(card.folder_inputs(copy))
     run["diagnostics"]["events_per_parameter"] = 6.5  # Peduzzi et al. (1996): below 10
     run["metrics"]["overall"]["calibration_slope"] = 0.71  # outside [0.8, 1.2]
     first = run["table"]["rows"][0]
@@ -380,8 +416,8 @@ def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
 def test_a_penalised_selection_shows_its_penalty_instead_of_wald_intervals(demo_run, tmp_path):
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
-    (copy / "comparison" / "selected.json").write_text(json.dumps({"candidate": "lasso", "reason": "test"}))
-    run = card.load_run(copy)
+    artifacts.in_folder(copy, "comparison/selected.json").write_text(json.dumps({"candidate": "lasso", "reason": "test"}))
+    run = card.load_run(card.folder_inputs(copy))
     html = card.render_html(card.build_context(run, release=None))
     penalty = run["model"]["penalty"]
     assert f"C = {penalty['C']:g} chosen from" in html and "Standardised coefficient" in html
@@ -391,7 +427,7 @@ def test_a_penalised_selection_shows_its_penalty_instead_of_wald_intervals(demo_
 @pytest.mark.e2e
 def test_card_states_its_definitions_units_and_the_deciding_numbers(demo_run, demo_text):
     text = _squash(demo_text)
-    choice, metrics = _load(demo_run, "threshold/choice.json"), _load(demo_run, "evaluation/metrics.json")
+    choice, metrics = _load(demo_run, "threshold/choice.json"), _test_metrics(demo_run)
     selected, table = _load(demo_run, "comparison/selected.json"), _load(demo_run, "comparison/table.json")
     assert _squash("Kolmogorov–Smirnov statistic (KS): the largest gap between the cumulative score distributions "
                    "of events and non-events") in text

@@ -109,7 +109,7 @@ def test_a_selected_penalised_model_shows_original_scale_and_what_has_no_interva
     copy = tmp_path / "birthwt"
     shutil.copytree(birthwt_run, copy, ignore=shutil.ignore_patterns("card"))
     (copy / "comparison" / "selected.json").write_text(json.dumps({"candidate": "ridge", "reason": "test"}))
-    run = card.load_run(copy)
+    run = card.load_run(card.folder_inputs(copy))
     model, recipe = run["model"], run["recipe"]
     html = card.render_html(card.build_context(run, release=None))
     assert "What has no interval." in html and "no standard errors" in html and "Odds ratio" not in html

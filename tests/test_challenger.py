@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from oddsmith import artifacts
 from oddsmith import card, challenger
 from oddsmith.config import check_config
 from oddsmith.errors import ArtifactError, ConfigError
@@ -167,15 +168,15 @@ def demo_run(demo_build) -> Path:
 
 @pytest.mark.e2e
 def test_challenger_used_the_candidates_folds(demo_run):
-    assignment = pd.read_parquet(demo_run / "split/assignment.parquet")
+    assignment = pd.read_parquet(artifacts.in_folder(demo_run, "split/assignment.parquet"))
     train = assignment[assignment["part"] == "train"]
-    oof = pd.read_parquet(demo_run / "challenger/oof.parquet")
-    selected = json.loads((demo_run / "comparison/selected.json").read_text())["candidate"]
-    candidate = pd.read_parquet(demo_run / "candidates" / selected / "oof.parquet")
+    oof = pd.read_parquet(artifacts.in_folder(demo_run, "challenger/oof.parquet"))
+    selected = json.loads(artifacts.in_folder(demo_run, "comparison/selected.json").read_text())["candidate"]
+    candidate = pd.read_parquet(artifacts.in_folder(demo_run, "candidates/{candidate}/oof.parquet", candidate=selected))
     assert (oof["id"].to_numpy() == train["id"].to_numpy()).all()
     assert (oof["id"].to_numpy() == candidate["id"].to_numpy()).all()
-    cv = json.loads((demo_run / "challenger/cv.json").read_text())
-    cand_cv = json.loads((demo_run / "candidates" / selected / "cv.json").read_text())
+    cv = json.loads(artifacts.in_folder(demo_run, "challenger/cv.json").read_text())
+    cand_cv = json.loads(artifacts.in_folder(demo_run, "candidates/{candidate}/cv.json", candidate=selected).read_text())
     fold_sizes = train["fold"].value_counts().sort_index().to_dict()
     assert {f["fold"]: f["n"] for f in cv["folds"]} == fold_sizes
     assert [(f["repeat"], f["fold"], f["n"], f["n_train"]) for f in cv["folds"]] == [
@@ -194,26 +195,26 @@ def test_no_pickle_in_the_run_folder(demo_run):
 
 @pytest.mark.e2e
 def test_stamp_claims_the_challenger_files(demo_run):
-    stamp = json.loads((demo_run / "provenance/challenger.json").read_text())
+    stamp = json.loads(artifacts.in_folder(demo_run, "provenance/challenger.json").read_text())
     assert sorted(Path(p).name for p in stamp["outputs"]) == ["cv.json", "oof.parquet"]
-    manifest = json.loads((demo_run / "manifest.json").read_text())
+    manifest = json.loads(artifacts.in_folder(demo_run, artifacts.MANIFEST).read_text())
     assert any(p.endswith("challenger/cv.json") for p in manifest["files"])
 
 
 @pytest.mark.e2e
 def test_card_shows_the_challenger_line_and_says_when_it_is_off(demo_run, tmp_path):
-    html = (demo_run / "card/model_card.html").read_text(encoding="utf-8")
+    html = artifacts.in_folder(demo_run, "card/model_card.html").read_text(encoding="utf-8")
     assert "challenger — not for adoption" in html
-    gap = json.loads((demo_run / "challenger/cv.json").read_text())["gap"]
+    gap = json.loads(artifacts.in_folder(demo_run, "challenger/cv.json").read_text())["gap"]
     sentence = card.challenger_gap_sentence(gap["log_loss"], selected=gap["selected"])
     assert sentence.replace("'", "&#39;") in html
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
-    run = card.load_run(copy)
+    run = card.load_run(card.folder_inputs(copy))
     run["config"]["challenger"]["enabled"], run["challenger"] = False, None
     off = card.render_html(card.build_context(run, release=None))
     assert "Not run: challenger.enabled is false" in off and "not for adoption" in off
-    (copy / "challenger" / "cv.json").unlink()
+    artifacts.in_folder(copy, "challenger/cv.json").unlink()
     with pytest.raises(ArtifactError) as info:
-        card.load_run(copy)
+        card.load_run(card.folder_inputs(copy))
     assert "challenger/cv.json" in str(info.value)

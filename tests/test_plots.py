@@ -149,8 +149,9 @@ def test_figures_rebuild_byte_identical_in_another_process(demo_build, tmp_path)
 from oddsmith.stages.figures import DECISION_FIGURES, MODEL_FIGURES, run_figures, run_model_figures
 run = {str(run)!r}
 out = {str(tmp_path)!r} + "/"
-run_figures(predictions_path=run + "/evaluation/predictions.parquet", metrics_path=run + "/evaluation/metrics.json",
-            subgroups_path=run + "/evaluation/subgroups.json", choice_path=run + "/threshold/choice.json",
+run_figures(predictions_path=run + "/evaluation/predictions.parquet",
+            probability_metrics_path=run + "/evaluation/probability_metrics.json",
+            cutoff_metrics_path=run + "/evaluation/cutoff_metrics.json", subgroups_path=run + "/evaluation/subgroups.json", choice_path=run + "/threshold/choice.json",
             curve_path=run + "/threshold/cost_curve.parquet", out={{n: out + n + ".svg" for n in DECISION_FIGURES}},
             currency="unit")
 run_model_figures(probability_metrics_path=run + "/evaluation/probability_metrics.json",
@@ -172,14 +173,15 @@ def test_cost_curve_figure_without_a_bootstrap_or_with_flag_none_in_the_interval
     write_parquet(tmp_path / "predictions.parquet", pd.DataFrame({"y": y, "p": p}))
     write_parquet(tmp_path / "curve.parquet", pd.DataFrame({"cutoff": [0.2, 0.5, np.inf],
                                                             "expected_cost_per_case": [0.9, 0.7, 0.8]}))
-    write_json(tmp_path / "metrics.json", {"cutoff": 0.5, "confusion": {"specificity": 0.8, "sensitivity": 0.6},
-                                           "auc_ci": {"auc": 0.7, "lower": 0.65, "upper": 0.75}})
+    write_json(tmp_path / "probability.json", {"overall": {"auc": 0.7}, "auc_test_ci": {"lower": 0.65, "upper": 0.75}})
+    write_json(tmp_path / "cutoff.json", {"cutoff": 0.5, "confusion": {"specificity": 0.8, "sensitivity": 0.6}})
     write_json(tmp_path / "subgroups.json", {"attributes": {}})
     write_json(tmp_path / "choice.json", {"bootstrap": bootstrap, "adopted_cutoff": 0.5, "bayes": {"cutoff": 0.45},
                                           "cost_per_1000": {"flag_none": 800.0, "flag_all": 900.0}})
     out = {name: tmp_path / f"{name}.svg" for name in figures.DECISION_FIGURES}
-    figures.run_figures(predictions_path=tmp_path / "predictions.parquet", metrics_path=tmp_path / "metrics.json",
-                        subgroups_path=tmp_path / "subgroups.json", choice_path=tmp_path / "choice.json",
+    figures.run_figures(predictions_path=tmp_path / "predictions.parquet",
+                        probability_metrics_path=tmp_path / "probability.json",
+                        cutoff_metrics_path=tmp_path / "cutoff.json", subgroups_path=tmp_path / "subgroups.json", choice_path=tmp_path / "choice.json",
                         curve_path=tmp_path / "curve.parquet", out=out)
     svg = out["cost_curve"].read_bytes()
     assert (b"<pattern" in svg) == (bootstrap is not None)  # the hatched interval is drawn only when there is one

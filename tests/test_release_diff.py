@@ -11,6 +11,7 @@ from pathlib import Path
 
 import pytest
 
+from oddsmith import artifacts
 from oddsmith.cli import main
 from oddsmith.diff import compare_folders, config_changes, differs, flatten, format_text
 from oddsmith.io import sha256_file
@@ -128,7 +129,7 @@ def test_diff_exit_status_same_different_unverified(two_builds, tmp_path, capsys
     capsys.readouterr()
     tampered = tmp_path / "lease_demo"
     shutil.copytree(a, tampered)
-    with open(tampered / "evaluation" / "metrics.json", "a", encoding="utf-8") as handle:
+    with open(artifacts.in_folder(tampered, "evaluation/cutoff_metrics.json"), "a", encoding="utf-8") as handle:
         handle.write(" ")
     assert main(["diff", str(a), str(tampered)]) == 2
     captured = capsys.readouterr()

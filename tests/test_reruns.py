@@ -247,6 +247,8 @@ def _changed_by(project: Path, path: str) -> set[str]:
     # the drift page imports the card module for its URL fetcher
     ("oddsmith/card.py", {"card", "score"}),
     ("oddsmith/manifest.py", {"manifest", "publish"}),
+    # the artifact registry: the card reads through it, the manifest names its own file from it
+    ("oddsmith/artifacts.py", {"card", "score", "manifest", "publish"}),
     ("oddsmith/io.py", {"validate", "split", "features", "fit", "compare", "challenger", "threshold", "evaluate",
                         "apply_cutoff", "model_figures", "figures", "manifest", "card", "score", "publish"}),
     ("reports/macros.html.j2", {"card"}),

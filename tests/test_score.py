@@ -14,14 +14,15 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from oddsmith import artifacts
 from oddsmith.errors import ArtifactError, ConfigError, ContractError, ManifestError
 from oddsmith.io import read_parquet
 from oddsmith.recipe import learn_recipe
 from oddsmith.score import (ScoringModel, check_batch, contributions, csv_bytes, design_matrix, feature_weights,
                             load_artifacts, neutralise_text, reason_reference, score_frame,
                             top_reasons)
-from oddsmith.stages.score import OUTPUTS, run_score
-from oddsmith.stages.score_commands import load_results_folder, score_folder
+from oddsmith.stages.score import run_score
+from oddsmith.stages.score_commands import OUTPUTS, load_results_folder, score_folder
 
 from conftest import ROOT, run_snakemake
 
@@ -223,10 +224,12 @@ def test_one_row_batch_may_have_an_empty_nullable_cell():
 def _paths(project: Path) -> dict:
     r = project / "results" / RUN
     models = {p.parent.name: p for p in sorted((r / "candidates").glob("*/model.json"))}
-    return dict(recipe_path=r / "features/recipe.json", selected_path=r / "comparison/selected.json",
-                model_paths=models, choice_path=r / "threshold/choice.json",
-                contract_path=r / "validated/contract.yaml", data_path=r / "validated/data.parquet",
-                assignment_path=r / "split/assignment.parquet")
+    return dict(recipe_path=artifacts.in_folder(r, "features/recipe.json"),
+                selected_path=artifacts.in_folder(r, artifacts.SELECTED), model_paths=models,
+                choice_path=artifacts.in_folder(r, "threshold/choice.json"),
+                contract_path=artifacts.in_folder(r, "validated/contract.yaml"),
+                data_path=artifacts.in_folder(r, "validated/data.parquet"),
+                assignment_path=artifacts.in_folder(r, "split/assignment.parquet"))
 
 
 @pytest.fixture(scope="module")
@@ -238,10 +241,11 @@ def demo_model(demo_build) -> ScoringModel:
 @pytest.mark.e2e
 def test_scores_equal_the_evaluation_predictions(demo_build, demo_model):
     r = demo_build / "results" / RUN
-    data, assignment = read_parquet(r / "validated/data.parquet"), read_parquet(r / "split/assignment.parquet")
+    data = read_parquet(artifacts.in_folder(r, "validated/data.parquet"))
+    assignment = read_parquet(artifacts.in_folder(r, "split/assignment.parquet"))
     test = data.loc[(assignment["part"] == "test").to_numpy()].reset_index(drop=True)
     scored = score_frame(demo_model, test)
-    evaluated = read_parquet(r / "evaluation/predictions.parquet")
+    evaluated = read_parquet(artifacts.in_folder(r, "evaluation/predictions.parquet"))
     assert scored["id"].tolist() == evaluated["id"].astype(str).tolist()
     np.testing.assert_allclose(scored["probability"], evaluated["p"], rtol=0, atol=1e-12)
     assert ((scored["decision"] == "flag").astype(int) == evaluated["flagged"]).all()
@@ -306,7 +310,7 @@ def _copy_results(demo_build: Path, tmp_path: Path) -> Path:
 @pytest.mark.e2e
 def test_folder_without_a_model_is_refused(demo_build, tmp_path):
     folder = _copy_results(demo_build, tmp_path)
-    (folder / "comparison" / "selected.json").unlink()
+    artifacts.in_folder(folder, "comparison/selected.json").unlink()
     with pytest.raises(ArtifactError, match="holds no model"):
         load_results_folder(folder)
     with pytest.raises(ArtifactError, match="results folder not found"):
@@ -316,7 +320,7 @@ def test_folder_without_a_model_is_refused(demo_build, tmp_path):
 @pytest.mark.e2e
 def test_incompatible_formats_are_refused(demo_build, tmp_path):
     folder = _copy_results(demo_build, tmp_path)
-    (folder / "manifest.json").write_text(json.dumps({"format": "oddsmith-manifest/2"}))
+    artifacts.in_folder(folder, artifacts.MANIFEST).write_text(json.dumps({"format": "oddsmith-manifest/2"}))
     with pytest.raises(ManifestError, match="'oddsmith-manifest/2' is not readable"):
         load_results_folder(folder)
     paths = _paths(folder.parent.parent)
@@ -332,7 +336,7 @@ def verified_demo(demo_build) -> Path:
     """The demo build with its manifest (built here if the workflow has the rule)."""
     pytest.importorskip("oddsmith.verify", reason="oddsmith.verify is not in this tree yet")
     folder = demo_build / "results" / RUN
-    if not (folder / "manifest.json").is_file():
+    if not artifacts.in_folder(folder, artifacts.MANIFEST).is_file():
         run_snakemake(demo_build)  # the default target publishes a verified result
     from oddsmith.verify import verify_results
 
@@ -357,7 +361,7 @@ def test_cli_scores_a_verified_folder(verified_demo, tmp_path, capsys):
     assert {p.name: p.read_bytes() for p in out.iterdir()} == {n: b for n, (b, _) in before.items()}
     scored = read_parquet(out / "scores.parquet")
     assert "reason_2" in scored.columns and "reason_3" not in scored.columns
-    built = read_parquet(verified_demo / "scoring" / "scores.parquet")
+    built = read_parquet(artifacts.in_folder(verified_demo, "scoring/scores.parquet"))
     np.testing.assert_array_equal(scored["probability"].to_numpy(), built["probability"].to_numpy())
 
 
@@ -366,7 +370,7 @@ def test_cli_refuses_a_tampered_folder_and_writes_nothing(verified_demo, tmp_pat
     from oddsmith.cli import main
 
     folder = _copy_results(verified_demo.parent.parent, tmp_path)
-    choice = folder / "threshold" / "choice.json"
+    choice = artifacts.in_folder(folder, "threshold/choice.json")
     choice.write_text(choice.read_text().replace('"adopted_cutoff": 0.', '"adopted_cutoff": 0.9'))
     out = tmp_path / "out"
     assert main(["score", str(folder), str(BATCH), "-o", str(out)]) == 1

@@ -52,7 +52,7 @@ def test_a_48_row_test_part_of_birthwt_gets_no_hosmer_lemeshow_p_value():
 def test_card_states_the_rule_instead_of_the_p_value_and_flags_a_small_test_part(demo_build, tmp_path):
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_build / RUN, copy, ignore=shutil.ignore_patterns("card"))
-    run = card.load_run(copy)
+    run = card.load_run(card.folder_inputs(copy))
     checks = {f["check"]: f for f in card.findings(run)}
     assert checks["Size of the test part"]["status"] == "ok"  # the demo's test part is large
     assert checks["Hosmer–Lemeshow goodness of fit (test)"]["status"] in ("ok", "attention")

@@ -11,33 +11,40 @@ import pytest
 import yaml
 
 from conftest import DEMO_CONFIG, copy_project, run_snakemake
+from oddsmith import artifacts
 
 pytestmark = pytest.mark.e2e
 RUN = "results/lease_demo"  # the published result
 STAGE = "work/lease_demo"  # where the jobs write (partial targets are named here)
 
 
-def _json(project, path):
-    return json.loads((project / RUN / path).read_text())
+def _file(project, name, **wildcards):
+    """A registered artifact of the published demo result."""
+    return artifacts.in_folder(project / RUN, name, **wildcards)
 
 
-def test_every_stage_writes_its_artifacts(demo_build):
-    for path in ("validated/data.parquet", "validated/report.json", "split/assignment.parquet",
-                 "split/summary.json", "features/recipe.json", "features/diagnostics.json",
-                 "comparison/table.json", "comparison/selected.json", "threshold/choice.json",
-                 "threshold/cost_curve.parquet", "evaluation/scores.parquet", "evaluation/probability_metrics.json",
-                 "evaluation/metrics.json", "evaluation/subgroups.json", "evaluation/predictions.parquet"):
-        assert (demo_build / RUN / path).is_file(), path
+def _json(project, name, **wildcards):
+    return json.loads(_file(project, name, **wildcards).read_text())
+
+
+def test_every_registered_artifact_is_published(demo_build):
+    """The demo enables every optional rule, so every file oddsmith.artifacts names is in its
+    result, once per candidate for per-candidate files, and nothing else besides."""
     cfg = yaml.safe_load((demo_build / DEMO_CONFIG).read_text())
-    for c in [c["name"] for c in cfg["candidates"]] + ["baseline"]:
-        for name in ("model.json", "cv.json", "oof.parquet"):
-            assert (demo_build / RUN / "candidates" / c / name).is_file(), (c, name)
+    candidates = [c["name"] for c in cfg["candidates"]] + ["baseline"]
+    expected = set()
+    for name, artifact in artifacts.ARTIFACTS.items():
+        fills = [{"candidate": c} for c in candidates] if artifact.wildcards else [{}]
+        expected |= {artifacts.path(name, **fill) for fill in fills}
+    found = {p.relative_to(demo_build / RUN).as_posix() for p in (demo_build / RUN).rglob("*") if p.is_file()}
+    assert found == expected
+    for c in candidates:
         assert (demo_build / "benchmarks/lease_demo/fit" / f"{c}.tsv").is_file(), "one job per candidate"
 
 
 def test_out_of_time_split_and_training_only_recipe(demo_build):
-    data = pd.read_parquet(demo_build / RUN / "validated/data.parquet")
-    assignment = pd.read_parquet(demo_build / RUN / "split/assignment.parquet")
+    data = pd.read_parquet(_file(demo_build, "validated/data.parquet"))
+    assignment = pd.read_parquet(_file(demo_build, "split/assignment.parquet"))
     assert (assignment["id"].to_numpy() == data["application_id"].to_numpy()).all()
     dates = data["application_date"]
     assert dates[assignment["part"] == "test"].min() >= dates[assignment["part"] == "train"].max()
@@ -46,19 +53,19 @@ def test_out_of_time_split_and_training_only_recipe(demo_build):
 
 
 def test_every_candidate_used_the_same_folds(demo_build):
-    assignment = pd.read_parquet(demo_build / RUN / "split/assignment.parquet")
+    assignment = pd.read_parquet(_file(demo_build, "split/assignment.parquet"))
     train = assignment[assignment["part"] == "train"]
     fold_sizes = train["fold"].value_counts().sort_index().to_dict()
     table = _json(demo_build, "comparison/table.json")
     reference_ids = None
     for row in table["rows"]:
         name = row["candidate"]
-        oof = pd.read_parquet(demo_build / RUN / "candidates" / name / "oof.parquet")
+        oof = pd.read_parquet(_file(demo_build, "candidates/{candidate}/oof.parquet", candidate=name))
         if reference_ids is None:
             reference_ids = oof["id"].to_numpy()
         assert (oof["id"].to_numpy() == reference_ids).all(), name
         assert (oof["id"].to_numpy() == train["id"].to_numpy()).all(), name
-        cv = _json(demo_build, f"candidates/{name}/cv.json")
+        cv = _json(demo_build, "candidates/{candidate}/cv.json", candidate=name)
         if cv["status"] == "ok":
             assert {f["fold"]: f["n"] for f in cv["folds"]} == fold_sizes, name
 
@@ -78,8 +85,8 @@ def test_selection_is_explained_and_baseline_is_compared(demo_build):
 
 
 def test_test_predictions_come_from_the_selected_model(demo_build):
-    predictions = pd.read_parquet(demo_build / RUN / "evaluation/predictions.parquet")
-    metrics = _json(demo_build, "evaluation/metrics.json")
+    predictions = pd.read_parquet(_file(demo_build, "evaluation/predictions.parquet"))
+    metrics = _json(demo_build, "evaluation/cutoff_metrics.json")
     choice = _json(demo_build, "threshold/choice.json")
     assert metrics["cutoff"] == choice["adopted_cutoff"]
     flagged = predictions["p"] >= metrics["cutoff"]
@@ -99,8 +106,8 @@ def test_threshold_ignores_the_test_labels(demo_build, tmp_path):
     df.loc[test_rows, "serious_delinquency"] = np.where(df.loc[test_rows, "serious_delinquency"] == "1", "0", "1")
     df.to_csv(data_path, index=False, lineterminator="\n")
     run_snakemake(project, f"{STAGE}/threshold/choice.json")
-    original = (demo_build / RUN / "threshold/choice.json").read_bytes()
-    assert (project / STAGE / "threshold/choice.json").read_bytes() == original
+    original = (_file(demo_build, "threshold/choice.json")).read_bytes()
+    assert artifacts.in_folder(project / STAGE, "threshold/choice.json").read_bytes() == original
 
 
 def test_stratified_split_config(tmp_path):
@@ -111,7 +118,7 @@ def test_stratified_split_config(tmp_path):
     cfg["split"] = {"method": "stratified", "test_fraction": 0.3, "seed": 5}
     cfg_path.write_text(yaml.safe_dump(cfg))
     run_snakemake(project, f"{STAGE}/split/summary.json")
-    summary = json.loads((project / STAGE / "split/summary.json").read_text())
+    summary = json.loads(artifacts.in_folder(project / STAGE, "split/summary.json").read_text())
     assert summary["method"] == "stratified"
     parts = summary["parts"]
     assert abs(parts["test"]["n"] / (parts["test"]["n"] + parts["train"]["n"]) - 0.3) < 0.001
@@ -127,7 +134,7 @@ def test_ratio_cost_form_builds_the_threshold_choice(tmp_path):
     cfg["costs"] = {"ratio_fn_to_fp": 5}
     cfg_path.write_text(yaml.safe_dump(cfg))
     run_snakemake(project, f"{STAGE}/threshold/choice.json")
-    choice = json.loads((project / STAGE / "threshold/choice.json").read_text())
+    choice = json.loads(artifacts.in_folder(project / STAGE, "threshold/choice.json").read_text())
     assert choice["costs"] == {"false_positive": 1.0, "false_negative": 5.0, "true_positive": 0.0, "true_negative": 0.0}
     assert "cost_units" not in choice
     # Bayes cut-off with these costs: 1 / (1 + 5) (Elkan 2001)
@@ -203,12 +210,12 @@ def test_a_build_reads_only_its_own_configuration(tmp_path):
 
     assert verify_results(run_dir) == []
     assert not (project / "results" / "lease_demo").exists()
-    manifest_bytes = (run_dir / "manifest.json").read_bytes()
+    manifest_bytes = artifacts.in_folder(run_dir, artifacts.MANIFEST).read_bytes()
     manifest = json.loads(manifest_bytes)
     assert sorted(manifest["raw_inputs"]) == ["config/own.yaml", "data/default.csv", "schemas/contracts/default.yaml"]
     assert manifest["config"]["fairness"]["sensitive"] == [] and manifest["config"]["scoring"]["data"] is None
     assert not (run_dir / "scoring").exists()
-    card = (run_dir / "card" / "model_card.html").read_text(encoding="utf-8")
+    card = artifacts.in_folder(run_dir, "card/model_card.html").read_text(encoding="utf-8")
     assert "Credit-card default screen (test)" in card and "Limit setting." in card
 
     demo = yaml.safe_load((project / DEMO_CONFIG).read_text())

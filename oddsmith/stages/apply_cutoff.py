@@ -1,7 +1,9 @@
 """The apply_cutoff stage: the adopted cut-off applied to the test scores written by evaluate.
-The confusion matrix, a cut-off table, the realised cost, flag rates per period and the
-subgroup decision figures (error rates, adverse-impact ratios) join the cut-off-free metrics
-into the evaluation's metrics and subgroup files. Reads artifacts only; the test part itself
+The confusion matrix, a cut-off table, the realised cost and flag rates per period go to
+``evaluation/cutoff_metrics.json`` (evaluate's cut-off-free metrics stay in its own file;
+:func:`oddsmith.artifacts.evaluation_at_cutoff` joins the two for readers); the subgroup
+decision figures (error rates, adverse-impact ratios) join evaluate's group rows in
+``evaluation/subgroups.json``. Reads artifacts only; the test part itself
 is not read here, and nothing is fitted or scored."""
 
 from __future__ import annotations
@@ -46,7 +48,8 @@ def _period_flag_rates(periods: list[dict], labels: np.ndarray, p: np.ndarray, c
     if [row["period"] for row in periods] != found:
         raise ArtifactError("the scores' periods do not match the evaluation's",
                             [f"evaluation: {[row['period'] for row in periods]}", f"scores: {found}"])
-    return [row | {"flag_rate": float(flagged(p[labels == row["period"]], cutoff).mean())} for row in periods]
+    return [{"period": row["period"], "flag_rate": float(flagged(p[labels == row["period"]], cutoff).mean())}
+            for row in periods]
 
 
 def _check_artifacts(scores: pd.DataFrame, evaluation: dict, choice: dict) -> None:
@@ -75,7 +78,7 @@ def _group_rows(summaries: list[dict], y, p, labels, *, cutoff, attribute: str, 
 
 def _level(evaluation: dict) -> float:
     """The evaluation's interval level (its bootstrap's, else its AUC interval's, else 95%)."""
-    return (evaluation.get("bootstrap") or evaluation.get("auc_ci") or {}).get("level", 0.95)
+    return (evaluation.get("bootstrap") or evaluation.get("auc_test_ci") or {}).get("level", 0.95)
 
 
 def _interval_note(evaluation: dict) -> dict:
@@ -89,20 +92,23 @@ def _interval_note(evaluation: dict) -> dict:
             "replicates": None if boot is None else boot["replicates"], "seed": None if boot is None else boot["seed"]}
 
 
-def run_apply_cutoff(*, scores_path: str, probability_metrics_path: str, choice_path: str, out_metrics: str,
+def run_apply_cutoff(*, scores_path: str, probability_metrics_path: str, choice_path: str, out_cutoff_metrics: str,
                      out_subgroups: str, out_predictions: str) -> dict:
-    """Apply the adopted cut-off to the test scores; write metrics, subgroups and predictions."""
+    """Apply the adopted cut-off to the test scores; write the cut-off metrics, subgroups and
+    predictions (evaluate's cut-off-free metrics stay in its own file)."""
     scores = read_parquet(scores_path)
     evaluation, choice = read_json(probability_metrics_path), read_json(choice_path)
     _check_artifacts(scores, evaluation, choice)
     y, p = scores["y"].to_numpy().astype(int), scores["p"].to_numpy()
     cutoff = choice["adopted_cutoff"]
-    subgroups = evaluation.pop("subgroups")
-    result = evaluation | {"cutoff": cutoff, "adopted": choice["adopted"], "confusion": confusion_at(y, p, cutoff),
-                           "cost_per_1000": realised_cost_per_1000(y, p, cutoff, costs=choice["costs"]),
-                           "cutoff_table": _cutoff_table(y, p, choice)}
+    subgroups = evaluation["subgroups"]
+    result = {"candidate": evaluation["candidate"], "n": evaluation["n"], "cutoff": cutoff,
+              "adopted": choice["adopted"], "confusion": confusion_at(y, p, cutoff),
+              "cost_per_1000": realised_cost_per_1000(y, p, cutoff, costs=choice["costs"]),
+              "cutoff_table": _cutoff_table(y, p, choice), "period_flag_rates": None}
     if evaluation["periods"] is not None:
-        result["periods"] = _period_flag_rates(evaluation["periods"], scores["period"].to_numpy(), p, cutoff)
+        result["period_flag_rates"] = _period_flag_rates(evaluation["periods"], scores["period"].to_numpy(), p,
+                                                         cutoff)
     groups = {name: block | {"rows": _group_rows(block["rows"], y, p, scores[GROUP_COLUMN_PREFIX + name].to_numpy(),
                                                  cutoff=cutoff, attribute=name, evaluation=evaluation)}
               for name, block in subgroups["attributes"].items()}
@@ -110,7 +116,7 @@ def run_apply_cutoff(*, scores_path: str, probability_metrics_path: str, choice_
     predictions = pd.DataFrame({"id": scores["id"].to_numpy(), "y": y, "p": p,
                                 "flagged": flagged(p, cutoff).astype("int8")})
     write_parquet(out_predictions, predictions)
-    write_json(out_metrics, result)
+    write_json(out_cutoff_metrics, result)
     write_json(out_subgroups, {"min_group_size": subgroups["min_group_size"], "attributes": groups,
                                "rule": SUBGROUP_RULE, "favourable_outcome": "not flagged for review",
                                "intervals": _interval_note(evaluation)})

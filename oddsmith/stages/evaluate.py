@@ -96,7 +96,9 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
     overall = metrics.summarise(y, p)
     level = evaluation["interval_level"]
     result = {"candidate": selected, "n": int(len(y)), "events": int(y.sum()), "overall": overall,
-              "auc_ci": metrics.auc_confidence_interval(y, p, level=level),
+              # The test AUC itself is overall["auc"]; its DeLong interval is kept without a copy.
+              "auc_test_ci": {k: v for k, v in metrics.auc_confidence_interval(y, p, level=level).items()
+                              if k != "auc"},
               "bootstrap": _intervals(y, p, overall, evaluation), "outcome_maturity": None,
               "calibration_intercept_ci": metrics.calibration_intercept_interval(y, p, level=level),
               "hosmer_lemeshow": metrics.hosmer_lemeshow(y, p),

@@ -61,8 +61,8 @@ def run_model_figures(*, probability_metrics_path: str, selected_path: str, mode
                         "coefficients": plots.coefficients_svg(read_json(model_paths[selected]), sds=sds)})
 
 
-def run_figures(*, predictions_path: str, metrics_path: str, subgroups_path: str, choice_path: str,
-                curve_path: str, out: dict, currency: str | None = None) -> dict:
+def run_figures(*, predictions_path: str, probability_metrics_path: str, cutoff_metrics_path: str,
+                subgroups_path: str, choice_path: str, curve_path: str, out: dict, currency: str | None = None) -> dict:
     """Write the figures of :data:`DECISION_FIGURES` to ``out[name]``.
 
     ``currency`` is printed with the costs (``costs.currency``; None or ``unit``: cost units).
@@ -70,11 +70,13 @@ def run_figures(*, predictions_path: str, metrics_path: str, subgroups_path: str
     """
     _check_out(out, DECISION_FIGURES)
     predictions = read_parquet(predictions_path, columns=["y", "p"])
-    metrics, choice = read_json(metrics_path), read_json(choice_path)
+    evaluation, at_cutoff = read_json(probability_metrics_path), read_json(cutoff_metrics_path)
+    choice = read_json(choice_path)
     y, p = predictions["y"].to_numpy(), predictions["p"].to_numpy()
-    cutoff, confusion, auc = metrics["cutoff"], metrics["confusion"], metrics["auc_ci"]
+    cutoff, confusion, interval = at_cutoff["cutoff"], at_cutoff["confusion"], evaluation["auc_test_ci"]
     svgs = {
-        "roc": plots.roc_svg(y, p, auc=auc["auc"], auc_low=auc["lower"], auc_high=auc["upper"], cutoff=cutoff,
+        "roc": plots.roc_svg(y, p, auc=evaluation["overall"]["auc"], auc_low=interval["lower"],
+                             auc_high=interval["upper"], cutoff=cutoff,
                              operating_point=(1 - confusion["specificity"], confusion["sensitivity"])),
         "cost_curve": plots.cost_curve_svg(
             read_parquet(curve_path, columns=["cutoff", "expected_cost_per_case"]),

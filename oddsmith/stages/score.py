@@ -14,7 +14,7 @@ import logging
 from pathlib import Path
 
 from oddsmith import drift
-from oddsmith.errors import ConfigError
+from oddsmith.errors import ArgumentError, ConfigError
 from oddsmith.io import canonical_json, write_bytes_atomic, write_parquet
 from oddsmith.resources import template_dir
 from oddsmith.score import (DEFAULT_TOP_K, EXTRA_COLUMN_POLICIES, REFERENCES, ScoringModel, check_batch,
@@ -22,7 +22,6 @@ from oddsmith.score import (DEFAULT_TOP_K, EXTRA_COLUMN_POLICIES, REFERENCES, Sc
                             read_batch, reason_reference, score_frame, score_summary)
 
 log = logging.getLogger("oddsmith.score")
-OUTPUTS = ("scores.parquet", "scores.csv", "summary.json", "drift.json", "drift.html", "drift.pdf")
 TEMPLATE = template_dir() / "drift.html.j2"
 CARD_STYLESHEET = "model_card.css"  # owned by the model card
 #: The drift page's template and the card stylesheet it reuses (in the score rule's code fingerprint).
@@ -84,9 +83,12 @@ def _model_features(sm: ScoringModel) -> list[str]:
 
 
 def write_outputs(outputs: dict, paths: dict) -> None:
-    """Write in-memory outputs to ``paths`` (name -> path), each atomically."""
-    for name in OUTPUTS:
-        value, path = outputs[name], paths[name]
+    """Write every in-memory output to ``paths[name]``, each atomically (``paths`` names each
+    output once: the score rule's declared outputs, or ``oddsmith score``'s folder)."""
+    if sorted(paths) != sorted(outputs):
+        raise ArgumentError(f"score outputs to write: {sorted(outputs)}; paths given for {sorted(paths)}")
+    for name, value in outputs.items():
+        path = paths[name]
         if name.endswith(".parquet"):
             write_parquet(path, value)
         elif name.endswith(".json"):

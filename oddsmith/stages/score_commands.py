@@ -11,10 +11,14 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from oddsmith import artifacts
 from oddsmith.errors import ArtifactError, ConfigError, ManifestError
 from oddsmith.io import canonical_json, read_json
 from oddsmith.score import (EXTRA_COLUMN_POLICIES, REFERENCES, ScoringModel, load_artifacts, reason_reference)
-from oddsmith.stages.score import OUTPUTS, card_stylesheets, score_batch, write_outputs
+from oddsmith.stages.score import card_stylesheets, score_batch, write_outputs
+
+#: What ``oddsmith score`` writes into its output folder: the score rule's files, same names.
+OUTPUTS = artifacts.outputs_of("score")
 
 MANIFEST_FORMAT_PREFIX = "oddsmith-manifest/"
 MANIFEST_MAJOR = 1
@@ -37,13 +41,14 @@ def load_results_folder(model_dir, *, check=True) -> tuple[ScoringModel, dict]:
     folder = Path(model_dir)
     if not folder.is_dir():
         raise ArtifactError(f"results folder not found: {folder}")
-    selected_path = folder / "comparison" / "selected.json"
+    selected_path = artifacts.in_folder(folder, artifacts.SELECTED)
     if not selected_path.is_file():
-        raise ArtifactError(f"{folder} holds no model: comparison/selected.json not found "
+        raise ArtifactError(f"{folder} holds no model: {artifacts.SELECTED} not found "
                             "(is this a finished results folder? build it with snakemake first)")
-    selected = read_json(selected_path).get("candidate")
-    if not (folder / "candidates" / str(selected) / "model.json").is_file():
-        raise ArtifactError(f"{folder} holds no model: candidates/{selected}/model.json not found")
+    selected = str(read_json(selected_path).get("candidate"))
+    model_path = artifacts.in_folder(folder, artifacts.MODEL, candidate=selected)
+    if not model_path.is_file():
+        raise ArtifactError(f"{folder} holds no model: {artifacts.path(artifacts.MODEL, candidate=selected)} not found")
     manifest = _read_manifest(folder)
     if check:
         _verify(folder)
@@ -52,18 +57,19 @@ def load_results_folder(model_dir, *, check=True) -> tuple[ScoringModel, dict]:
         raise ManifestError(f"{folder}/manifest.json records no configuration ('config' with 'data')")
     data = config["data"]
     sm = load_artifacts(
-        recipe_path=folder / "features" / "recipe.json", selected_path=selected_path,
-        model_paths={selected: folder / "candidates" / selected / "model.json"},
-        choice_path=folder / "threshold" / "choice.json", contract_path=folder / "validated" / "contract.yaml",
-        data_path=folder / "validated" / "data.parquet", assignment_path=folder / "split" / "assignment.parquet",
+        recipe_path=artifacts.in_folder(folder, "features/recipe.json"), selected_path=selected_path,
+        model_paths={selected: model_path}, choice_path=artifacts.in_folder(folder, "threshold/choice.json"),
+        contract_path=artifacts.in_folder(folder, "validated/contract.yaml"),
+        data_path=artifacts.in_folder(folder, "validated/data.parquet"),
+        assignment_path=artifacts.in_folder(folder, "split/assignment.parquet"),
         id_column=data["id_column"], target=data["target"], source=str(folder))
     return sm, config
 
 
 def _read_manifest(folder: Path) -> dict:
-    path = folder / "manifest.json"
+    path = artifacts.in_folder(folder, artifacts.MANIFEST)
     if not path.is_file():
-        raise ManifestError(f"{folder} has no manifest.json: it is not a finished build, or was copied "
+        raise ManifestError(f"{folder} has no {artifacts.MANIFEST}: it is not a finished build, or was copied "
                             "incompletely; scoring needs a verified folder")
     try:
         manifest = read_json(path)
