@@ -13,6 +13,7 @@ import pytest
 
 from oddsmith.config import check_config, read_config_file
 from oddsmith.errors import ManifestError
+from oddsmith.filehash import remember
 from oddsmith.io import canonical_json, sha256_bytes, sha256_file, write_json
 from oddsmith.manifest import (FORMAT, GIT_OVERRIDE_ENV, build_manifest, environment, git_state,
                                source_date_epoch, unsafe_path_reason)
@@ -49,13 +50,13 @@ def _small_project(project: Path) -> list[Path]:
     return [first, second]
 
 
-def _build(project: Path, stamps) -> dict:
+def _build(project: Path, stamps, **options) -> dict:
     old = Path.cwd()
     os.chdir(project)
     try:
         return build_manifest(run=RUN, run_dir=f"results/{RUN}", stamps=[Path(s).relative_to(project) for s in stamps],
                               raw_inputs={"data/raw.csv": "data", "config.yaml": "config"}, config={"run": RUN},
-                              build=BUILD)
+                              build=BUILD, **options)
     finally:
         os.chdir(old)
 
@@ -103,6 +104,22 @@ def test_a_file_changed_after_its_job_stops_the_manifest(tmp_path):
     (project / "results" / RUN / "validated" / "data.txt").write_bytes(b"typed rowz\n")
     with pytest.raises(ManifestError, match=r"validated/data.txt changed after its job finished"):
         _build(project, stamps)
+
+
+def test_remembered_hashes_are_used_but_never_hide_a_changed_file(tmp_path):
+    """With the workflow's remembered hashes the manifest equals one that read every file, and a
+    file changed after its job (new state) is read again and refused all the same."""
+    project = tmp_path / "p"
+    stamps = _small_project(project)
+    cache = project / ".snakemake" / "hashes.json"
+    data = project / "results" / RUN / "validated" / "data.txt"
+    remember({str(data): sha256_file(data)}, cache=cache)  # as the validate job remembers its output
+    assert _build(project, stamps, hash_cache=cache) == _build(project, stamps)
+    remembered = json.loads(cache.read_text())
+    assert str(project / "data" / "raw.csv") in remembered and str(data) in remembered
+    data.write_bytes(b"typed rowz\n")
+    with pytest.raises(ManifestError, match=r"validated/data.txt changed after its job finished"):
+        _build(project, stamps, hash_cache=cache)
 
 
 def test_partial_writes_are_removed_and_symlinks_refused(tmp_path):
