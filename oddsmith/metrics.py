@@ -317,6 +317,26 @@ def hosmer_lemeshow(y, p, *, groups: int = 10) -> dict:
             "sample_check": hosmer_lemeshow_sample_check(expected, n_g)}
 
 
+def _wilson_bounds(events: int, n: int, *, level: float) -> tuple[float, float]:
+    """The Wilson score bounds (Wilson 1927), clipped to [0, 1], computed with the operations of
+    statsmodels' ``proportion_confint(method="wilson")`` in the same order, so the bounds are
+    the same to the last bit (tests/test_metrics.py compares them). Written out because the
+    decision stages would otherwise import statsmodels and scipy.stats for it, which costs
+    more than their whole computation; the normal quantile comes from scipy.special, the
+    function ``scipy.stats.norm.isf`` evaluates."""
+    from scipy.special import ndtri
+
+    crit = -ndtri((1.0 - level) / 2.0)
+    count, nobs = np.int64(events), np.int64(n)
+    q = count / nobs
+    crit2 = crit**2
+    denom = 1 + crit2 / nobs
+    center = (q + crit2 / (2 * nobs)) / denom
+    dist = crit * np.sqrt(q * (1.0 - q) / nobs + crit2 / (4.0 * nobs**2))
+    dist /= denom
+    return float(np.clip(center - dist, 0, 1)), float(np.clip(center + dist, 0, 1))
+
+
 def _rate_interval(events: int, n: int, *, level: float = 0.95) -> tuple[float, float]:
     """Wilson score interval of ``events / n`` (95% unless ``level`` says otherwise), exact
     at the ends of [0, 1].
@@ -325,9 +345,7 @@ def _rate_interval(events: int, n: int, *, level: float = 0.95) -> tuple[float, 
     of 8.7e-19 with no events, an upper bound 1e-16 below 1 with only events); the bound is
     0 (1) exactly there, and the interval always contains the observed rate.
     """
-    from statsmodels.stats.proportion import proportion_confint
-
-    low, high = (float(v) for v in proportion_confint(events, n, alpha=1.0 - level, method="wilson"))
+    low, high = _wilson_bounds(events, n, level=level)
     rate = events / n
     low = 0.0 if events == 0 else min(max(low, 0.0), rate)
     high = 1.0 if events == n else max(min(high, 1.0), rate)
