@@ -636,6 +636,17 @@ def bootstrap_rows(y, *, replicate: int, seed: int) -> np.ndarray:
                            non_events[rng.integers(0, non_events.size, non_events.size)]])
 
 
+def bootstrap_draws(y, *, replicates: int, seed: int):
+    """Yield the row indices of replicates ``0 … replicates - 1`` in turn: those of
+    :func:`bootstrap_rows` (same generator calls), with the outcome split made once."""
+    y = np.asarray(y)
+    events, non_events = np.flatnonzero(y == 1), np.flatnonzero(y != 1)
+    for b in range(replicates):
+        rng = np.random.default_rng([int(seed), b])
+        yield np.concatenate([events[rng.integers(0, events.size, events.size)],
+                              non_events[rng.integers(0, non_events.size, non_events.size)]])
+
+
 def bootstrap_counts(y, *, replicates: int, seed: int, column=None):
     """Yield ``(first, counts)``: how often each row is drawn, for blocks of replicates.
 

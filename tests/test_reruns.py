@@ -127,10 +127,12 @@ def test_a_false_negative_cost_reruns_exactly_the_cost_jobs(built, every_job, tm
     assert planned(project, *targets(project), env=env) == COST_JOBS & every_job
 
 
-def _later(path: Path, seconds: int = 3600) -> None:
-    """Move a file's modification time forward without touching its bytes (as `touch` does)."""
-    info = path.stat()
-    os.utime(path, ns=(info.st_atime_ns, info.st_mtime_ns + seconds * 10**9))
+def _touch(path: Path) -> None:
+    """Set a file's modification time to now without changing its bytes (as `touch` does):
+    newer than every output of the copied build, whose files keep their times."""
+    before = path.stat().st_mtime_ns
+    os.utime(path)
+    assert path.stat().st_mtime_ns > before
 
 
 @pytest.mark.e2e
@@ -140,7 +142,7 @@ def test_touched_raw_inputs_rerun_nothing(built, tmp_path):
     project, env = _copy(built, tmp_path / "touched")
     for path in ("data_demo/lease_applications.csv", "schemas/contracts/lease_applications.yaml",
                  "data_demo/lease_applications_2026q1.csv", DEMO_CONFIG):
-        _later(project / path)
+        _touch(project / path)
     assert planned(project, *targets(project), env=env) == set()
 
 
