@@ -118,8 +118,8 @@ def typed_as_schema(value, schema: dict):
     types = [types] if isinstance(types, str) else types
     if isinstance(value, bool):
         return value
-    if isinstance(value, int) and "number" in types and "integer" not in types:
-        return float(value)
+    if isinstance(value, int) and "number" in types and "integer" not in types and abs(value) <= 2**53:
+        return float(value)  # exactly: every whole number up to 2**53 is a float
     if isinstance(value, float) and "integer" in types and value.is_integer():
         return int(value)
     return value
