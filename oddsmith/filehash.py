@@ -1,10 +1,15 @@
 """SHA-256 of files, remembered per file state so that a large file is read once per change.
 
 A hash is remembered under the file's path together with its state: size, modification
-time (ns), status-change time (ns), inode and device. The same state means the same bytes,
-short of writing the file and then forging both times (``touch -d`` sets the modification
-time, never the status-change time), so a remembered hash is used only while every part of
-the state matches; any write, rename over it or ``touch`` makes the file be read again once.
+time (ns), inode and device. A remembered hash is used only while every part of the state
+matches: any write (which moves the modification time), a new file renamed over the old one
+(a new inode), or a ``touch`` makes the file be read again, once. What it cannot see is a
+change that keeps the size and the inode and puts the modification time back to the
+nanosecond (``touch -d`` after an in-place edit): that takes intent, and ``oddsmith verify``
+reads every byte of a results folder whatever is remembered.
+
+The status-change time is left out on purpose: a hard link (publication links every
+artifact into ``results/``) changes it without changing a byte.
 
 The remembered hashes live in one JSON file of the project (:data:`CACHE_PATH`). Jobs that
 run at once may each rewrite it; a lost entry only costs one more read of that file, never
@@ -24,9 +29,9 @@ CACHE_PATH = Path(".snakemake") / "oddsmith-sha256.json"
 
 
 def file_state(path: str | Path) -> list[int]:
-    """``[size, mtime_ns, ctime_ns, inode, device]`` of ``path`` (links followed)."""
+    """``[size, mtime_ns, inode, device]`` of ``path`` (links followed)."""
     info = os.stat(path)
-    return [info.st_size, info.st_mtime_ns, info.st_ctime_ns, info.st_ino, info.st_dev]
+    return [info.st_size, info.st_mtime_ns, info.st_ino, info.st_dev]
 
 
 def sha256_remembered(paths, *, cache: str | Path | None) -> dict[str, str]:
@@ -61,19 +66,6 @@ def sha256_remembered(paths, *, cache: str | Path | None) -> dict[str, str]:
     if new:
         _store(cache, known | new)
     return found
-
-
-def remember(digests: dict[str, str], *, cache: str | Path | None) -> None:
-    """Remember hashes the caller has just computed (a job's own finished outputs) under the
-    files' current state; nothing with ``cache=None``.
-
-    Call it right after hashing: a file written between the hashing and this call would be
-    remembered with the wrong hash.
-    """
-    if cache is None or not digests:
-        return
-    new = {os.path.abspath(p): {"state": file_state(p), "sha256": d} for p, d in digests.items() if os.path.isfile(p)}
-    _store(cache, _load(cache) | new)
 
 
 def _load(cache: str | Path) -> dict:
