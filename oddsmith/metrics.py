@@ -855,13 +855,15 @@ def bootstrap_interval(values, *, estimate, level: float, method: str) -> dict:
     percentile, or normal with the bootstrap standard error (see :func:`bootstrap_plan`)."""
     if method == PERCENTILE_METHOD or estimate is None:
         return percentile_interval(values, level=level)
-    from scipy import stats
+    # the normal quantile from scipy.special: the function scipy.stats.norm.ppf evaluates (the
+    # same bits), without importing scipy.stats, which costs the decision stage about 1 s
+    from scipy.special import ndtri
 
     values = np.asarray(values, dtype=float)
     ok = np.isfinite(values)
     out = {"lower": None, "upper": None, "defined": int(ok.sum()), "undefined": int(values.size - ok.sum())}
     if out["defined"] >= 2:
-        half = float(stats.norm.ppf(0.5 + level / 2.0)) * float(values[ok].std(ddof=1))
+        half = float(ndtri(0.5 + level / 2.0)) * float(values[ok].std(ddof=1))
         out["lower"], out["upper"] = estimate - half, estimate + half
     return out
 

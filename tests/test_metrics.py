@@ -464,3 +464,15 @@ def test_wilson_bounds_equal_statsmodels_to_the_last_bit():
         rate = events / n
         expected = (0.0 if events == 0 else min(max(low, 0.0), rate), 1.0 if events == n else max(min(high, 1.0), rate))
         assert _rate_interval(events, n, level=level) == expected, (events, n, level)
+
+
+def test_normal_bootstrap_interval_uses_the_normal_quantile_of_scipy_stats():
+    """The quantile comes from scipy.special.ndtri (no scipy.stats import in the decision
+    stage); it must be the very value of scipy.stats.norm.ppf, so the bounds are the same bits."""
+    from scipy import stats
+
+    values = np.random.default_rng(5).normal(0.8, 0.02, 400)
+    for level in (0.95, 0.9, 0.99, 0.8):
+        out = metrics.bootstrap_interval(values, estimate=0.8, level=level, method=metrics.NORMAL_METHOD)
+        half = float(stats.norm.ppf(0.5 + level / 2.0)) * float(values.std(ddof=1))
+        assert (out["lower"], out["upper"]) == (0.8 - half, 0.8 + half)
