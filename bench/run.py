@@ -21,6 +21,7 @@ Usage::
 
     .venv/bin/python bench/run.py                 # 100k then 1M
     .venv/bin/python bench/run.py --rows 100000   # one size
+    .venv/bin/python bench/run.py --reruns --rows 100000 1000000   # rebuild costs only (results.md, Reruns)
 """
 
 from __future__ import annotations
@@ -163,6 +164,52 @@ def change_cost(work: Path) -> str:
     config["costs"]["false_negative"] *= 1.1
     path.write_text(yaml.safe_dump(config, sort_keys=False))
     return original
+
+
+#: The jobs a change of costs alone may rerun (their benchmark files give the per-job times).
+COST_JOBS = ("threshold", "apply_cutoff", "figures", "score", "manifest", "card", "publish")
+
+
+def measure_reruns(rows: int, log) -> dict:
+    """What building again costs after a touch of the data file (same bytes) and after two
+    changes of ``costs.false_negative``, against a full build; kept in ``reruns.json``."""
+    work = WORK / f"n{rows}"
+    run = f"bench_{rows}"
+    record = {"rows": rows, "run": run} | prepare(work, rows)
+    record["machine_load"] = wait_for_quiet_machine(log) if rows >= 1_000_000 else {
+        "load_at_start": load(), "waited_s": 0}
+    log(f"[{rows}] full build (load {load():.2f})")
+    full = snakemake(work)
+    record["full"] = {"seconds": full["seconds"], "cpu_seconds": full["cpu_seconds"], "load_after": load()}
+    record["noop"] = sorted(snakemake(work)["seconds"] for _ in range(3))
+    os.utime(work / "data" / "portfolio.csv")  # touch: a newer modification time, the same bytes
+    touched = [snakemake(work) for _ in range(2)]  # the first hashes the file again, the second need not
+    record["touched"] = [{"seconds": t["seconds"], "jobs": t["jobs"]} for t in touched]
+    record["cost_only"] = []
+    for _ in range(2):
+        change_cost(work)
+        cost = snakemake(work)
+        times = {j["job"]: j["seconds"] for j in job_records(work, run) if j["job"] in COST_JOBS}
+        record["cost_only"].append({"seconds": cost["seconds"], "cpu_seconds": cost["cpu_seconds"],
+                                    "jobs": cost["jobs"], "job_seconds": times, "load_after": load()})
+        log(f"[{rows}] cost-only {cost['seconds']:.1f} s: {', '.join(cost['jobs'])}")
+    (work / "reruns.json").write_text(json.dumps(record, indent=1))
+    return record
+
+
+def reruns_report(records: list[dict]) -> str:
+    """The results.md section of :func:`measure_reruns`."""
+    lines = ["| rows | full build s | no-op s | touched data s (jobs) | cost-only s (share of full) | "
+             "cost-only jobs, s each | load at start / after |", "|---:|---:|---:|---:|---:|---|---:|"]
+    for r in records:
+        cost = min(r["cost_only"], key=lambda c: c["seconds"])
+        jobs = ", ".join(f"{k} {v:.1f}" for k, v in sorted(cost["job_seconds"].items(), key=lambda kv: -kv[1]))
+        lines.append(f"| {r['rows']:,} | {_fmt(r['full']['seconds'])} | {_fmt(r['noop'][1], 2)} | "
+                     f"{' / '.join(_fmt(t['seconds'], 2) for t in r['touched'])} "
+                     f"({sum(len(t['jobs']) for t in r['touched'])}) | {_fmt(cost['seconds'])} "
+                     f"({100 * cost['seconds'] / r['full']['seconds']:.1f}%) | {jobs} | "
+                     f"{r['machine_load']['load_at_start']:.2f} / {cost['load_after']:.2f} |")
+    return "\n".join(lines) + "\n"
 
 
 def measure(rows: int, log) -> dict:
@@ -325,10 +372,16 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--rows", type=int, nargs="+", default=[100_000, 1_000_000])
     parser.add_argument("--report-only", action="store_true")
+    parser.add_argument("--reruns", action="store_true",
+                        help="measure only full build, touched-data and cost-only rebuilds; print the table")
     args = parser.parse_args()
 
     def log(message):
         print(time.strftime("%H:%M:%S"), message, flush=True)
+
+    if args.reruns:
+        print(reruns_report([measure_reruns(rows, log) for rows in args.rows]), end="")
+        return
 
     records = []
     for rows in args.rows:

@@ -60,7 +60,10 @@ def check_config(raw: dict, *, project_dir: str | Path = ".") -> dict:
     section holds the four costs under their configuration names whichever form the file
     used (:func:`oddsmith.settings.normalised_costs`), sensitive attributes are plain names
     (with ``bands``/``blank_groups`` beside them), and the intercept-only baseline is a
-    candidate with the schema's defaults.
+    candidate with the schema's defaults. The result is canonical: every number has the
+    type the schema gives it and every mapping has sorted keys, so files that differ only
+    in key order or in spelling a number (``1200`` / ``1200.0``) give equal results with
+    equal ``repr`` (the rule params Snakemake compares).
 
     Parameters
     ----------
@@ -75,7 +78,8 @@ def check_config(raw: dict, *, project_dir: str | Path = ".") -> dict:
         Listing every schema violation, or every cross-key problem.
     """
     config = copy.deepcopy(raw)
-    errors = sorted(_Validator(load_schema()).iter_errors(config), key=lambda e: list(map(str, e.absolute_path)))
+    schema = load_schema()
+    errors = sorted(_Validator(schema).iter_errors(config), key=lambda e: list(map(str, e.absolute_path)))
     if errors:
         raise ConfigError(
             f"the configuration has {len(errors)} problem(s)", [_describe_schema_error(e) for e in errors]
@@ -86,7 +90,58 @@ def check_config(raw: dict, *, project_dir: str | Path = ".") -> dict:
         raise ConfigError(f"the configuration has {len(problems)} problem(s)", problems)
     _add_baseline(config)
     config["costs"] = normalised_costs(config["costs"])
-    return config
+    return keys_sorted(typed_as_schema(config, schema))
+
+
+def typed_as_schema(value, schema: dict):
+    """``value`` with every number in the type its schema gives it: a whole number where the
+    schema says ``integer`` (``5.0`` → ``5``), a float where it says ``number`` (``1200`` →
+    ``1200.0``). Two spellings of one setting then give one configuration, the same
+    artifacts and the same rule params (Snakemake compares each param's ``repr``, in which
+    ``1200`` and ``1200.0`` differ). Booleans and values the schema does not type are kept.
+
+    Examples
+    --------
+    >>> schema = {"properties": {"cost": {"type": "number"}, "folds": {"type": ["integer", "null"]},
+    ...                          "grid": {"type": "array", "items": {"type": "number"}}}}
+    >>> typed_as_schema({"cost": 1200, "folds": 5.0, "grid": [1, 0.5], "flag": True}, schema)
+    {'cost': 1200.0, 'folds': 5, 'grid': [1.0, 0.5], 'flag': True}
+    """
+    if isinstance(value, dict):
+        properties, extra = schema.get("properties", {}), schema.get("additionalProperties")
+        return {k: typed_as_schema(v, properties.get(k, extra if isinstance(extra, dict) else {}))
+                for k, v in value.items()}
+    if isinstance(value, list):
+        items = schema.get("items")
+        return [typed_as_schema(v, items if isinstance(items, dict) else {}) for v in value]
+    types = schema.get("type", [])
+    types = [types] if isinstance(types, str) else types
+    if isinstance(value, bool):
+        return value
+    if isinstance(value, int) and "number" in types and "integer" not in types and abs(value) <= 2**53:
+        return float(value)  # exactly: every whole number up to 2**53 is a float
+    if isinstance(value, float) and "integer" in types and value.is_integer():
+        return int(value)
+    return value
+
+
+def keys_sorted(value):
+    """``value`` with the keys of every mapping in sorted order (lists keep theirs).
+
+    The order in which a file lists its keys carries no meaning, but Snakemake compares a
+    dict param by its ``repr``, which follows the insertion order: sorted keys make a
+    reordered file give the same params.
+
+    Examples
+    --------
+    >>> keys_sorted({"b": [{"d": 1, "c": 2}], "a": 0})
+    {'a': 0, 'b': [{'c': 2, 'd': 1}]}
+    """
+    if isinstance(value, dict):
+        return {k: keys_sorted(value[k]) for k in sorted(value, key=str)}
+    if isinstance(value, list):
+        return [keys_sorted(v) for v in value]
+    return value
 
 
 def _sensitive_bands(fairness: dict) -> list[str]:
@@ -111,7 +166,7 @@ def _sensitive_bands(fairness: dict) -> list[str]:
                     f"fairness.sensitive.{i}.bands ('{name}'): expected strictly increasing finite numbers, "
                     f"found {quoted(edges)}"
                 )
-            bands[name] = list(edges)
+            bands[name] = [float(e) for e in edges]  # numbers, typed as the schema types them
     fairness["sensitive"] = names
     if bands:
         fairness["bands"] = bands

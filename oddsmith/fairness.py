@@ -454,17 +454,43 @@ def group_comparison_replicates(y, flagged, labels, assessed: list[str], referen
     dict
         group → comparison → array of ``replicates`` values.
     """
-    y, flagged, labels = np.asarray(y), np.asarray(flagged, dtype=bool), np.asarray(labels)
-    columns = []
-    for group in assessed:
-        inside = labels == group
-        columns += [inside, inside & flagged, inside & (y == 1), inside & flagged & (y == 1)]
-    indicators = np.column_stack(columns).astype(float)
-    totals = np.empty((replicates, len(assessed), 4))
-    for first, counts in metrics.bootstrap_counts(y, replicates=replicates, seed=seed):
-        totals[first:first + counts.shape[0]] = (counts @ indicators).reshape(counts.shape[0], len(assessed), 4)
-    ref = _group_counts(totals[:, assessed.index(reference)])
-    return {group: _comparisons(_group_counts(totals[:, i]), ref) for i, group in enumerate(assessed)}
+    return comparison_replicates(y, flagged, {"": (labels, assessed, reference)}, replicates=replicates,
+                                 seed=seed)[""]
+
+
+def comparison_replicates(y, flagged, attributes: dict, *, replicates: int, seed: int) -> dict:
+    """:func:`group_comparison_replicates` of several attributes from one pass over the replicates.
+
+    ``attributes`` maps each attribute to ``(labels, assessed, reference)``. Drawing the
+    replicates is most of the work (and, after a change of costs, most of the decision
+    stage's), so each replicate is drawn once and counted for every attribute. Counts are
+    whole numbers, so every total is exact whichever way it is summed.
+
+    Returns
+    -------
+    dict
+        attribute → group → comparison → array of ``replicates`` values.
+    """
+    y, flagged = np.asarray(y), np.asarray(flagged, dtype=bool)
+    cells, totals = {}, {}
+    for name, (labels, assessed, _) in attributes.items():
+        # each row's cell: its group (assessed ones; the rest share one last group), flagged, event
+        found, inverse = np.unique(np.asarray(labels), return_inverse=True)
+        position = {group: i for i, group in enumerate(assessed)}
+        group = np.array([position.get(g, len(assessed)) for g in found], dtype=np.int64)[inverse.ravel()]
+        cells[name] = group * 4 + flagged.astype(np.int64) * 2 + (y == 1).astype(np.int64)
+        totals[name] = np.empty((replicates, len(assessed) + 1, 4))
+    for b, rows in enumerate(metrics.bootstrap_draws(y, replicates=replicates, seed=seed)):
+        for name, cell in cells.items():
+            counted = np.bincount(cell[rows], minlength=totals[name].shape[1] * 4).reshape(-1, 4)
+            # (rows, flagged, events, flagged events) from the counts of (not flagged, flagged) × (non-event, event)
+            totals[name][b] = np.column_stack([counted.sum(axis=1), counted[:, 2] + counted[:, 3],
+                                               counted[:, 1] + counted[:, 3], counted[:, 3]])
+    out = {}
+    for name, (_, assessed, reference) in attributes.items():
+        ref = _group_counts(totals[name][:, assessed.index(reference)])
+        out[name] = {group: _comparisons(_group_counts(totals[name][:, i]), ref) for i, group in enumerate(assessed)}
+    return out
 
 
 def add_intervals(rows: list[dict], y, p, groups, *, cutoff, bootstrap: dict | None, level: float = 0.95) -> list[dict]:
@@ -475,15 +501,32 @@ def add_intervals(rows: list[dict], y, p, groups, *, cutoff, bootstrap: dict | N
     one) a bootstrap interval when ``bootstrap`` (``replicates``, ``seed``, ``method`` of
     the evaluation's bootstrap) is given. The rows are not modified; new ones are returned.
     """
+    return add_intervals_of_attributes({"": (rows, groups)}, y, p, cutoff=cutoff, bootstrap=bootstrap, level=level)[""]
+
+
+def add_intervals_of_attributes(attributes: dict, y, p, *, cutoff, bootstrap: dict | None,
+                                level: float = 0.95) -> dict:
+    """:func:`add_intervals` of several attributes (name → ``(rows, groups)``), drawing the
+    bootstrap replicates once for all of them (:func:`comparison_replicates`); returns name → rows."""
     y, p = metrics.outcomes_and_probabilities(y, p)
-    labels = np.asarray(pd.Series(groups).astype(str))
     flagged = np.zeros(p.shape, dtype=bool) if cutoff is None else p >= cutoff
-    assessed = [r["group"] for r in rows if not r["too_small"]]
-    reference = next((r["reference_group"] for r in rows if r.get("reference_group") is not None), None)
-    replicated = None
-    if bootstrap and reference is not None:
-        replicated = group_comparison_replicates(y, flagged, labels, assessed, reference,
-                                                 replicates=bootstrap["replicates"], seed=bootstrap["seed"])
+    plans = {}
+    for name, (rows, groups) in attributes.items():
+        labels = np.asarray(pd.Series(groups).astype(str))
+        assessed = [r["group"] for r in rows if not r["too_small"]]
+        reference = next((r["reference_group"] for r in rows if r.get("reference_group") is not None), None)
+        plans[name] = (labels, assessed, reference)
+    compared = {name: plan for name, plan in plans.items() if plan[2] is not None}
+    replicated = {}
+    if bootstrap and compared:
+        replicated = comparison_replicates(y, flagged, compared, replicates=bootstrap["replicates"],
+                                           seed=bootstrap["seed"])
+    return {name: _rows_with_intervals(rows, y, flagged, plans[name][0], replicated.get(name),
+                                       bootstrap=bootstrap, level=level)
+            for name, (rows, _) in attributes.items()}
+
+
+def _rows_with_intervals(rows, y, flagged, labels, replicated, *, bootstrap, level) -> list[dict]:
     out = []
     for row in rows:
         row = dict(row)

@@ -28,7 +28,8 @@ from pathlib import Path, PurePosixPath
 
 from oddsmith import artifacts
 from oddsmith.errors import ManifestError
-from oddsmith.io import canonical_json, sha256_file
+from oddsmith.filehash import sha256_remembered
+from oddsmith.io import canonical_json
 
 log = logging.getLogger("oddsmith.manifest")
 
@@ -246,27 +247,33 @@ def _file_entries(run: str, run_dir: Path, stamps: list[str | Path]) -> tuple[di
     return entries, recorded
 
 
-def raw_input_entries(roles: dict, *, project_dir: str | Path = ".") -> dict:
+def raw_input_entries(roles: dict, *, project_dir: str | Path = ".", hash_cache: str | Path | None = None) -> dict:
     """``{project-relative path: {"sha256", "size", "role"}}`` of the raw inputs.
 
     ``roles`` maps each path the build read from outside the run folder to what it is
-    (``data``, ``contract``, ``config``, ``scoring batch``).
+    (``data``, ``contract``, ``config``, ``scoring batch``). With ``hash_cache``, a file whose
+    state is unchanged since it was last hashed is not read again (:mod:`oddsmith.filehash`).
     """
     project_dir = Path(project_dir).resolve()
+    full = {path: (project_dir / path).resolve() for path in roles}
+    digests = sha256_remembered(full.values(), cache=hash_cache)
     entries = {}
     for path, role in roles.items():
-        full = (project_dir / path).resolve()
-        rel = Path(os.path.relpath(full, project_dir)).as_posix()
-        entries[rel] = {"sha256": sha256_file(full), "size": full.stat().st_size, "role": role}
+        rel = Path(os.path.relpath(full[path], project_dir)).as_posix()
+        entries[rel] = {"sha256": digests[str(full[path])], "size": full[path].stat().st_size, "role": role}
     return dict(sorted(entries.items()))
 
 
 def build_manifest(*, run: str, run_dir: str | Path, stamps, raw_inputs, config: dict, build: dict,
-                   card_rule: dict | None = None, project_dir: str | Path = ".") -> dict:
+                   card_rule: dict | None = None, project_dir: str | Path = ".",
+                   hash_cache: str | Path | None = None) -> dict:
     """Assemble the manifest of ``run_dir`` (``work/<run>``, as the stamps name it) from the job stamps.
 
     ``raw_inputs`` maps each raw input path (data, contract, config files, a scoring batch) to
-    its role.
+    its role. With ``hash_cache`` (the workflow passes :data:`oddsmith.filehash.CACHE_PATH`), a
+    file whose size, times and inode are those it had when last hashed (by the job that wrote
+    it, or by an earlier manifest) is not read again: a file changed after its job finished
+    has a new state, is read, and is reported below.
 
     Every regular file in the folder (outside ``card/``) must be claimed by a stamp of this
     build; a file no stamp claims (a leftover of an earlier configuration) is an error, so a
@@ -286,9 +293,10 @@ def build_manifest(*, run: str, run_dir: str | Path, stamps, raw_inputs, config:
     if problems:
         raise ManifestError(f"cannot write the manifest of {run_dir}", problems)
     files = {}
+    digests = sha256_remembered([run_dir / rel for rel in on_disk], cache=hash_cache)
     for rel in on_disk:
         full = run_dir / rel
-        files[rel] = {"sha256": sha256_file(full), "size": full.stat().st_size} | claimed[rel]
+        files[rel] = {"sha256": digests[str(full)], "size": full.stat().st_size} | claimed[rel]
         if recorded[rel] is not None and recorded[rel] != files[rel]["sha256"]:
             problems.append(f"{rel} changed after its job finished: stamp {claimed[rel]['stamp']} "
                             f"recorded {recorded[rel]}, found {files[rel]['sha256']}")
@@ -300,7 +308,7 @@ def build_manifest(*, run: str, run_dir: str | Path, stamps, raw_inputs, config:
         "config": config,
         "config_sha256": config_sha256(config),
         "files": files,
-        "raw_inputs": raw_input_entries(raw_inputs, project_dir=project_dir),
+        "raw_inputs": raw_input_entries(raw_inputs, project_dir=project_dir, hash_cache=hash_cache),
         "environment": environment(),
         "git": build["git"],
         "source_date_epoch": build["source_date_epoch"],

@@ -317,6 +317,26 @@ def hosmer_lemeshow(y, p, *, groups: int = 10) -> dict:
             "sample_check": hosmer_lemeshow_sample_check(expected, n_g)}
 
 
+def _wilson_bounds(events: int, n: int, *, level: float) -> tuple[float, float]:
+    """The Wilson score bounds (Wilson 1927), clipped to [0, 1], computed with the operations of
+    statsmodels' ``proportion_confint(method="wilson")`` in the same order, so the bounds are
+    the same to the last bit (tests/test_metrics.py compares them). Written out because the
+    decision stages would otherwise import statsmodels and scipy.stats for it, which costs
+    more than their whole computation; the normal quantile comes from scipy.special, the
+    function ``scipy.stats.norm.isf`` evaluates."""
+    from scipy.special import ndtri
+
+    crit = -ndtri((1.0 - level) / 2.0)
+    count, nobs = np.int64(events), np.int64(n)
+    q = count / nobs
+    crit2 = crit**2
+    denom = 1 + crit2 / nobs
+    center = (q + crit2 / (2 * nobs)) / denom
+    dist = crit * np.sqrt(q * (1.0 - q) / nobs + crit2 / (4.0 * nobs**2))
+    dist /= denom
+    return float(np.clip(center - dist, 0, 1)), float(np.clip(center + dist, 0, 1))
+
+
 def _rate_interval(events: int, n: int, *, level: float = 0.95) -> tuple[float, float]:
     """Wilson score interval of ``events / n`` (95% unless ``level`` says otherwise), exact
     at the ends of [0, 1].
@@ -325,9 +345,7 @@ def _rate_interval(events: int, n: int, *, level: float = 0.95) -> tuple[float, 
     of 8.7e-19 with no events, an upper bound 1e-16 below 1 with only events); the bound is
     0 (1) exactly there, and the interval always contains the observed rate.
     """
-    from statsmodels.stats.proportion import proportion_confint
-
-    low, high = (float(v) for v in proportion_confint(events, n, alpha=1.0 - level, method="wilson"))
+    low, high = _wilson_bounds(events, n, level=level)
     rate = events / n
     low = 0.0 if events == 0 else min(max(low, 0.0), rate)
     high = 1.0 if events == n else max(min(high, 1.0), rate)
@@ -618,6 +636,17 @@ def bootstrap_rows(y, *, replicate: int, seed: int) -> np.ndarray:
                            non_events[rng.integers(0, non_events.size, non_events.size)]])
 
 
+def bootstrap_draws(y, *, replicates: int, seed: int):
+    """Yield the row indices of replicates ``0 … replicates - 1`` in turn: those of
+    :func:`bootstrap_rows` (same generator calls), with the outcome split made once."""
+    y = np.asarray(y)
+    events, non_events = np.flatnonzero(y == 1), np.flatnonzero(y != 1)
+    for b in range(replicates):
+        rng = np.random.default_rng([int(seed), b])
+        yield np.concatenate([events[rng.integers(0, events.size, events.size)],
+                              non_events[rng.integers(0, non_events.size, non_events.size)]])
+
+
 def bootstrap_counts(y, *, replicates: int, seed: int, column=None):
     """Yield ``(first, counts)``: how often each row is drawn, for blocks of replicates.
 
@@ -826,13 +855,15 @@ def bootstrap_interval(values, *, estimate, level: float, method: str) -> dict:
     percentile, or normal with the bootstrap standard error (see :func:`bootstrap_plan`)."""
     if method == PERCENTILE_METHOD or estimate is None:
         return percentile_interval(values, level=level)
-    from scipy import stats
+    # the normal quantile from scipy.special: the function scipy.stats.norm.ppf evaluates (the
+    # same bits), without importing scipy.stats, which costs the decision stage about 1 s
+    from scipy.special import ndtri
 
     values = np.asarray(values, dtype=float)
     ok = np.isfinite(values)
     out = {"lower": None, "upper": None, "defined": int(ok.sum()), "undefined": int(values.size - ok.sum())}
     if out["defined"] >= 2:
-        half = float(stats.norm.ppf(0.5 + level / 2.0)) * float(values[ok].std(ddof=1))
+        half = float(ndtri(0.5 + level / 2.0)) * float(values[ok].std(ddof=1))
         out["lower"], out["upper"] = estimate - half, estimate + half
     return out
 

@@ -15,10 +15,14 @@ from __future__ import annotations
 import io
 import math
 
+from typing import TYPE_CHECKING
+
 import numpy as np
-from matplotlib import rc_context
-from matplotlib.figure import Figure
-from matplotlib.ticker import LogLocator, NullFormatter
+
+# matplotlib is imported where a figure is drawn: the card imports this module for figure
+# names and labels only, and importing matplotlib would cost it more than half a second.
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
 
 #: The card's own palette: slate ink, deep teal, ochre, plum, moss, and two greys.
 PALETTE = {
@@ -77,7 +81,16 @@ def short_label(text, *, limit: int = LABEL_LIMIT) -> str:
 
 
 def _figure(width: float, height: float) -> Figure:
+    from matplotlib.figure import Figure
+
     return Figure(figsize=(width, height), dpi=100, layout="constrained")
+
+
+def _style():
+    """The figures' matplotlib settings, for a ``with`` block."""
+    from matplotlib import rc_context
+
+    return rc_context(STYLE)
 
 
 def _svg(fig: Figure) -> bytes:
@@ -110,7 +123,7 @@ def roc_svg(y, p, *, auc: float, auc_low: float, auc_high: float, cutoff=None, o
     ``operating_point`` is (1 − specificity, sensitivity) at the adopted cut-off, as stored
     by the apply_cutoff stage; it is drawn only when ``cutoff`` is not None.
     """
-    with rc_context(STYLE):
+    with _style():
         fig = _figure(HALF, 3.5)
         ax = fig.add_subplot()
         fpr, tpr = roc_points(y, p)
@@ -171,7 +184,7 @@ def reliability_svg(bins: list[dict]) -> bytes:
     A panel of bin counts is drawn below only when the bins differ in size; equal-count bins
     would give a row of identical bars, and their count is stated in the card's caption.
     """
-    with rc_context(STYLE):
+    with _style():
         fig = _figure(HALF, 2.9)
         with_counts = not equal_count(bins)
         if with_counts:
@@ -221,7 +234,7 @@ def cost_curve_svg(curve, *, adopted, bayes: float, interval: tuple[float, float
     ``currency`` as in :func:`cost_unit`.
     """
     unit = cost_unit(currency)
-    with rc_context(STYLE):
+    with _style():
         fig = _figure(HALF, 3.4)
         ax = fig.add_subplot()
         x = np.asarray(curve["cutoff"], dtype=float)
@@ -291,7 +304,7 @@ def coefficients_svg(model: dict, *, sds: dict | None = None) -> bytes:
     else:
         values = [(t, c, None, None) for t, c in sorted((model.get("coefficients") or {}).items())]
         reference, xlabel, log = 0.0, "standardised coefficient: per SD of the design column (penalised, no interval)", False
-    with rc_context(STYLE):
+    with _style():
         fig = _figure(WIDE, max(1.4, 0.7 + 0.165 * len(values)))
         ax = fig.add_subplot()
         ax.set_title(f"Terms of the selected model ({model.get('candidate', '')}, {model.get('kind', '')})")
@@ -313,6 +326,8 @@ def coefficients_svg(model: dict, *, sds: dict | None = None) -> bytes:
         if log:
             ax.set_xscale("log")
             # Plain numbers: with mathtext off, the default log labels would print their TeX source.
+            from matplotlib.ticker import LogLocator, NullFormatter
+
             ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 1.5, 2.0, 3.0, 5.0, 7.0)))
             ax.xaxis.set_major_formatter(lambda value, _: f"{value:g}")
             ax.xaxis.set_minor_formatter(NullFormatter())
@@ -324,7 +339,7 @@ def score_distribution_svg(y, p, *, cutoff=None) -> bytes:
     """Distributions of predicted probability for events and non-events on the test part."""
     y, p = np.asarray(y), np.asarray(p, dtype=float)
     edges = np.linspace(0.0, 1.0, 41)
-    with rc_context(STYLE):
+    with _style():
         fig = _figure(HALF, 3.5)
         ax = fig.add_subplot()
         styles = ((0, "no event", PALETTE["teal"], "-", "////"), (1, "event", PALETTE["ochre"], (0, (3, 1.5)), None))
@@ -352,7 +367,7 @@ def subgroups_svg(attributes: dict) -> bytes:
     """
     names = list(attributes)
     heights = [max(1, len(attributes[n]["rows"])) for n in names] or [1]
-    with rc_context(STYLE):
+    with _style():
         fig = _figure(WIDE, 0.75 + 0.2 * sum(heights) + 0.3 * len(heights))
         if not names:
             ax = fig.add_subplot()

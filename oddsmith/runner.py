@@ -19,6 +19,7 @@ import sys
 from pathlib import Path
 
 from oddsmith.errors import ArgumentError, OddsmithError
+from oddsmith.filehash import CACHE_PATH, sha256_remembered
 from oddsmith.io import canonical_json, sha256_file, write_json
 
 LOG_FORMAT = "%(levelname)s %(name)s: %(message)s"
@@ -274,15 +275,22 @@ def failure_block(rule: str, exc: OddsmithError, *, log_path: str) -> str:
 
 
 def write_stamp(snakemake) -> None:
-    """Write the provenance stamp of a finished job to its output named ``stamp``."""
+    """Write the provenance stamp of a finished job to its output named ``stamp``.
+
+    Inputs are hashed through the project's remembered hashes (:mod:`oddsmith.filehash`): a
+    file that several jobs read (the design, the validated data) is read by the first one to
+    finish and not again while it is unchanged. The job's own outputs are always read (they
+    are not remembered here: Snakemake touches a finished job's outputs, a new state).
+    """
     stamp = snakemake.output.stamp
     params = {k: v for k, v in snakemake.params.items()}
-    outputs = [p for p in _files(snakemake.output) if p != stamp]
+    outputs = {p: sha256_file(p) for p in sorted(_files(snakemake.output)) if p != stamp and os.path.isfile(p)}
+    inputs = sha256_remembered(sorted(p for p in _files(snakemake.input) if os.path.isfile(p)), cache=CACHE_PATH)
     record = {
         "rule": snakemake.rule,
         "wildcards": {k: v for k, v in snakemake.wildcards.items()},
-        "inputs": {p: sha256_file(p) for p in sorted(_files(snakemake.input)) if os.path.isfile(p)},
-        "outputs": {p: sha256_file(p) for p in sorted(outputs) if os.path.isfile(p)},
+        "inputs": dict(sorted(inputs.items())),
+        "outputs": outputs,
         "params_sha256": params_hash(params),
         "code_sha256": params.get("code"),
     }

@@ -1,10 +1,10 @@
 rule manifest:
     input:
         stamps=lambda wildcards: stamps(wildcards.run),
-        data=CONFIG["data"]["path"],
-        contract=CONFIG["data"]["contract"],
+        data=ancient(CONFIG["data"]["path"]),
+        contract=ancient(CONFIG["data"]["contract"]),
         configs=config_files(),
-        batches=scoring_batches(),
+        batches=ancient(scoring_batches()),
     output:
         manifest=artifact("manifest.json"),
     log:

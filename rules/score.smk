@@ -5,13 +5,19 @@
 # stylesheet are in the code fingerprint (RESOURCE_FILES of oddsmith/stages/score.py).
 import os
 
-from oddsmith.io import sha256_file
-
 SCORING = CONFIG["scoring"]
 SCORING_OUTPUTS = []
-# Path and SHA-256 (None while a file does not exist) of the files read through params.
+# Path and SHA-256 (None while a file does not exist) of the files read through params,
+# hashed once per change of the file's state (rules/common.smk, raw inputs).
 SCORING_FILES = {
-    name: {"path": path, "sha256": sha256_file(path) if os.path.isfile(path) else None}
+    name: {
+        "path": path,
+        "sha256": (
+            sha256_remembered([path], cache=CACHE_PATH)[path]
+            if os.path.isfile(path)
+            else None
+        ),
+    }
     for name, path in (("batch", SCORING["data"]),)
     if path
 }

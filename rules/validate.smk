@@ -1,7 +1,7 @@
 rule validate:
     input:
-        data=CONFIG["data"]["path"],
-        contract=CONFIG["data"]["contract"],
+        data=ancient(CONFIG["data"]["path"]),
+        contract=ancient(CONFIG["data"]["contract"]),
     output:
         data=artifact("validated/data.parquet"),
         report=artifact("validated/report.json"),
@@ -33,6 +33,7 @@ rule validate:
             if CONFIG["inference"]["cluster_column"]
             else {}
         ),
+        raw=raw_content(),
         code=code(script="scripts/validate.py"),
     script:
         "../scripts/validate.py"

@@ -196,3 +196,27 @@ def test_exclusion_needs_reason_and_a_count(demo_config, root):
     demo_config["data"]["exclusions"] = [{"reason": "fraud", "rows": -1}, {"rows": 3}]
     msg = _problems(demo_config, project_dir=root)
     assert "data.exclusions.0.rows" in msg and "'reason' is a required property" in msg
+
+
+def test_key_order_and_number_spelling_give_one_configuration(demo_config, root):
+    """Rule params are compared by repr: the checked config must not keep the file's key
+    order or its int/float spelling (a number where the schema says number is a float, a
+    whole number where it says integer an int)."""
+    reordered = {key: demo_config[key] for key in reversed(list(demo_config))}
+    reordered["costs"] = {key: demo_config["costs"][key] for key in reversed(list(demo_config["costs"]))}
+    reordered["costs"]["false_positive"] = float(demo_config["costs"]["false_positive"])  # 1200.0
+    reordered["cross_validation"] = dict(demo_config["cross_validation"], folds=5.0)
+    reordered["candidates"] = [dict(c, grid=[int(g) if g == int(g) else g for g in c["grid"]]) if "grid" in c else c
+                               for c in demo_config["candidates"]]
+    plain, spelled = check_config(demo_config, project_dir=root), check_config(reordered, project_dir=root)
+    assert repr(plain) == repr(spelled)
+    assert plain["costs"]["false_positive"] == 1200.0 and isinstance(plain["costs"]["false_positive"], float)
+    assert spelled["cross_validation"]["folds"] == 5 and isinstance(spelled["cross_validation"]["folds"], int)
+    assert list(plain["costs"]) == sorted(plain["costs"])
+
+
+def test_ratio_form_gives_float_costs(demo_config, root):
+    demo_config["costs"] = {"ratio_fn_to_fp": 5, "adopt": "empirical"}
+    costs = check_config(demo_config, project_dir=root)["costs"]
+    assert [repr(costs[k]) for k in ("false_positive", "false_negative", "true_positive", "true_negative")] == \
+        ["1.0", "5.0", "0.0", "0.0"]

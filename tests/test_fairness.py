@@ -307,6 +307,24 @@ def test_group_comparison_replicates_equal_a_plain_loop():
             assert fast[g]["fpr_gap"][b] == pytest.approx(fpr - ref[2], abs=1e-12)
 
 
+def test_one_pass_over_the_replicates_gives_each_attributes_own_replicates():
+    """Two attributes counted from one drawing of each replicate equal each counted alone
+    (the slow reference above checks the one-attribute case), a group left out included."""
+    rng = np.random.default_rng(9)
+    n = 500
+    region, band = rng.choice(np.array(["n", "s", "e"]), size=n), rng.choice(np.array(["young", "old", "tiny"]), size=n)
+    p = rng.random(n)
+    y, flagged = (rng.random(n) < p).astype(int), p >= 0.55
+    both = fairness.comparison_replicates(y, flagged, {"region": (region, ["n", "s", "e"], "s"),
+                                                       "band": (band, ["young", "old"], "old")}, replicates=15, seed=3)
+    alone = {"region": fairness.group_comparison_replicates(y, flagged, region, ["n", "s", "e"], "s", replicates=15, seed=3),
+             "band": fairness.group_comparison_replicates(y, flagged, band, ["young", "old"], "old", replicates=15, seed=3)}
+    for name, groups in alone.items():
+        for group, comparisons in groups.items():
+            for key, values in comparisons.items():
+                np.testing.assert_array_equal(both[name][group][key], values)
+
+
 def test_add_intervals_wilson_rates_and_undefined_replicates_counted():
     from statsmodels.stats.proportion import proportion_confint
 

@@ -49,13 +49,13 @@ def _small_project(project: Path) -> list[Path]:
     return [first, second]
 
 
-def _build(project: Path, stamps) -> dict:
+def _build(project: Path, stamps, **options) -> dict:
     old = Path.cwd()
     os.chdir(project)
     try:
         return build_manifest(run=RUN, run_dir=f"results/{RUN}", stamps=[Path(s).relative_to(project) for s in stamps],
                               raw_inputs={"data/raw.csv": "data", "config.yaml": "config"}, config={"run": RUN},
-                              build=BUILD)
+                              build=BUILD, **options)
     finally:
         os.chdir(old)
 
@@ -103,6 +103,22 @@ def test_a_file_changed_after_its_job_stops_the_manifest(tmp_path):
     (project / "results" / RUN / "validated" / "data.txt").write_bytes(b"typed rowz\n")
     with pytest.raises(ManifestError, match=r"validated/data.txt changed after its job finished"):
         _build(project, stamps)
+
+
+def test_remembered_hashes_are_used_but_never_hide_a_changed_file(tmp_path):
+    """With the workflow's remembered hashes the manifest equals one that read every file, and a
+    file changed after its job (new state) is read again and refused all the same."""
+    project = tmp_path / "p"
+    stamps = _small_project(project)
+    cache = project / ".snakemake" / "hashes.json"
+    data = project / "results" / RUN / "validated" / "data.txt"
+    assert _build(project, stamps, hash_cache=cache) == _build(project, stamps)  # reads and remembers
+    assert _build(project, stamps, hash_cache=cache) == _build(project, stamps)  # remembered
+    remembered = json.loads(cache.read_text())
+    assert str(project / "data" / "raw.csv") in remembered and str(data) in remembered
+    data.write_bytes(b"typed rowz\n")
+    with pytest.raises(ManifestError, match=r"validated/data.txt changed after its job finished"):
+        _build(project, stamps, hash_cache=cache)
 
 
 def test_partial_writes_are_removed_and_symlinks_refused(tmp_path):

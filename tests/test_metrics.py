@@ -445,3 +445,34 @@ def test_calibration_intercept_wald_se_matches_statsmodels_offset_glm():
     out = metrics.calibration_intercept_interval(y, p)
     assert out["estimate"] == pytest.approx(fit.params[0], abs=1e-8)
     assert out["se"] == pytest.approx(fit.bse[0], rel=1e-6)
+
+
+def test_wilson_bounds_equal_statsmodels_to_the_last_bit():
+    """The written-out Wilson bounds against statsmodels' proportion_confint(method="wilson")
+    (statsmodels 0.15), compared exactly: the decision stages skip importing statsmodels."""
+    import itertools
+
+    from statsmodels.stats.proportion import proportion_confint
+
+    from oddsmith.metrics import _rate_interval
+
+    rng = np.random.default_rng(20261202)
+    cases = [(e, n) for n in (1, 2, 3, 10, 999, 250_000, 1_000_003) for e in sorted({0, 1, n // 3, n - 1, n})]
+    cases += [(int(rng.integers(0, n + 1)), int(n)) for n in rng.integers(1, 10**7, 200)]
+    for (events, n), level in itertools.product(cases, (0.95, 0.9, 0.99, 0.6827)):
+        low, high = (float(v) for v in proportion_confint(events, n, alpha=1.0 - level, method="wilson"))
+        rate = events / n
+        expected = (0.0 if events == 0 else min(max(low, 0.0), rate), 1.0 if events == n else max(min(high, 1.0), rate))
+        assert _rate_interval(events, n, level=level) == expected, (events, n, level)
+
+
+def test_normal_bootstrap_interval_uses_the_normal_quantile_of_scipy_stats():
+    """The quantile comes from scipy.special.ndtri (no scipy.stats import in the decision
+    stage); it must be the very value of scipy.stats.norm.ppf, so the bounds are the same bits."""
+    from scipy import stats
+
+    values = np.random.default_rng(5).normal(0.8, 0.02, 400)
+    for level in (0.95, 0.9, 0.99, 0.8):
+        out = metrics.bootstrap_interval(values, estimate=0.8, level=level, method=metrics.NORMAL_METHOD)
+        half = float(stats.norm.ppf(0.5 + level / 2.0)) * float(values.std(ddof=1))
+        assert (out["lower"], out["upper"]) == (0.8 - half, 0.8 + half)

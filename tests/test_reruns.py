@@ -9,6 +9,7 @@ package modules the copy carries its own ``oddsmith/`` and runs with PYTHONPATH 
 
 from __future__ import annotations
 
+import os
 import re
 import shutil
 import subprocess
@@ -108,6 +109,94 @@ def test_costs_rerun_threshold_and_what_follows(built, every_job, tmp_path):
     # the test part is not scored again (evaluate measures only what the cut-off does not
     # change) and the figures that do not show the cut-off are not redrawn (model_figures)
     assert planned(project, *targets(project), env=env) == _tail(every_job, "threshold", "apply_cutoff")
+
+
+#: The jobs a change of costs alone reruns (where the workflow has them): the cut-off, the
+#: decision figures and what records them. Not evaluate (the test part is scored once), not
+#: model_figures (no cut-off on them).
+COST_JOBS = {"threshold", "apply_cutoff", "figures", "score", "manifest", "card", "publish"}
+
+
+@pytest.mark.e2e
+def test_a_false_negative_cost_reruns_exactly_the_cost_jobs(built, every_job, tmp_path):
+    project, env = _copy(built, tmp_path / "false_negative")
+    config = project / DEMO_CONFIG
+    text = config.read_text()
+    assert "false_negative: 6000" in text
+    config.write_text(text.replace("false_negative: 6000", "false_negative: 6600"))
+    assert planned(project, *targets(project), env=env) == COST_JOBS & every_job
+
+
+def _touch(path: Path) -> None:
+    """Set a file's modification time to now without changing its bytes (as `touch` does):
+    newer than every output of the copied build, whose files keep their times."""
+    before = path.stat().st_mtime_ns
+    os.utime(path)
+    assert path.stat().st_mtime_ns > before
+
+
+@pytest.mark.e2e
+def test_touched_raw_inputs_rerun_nothing(built, tmp_path):
+    """A newer modification time with the same bytes (a copy, a checkout, `touch`): the data
+    file, its contract, the scoring batch and the config file plan no job."""
+    project, env = _copy(built, tmp_path / "touched")
+    for path in ("data_demo/lease_applications.csv", "schemas/contracts/lease_applications.yaml",
+                 "data_demo/lease_applications_2026q1.csv", DEMO_CONFIG):
+        _touch(project / path)
+    assert planned(project, *targets(project), env=env) == set()
+
+
+@pytest.mark.e2e
+def test_changed_data_with_an_older_clock_reruns_everything(built, every_job, tmp_path):
+    """New bytes whose modification time is put back before every output's (`cp -p` of an
+    older file): the content, not the clock, decides."""
+    project, env = _copy(built, tmp_path / "older")
+    data = project / "data_demo" / "lease_applications.csv"
+    old = data.stat()
+    data.write_text(data.read_text() + "\n")  # new bytes: one more (empty) line at the end
+    os.utime(data, ns=(old.st_atime_ns, old.st_mtime_ns - 3600 * 10**9))
+    assert planned(project, *targets(project), env=env) == every_job
+
+
+def _reorder_costs(text: str) -> str:
+    block = "  false_positive: 1200\n  false_negative: 6000\n"
+    assert block in text
+    return text.replace(block, "  false_negative: 6000\n  false_positive: 1200\n")
+
+
+def _move_selection_below_costs(text: str) -> str:
+    selection = "selection:\n  metric: log_loss\n  rule: one_standard_error\n"
+    assert selection in text
+    text = text.replace(selection, "")
+    return text.replace("\n# Test-part intervals", f"\n{selection}\n# Test-part intervals")
+
+
+def _spell_numbers_as_floats(text: str) -> str:
+    for old, new in (("false_positive: 1200", "false_positive: 1200.0"), ("folds: 5", "folds: 5.0"),
+                     ("min_group_size: 100", "min_group_size: 100.0"), ("1.0]}", "1]}")):
+        assert old in text
+        text = text.replace(old, new)
+    return text
+
+
+def _defaults_written_out(text: str) -> str:
+    """A schema default spelled out in the file (it lands at another place among the keys)."""
+    assert "  adopt: empirical\n" in text
+    return text.replace("  adopt: empirical\n", "  true_negative: 0\n  adopt: empirical\n")
+
+
+@pytest.mark.e2e
+@pytest.mark.parametrize("edit", [_reorder_costs, _move_selection_below_costs, _spell_numbers_as_floats,
+                                  _defaults_written_out])
+def test_a_config_that_says_the_same_thing_reruns_only_its_record(built, every_job, tmp_path, edit):
+    """Key order, int/float spelling and written-out defaults carry no meaning: the checked
+    configuration (and so every rule's params) is the same."""
+    project, env = _copy(built, tmp_path / edit.__name__)
+    config = project / DEMO_CONFIG
+    config.write_text(edit(config.read_text()))
+    # the manifest records the config file's hash, so an edit of the file itself reruns the
+    # manifest, the card that prints it and publication; no job that computes anything
+    assert planned(project, *targets(project), env=env) == {"manifest", "card", "publish"} & every_job
 
 
 @pytest.mark.e2e

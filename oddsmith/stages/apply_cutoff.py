@@ -15,7 +15,7 @@ import pandas as pd
 
 from oddsmith import metrics
 from oddsmith.errors import ArtifactError
-from oddsmith.fairness import GROUP_COLUMN_PREFIX, add_decisions, add_intervals
+from oddsmith.fairness import GROUP_COLUMN_PREFIX, add_decisions, add_intervals_of_attributes
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
 from oddsmith.threshold import confusion_at, realised_cost_per_1000
 
@@ -67,13 +67,17 @@ def _check_artifacts(scores: pd.DataFrame, evaluation: dict, choice: dict) -> No
                             problems)
 
 
-def _group_rows(summaries: list[dict], y, p, labels, *, cutoff, attribute: str, evaluation: dict) -> list[dict]:
-    """Decision figures of one attribute's groups with their intervals; the bootstrap (if
-    any) repeats the evaluation's replicates: same seed, same count, same resampling rule."""
-    rows = add_decisions(summaries, y, p, labels, cutoff=cutoff, attribute=attribute)
+def _group_rows(attributes: dict, y, p, scores, *, cutoff, evaluation: dict) -> dict:
+    """Decision figures of each attribute's groups with their intervals; the bootstrap (if
+    any) repeats the evaluation's replicates: same seed, same count, same resampling rule,
+    each replicate drawn once for every attribute."""
+    labels = {name: scores[GROUP_COLUMN_PREFIX + name].to_numpy() for name in attributes}
+    rows = {name: (add_decisions(block["rows"], y, p, labels[name], cutoff=cutoff, attribute=name), labels[name])
+            for name, block in attributes.items()}
     boot = evaluation.get("bootstrap")
-    return add_intervals(rows, y, p, labels, cutoff=cutoff, level=_level(evaluation), bootstrap=boot and {
+    with_intervals = add_intervals_of_attributes(rows, y, p, cutoff=cutoff, level=_level(evaluation), bootstrap=boot and {
         "replicates": boot["replicates"], "seed": boot["seed"], "method": boot["method"]})
+    return {name: block | {"rows": with_intervals[name]} for name, block in attributes.items()}
 
 
 def _level(evaluation: dict) -> float:
@@ -107,11 +111,8 @@ def run_apply_cutoff(*, scores_path: str, probability_metrics_path: str, choice_
               "cost_per_1000": realised_cost_per_1000(y, p, cutoff, costs=choice["costs"]),
               "cutoff_table": _cutoff_table(y, p, choice), "period_flag_rates": None}
     if evaluation["periods"] is not None:
-        result["period_flag_rates"] = _period_flag_rates(evaluation["periods"], scores["period"].to_numpy(), p,
-                                                         cutoff)
-    groups = {name: block | {"rows": _group_rows(block["rows"], y, p, scores[GROUP_COLUMN_PREFIX + name].to_numpy(),
-                                                 cutoff=cutoff, attribute=name, evaluation=evaluation)}
-              for name, block in subgroups["attributes"].items()}
+        result["period_flag_rates"] = _period_flag_rates(evaluation["periods"], scores["period"].to_numpy(), p, cutoff)
+    groups = _group_rows(subgroups["attributes"], y, p, scores, cutoff=cutoff, evaluation=evaluation)
     log.info("cut-off %s on %d test rows: %d flagged", cutoff, len(y), int(flagged(p, cutoff).sum()))
     predictions = pd.DataFrame({"id": scores["id"].to_numpy(), "y": y, "p": p,
                                 "flagged": flagged(p, cutoff).astype("int8")})

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import logging
 
+from oddsmith.filehash import CACHE_PATH
 from oddsmith.io import write_json
 from oddsmith.manifest import build_manifest
 
@@ -15,7 +16,7 @@ def run_manifest(*, run: str, run_dir: str, stamps: list[str], raw_inputs: dict[
                  build: dict, card_rule: dict | None, out_manifest: str) -> dict:
     """Build the manifest of ``run_dir`` from its stamps and write it (canonical JSON)."""
     manifest = build_manifest(run=run, run_dir=run_dir, stamps=stamps, raw_inputs=raw_inputs, config=config,
-                              build=build, card_rule=card_rule)
+                              build=build, card_rule=card_rule, hash_cache=CACHE_PATH)
     log.info("manifest of %s: %d files, %d raw inputs, git %s, SOURCE_DATE_EPOCH %s", run, len(manifest["files"]),
              len(manifest["raw_inputs"]), manifest["git"], manifest["source_date_epoch"])
     write_json(out_manifest, manifest)
