@@ -99,13 +99,19 @@ def test_nothing_changed_plans_nothing(built):
     assert planned(built, *targets(built)) == set()
 
 
-@pytest.mark.e2e
-def test_costs_rerun_threshold_and_what_follows(built, every_job, tmp_path):
-    project, env = _copy(built, tmp_path / "costs")
+def _copy_with_edit(built, folder, old: str, new: str):
+    """A copy of the built project whose demo config has ``old`` replaced by ``new``."""
+    project, env = _copy(built, folder)
     config = project / DEMO_CONFIG
     text = config.read_text()
-    assert "false_positive: 1200" in text
-    config.write_text(text.replace("false_positive: 1200", "false_positive: 1500"))
+    assert old in text
+    config.write_text(text.replace(old, new))
+    return project, env
+
+
+@pytest.mark.e2e
+def test_costs_rerun_threshold_and_what_follows(built, every_job, tmp_path):
+    project, env = _copy_with_edit(built, tmp_path / "costs", "false_positive: 1200", "false_positive: 1500")
     # the test part is not scored again (evaluate measures only what the cut-off does not
     # change) and the figures that do not show the cut-off are not redrawn (model_figures)
     assert planned(project, *targets(project), env=env) == _tail(every_job, "threshold", "apply_cutoff")
@@ -119,11 +125,7 @@ COST_JOBS = {"threshold", "apply_cutoff", "figures", "score", "manifest", "card"
 
 @pytest.mark.e2e
 def test_a_false_negative_cost_reruns_exactly_the_cost_jobs(built, every_job, tmp_path):
-    project, env = _copy(built, tmp_path / "false_negative")
-    config = project / DEMO_CONFIG
-    text = config.read_text()
-    assert "false_negative: 6000" in text
-    config.write_text(text.replace("false_negative: 6000", "false_negative: 6600"))
+    project, env = _copy_with_edit(built, tmp_path / "false_negative", "false_negative: 6000", "false_negative: 6600")
     assert planned(project, *targets(project), env=env) == COST_JOBS & every_job
 
 
