@@ -19,6 +19,7 @@ rule card:
         subgroups="work/{run}/evaluation/subgroups.json",
         figures=expand("work/{{run}}/figures/{figure}.svg", figure=FIGURES),
         challenger=CHALLENGER_OUTPUTS,
+        final=REFIT_OUTPUTS,
     output:
         html="work/{run}/card/model_card.html",
         pdf="work/{run}/card/model_card.pdf",

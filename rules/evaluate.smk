@@ -1,6 +1,9 @@
 # The test part is scored once, by evaluate, which measures what does not depend on the
 # cut-off; apply_cutoff adds the decision figures. A change of costs reruns threshold and
 # apply_cutoff, not evaluate. Neither threshold nor compare reads an evaluation artifact.
+# With split.method cross_validation_only there is no test part: evaluate measures the
+# selected candidate's out-of-fold predictions on all rows instead.
+CV_ONLY_SPLIT = CONFIG["split"]["method"] == "cross_validation_only"
 rule evaluate:
     input:
         data="work/{run}/validated/data.parquet",
@@ -9,6 +12,12 @@ rule evaluate:
         selected="work/{run}/comparison/selected.json",
         models=expand(
             "work/{{run}}/candidates/{candidate}/model.json", candidate=CANDIDATES
+        ),
+        # Without a test part the evaluation reads the out-of-fold predictions.
+        oof=(
+            expand("work/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES)
+            if CV_ONLY_SPLIT
+            else []
         ),
     output:
         scores="work/{run}/evaluation/scores.parquet",
@@ -19,6 +28,7 @@ rule evaluate:
     benchmark:
         "benchmarks/{run}/evaluate.tsv"
     params:
+        **({"cross_validation": CONFIG["cross_validation"]} if CV_ONLY_SPLIT else {}),
         candidates=CANDIDATES,
         data={
             k: CONFIG["data"][k]
@@ -32,7 +42,8 @@ rule evaluate:
         },
         fairness=CONFIG["fairness"],
         feature_names=[f["name"] for f in CONFIG["features"]],
-        evaluation=CONFIG["evaluation"],
+        # refit_all acts after the evaluation (rules/refit.smk), not on it.
+        evaluation={k: v for k, v in CONFIG["evaluation"].items() if k != "refit_all"},
         split_method=CONFIG["split"]["method"],
         code=code(script="scripts/evaluate.py"),
     script:

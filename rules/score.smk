@@ -31,6 +31,8 @@ if SCORING["data"]:
             contract="work/{run}/validated/contract.yaml",
             data="work/{run}/validated/data.parquet",
             assignment="work/{run}/split/assignment.parquet",
+            # The deliverable, when the selected model is refitted on all rows.
+            final=REFIT_OUTPUTS,
         output:
             scores="work/{run}/scoring/scores.parquet",
             csv="work/{run}/scoring/scores.csv",

@@ -8,5 +8,6 @@ stage(sm, run_score, new_path=sm.params.batch["path"], recipe_path=sm.input.reci
       model_paths=dict(zip(sm.params.candidates, sm.input.models)), choice_path=sm.input.choice,
       contract_path=sm.input.contract, data_path=sm.input.data, assignment_path=sm.input.assignment,
       data=sm.params.data, scoring=sm.params.scoring, monitoring=sm.params.monitoring,
+      deliverable_path=sm.input.final[0] if sm.input.final else None,
       outputs={"scores.parquet": sm.output.scores, "scores.csv": sm.output.csv, "summary.json": sm.output.summary,
                "drift.json": sm.output.drift, "drift.html": sm.output.html, "drift.pdf": sm.output.pdf})
