@@ -172,7 +172,7 @@ def _birthwt_project(dest: Path, *, split: dict, evaluation: dict, cross_validat
         "data": {"path": "data/birthwt.csv", "contract": "schemas/contracts/birthwt.yaml", "id_column": "id",
                  "target": "low", "positive_label": "1", "date_column": None, "extra_columns": "ignore"},
         "features": [{"name": n, "type": "numeric"} for n in FEATURES if n != "race"]
-        + [{"name": "race", "type": "categorical", "reference": "white"}],
+        + [{"name": "race", "type": "categorical", "reference": "white", "min_count": 5}],
         "split": split, "cross_validation": cross_validation,
         "candidates": [{"name": "logit_main", "kind": "logit"}, {"name": "probit_main", "kind": "probit"}],
         "fairness": {"segments": ["race"], "min_group_size": 10},
