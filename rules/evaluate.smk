@@ -4,6 +4,8 @@
 # With split.method cross_validation_only there is no test part: evaluate measures the
 # selected candidate's out-of-fold predictions on all rows instead.
 CV_ONLY_SPLIT = CONFIG["split"]["method"] == "cross_validation_only"
+
+
 rule evaluate:
     input:
         data="work/{run}/validated/data.parquet",
@@ -15,7 +17,9 @@ rule evaluate:
         ),
         # Without a test part the evaluation reads the out-of-fold predictions.
         oof=(
-            expand("work/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES)
+            expand(
+                "work/{{run}}/candidates/{candidate}/oof.parquet", candidate=CANDIDATES
+            )
             if CV_ONLY_SPLIT
             else []
         ),
