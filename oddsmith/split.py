@@ -49,8 +49,10 @@ from scipy.special import ndtr
 
 from oddsmith.errors import EventsPerVariableWarning, SplitError, quoted
 from oddsmith.io import write_parquet
-from oddsmith.settings import CV_ONLY
 
+# Spelled here rather than imported from oddsmith.settings (which reads the schema), so that
+# an edit of the schema does not rerun the split; tests/test_out_of_fold.py checks they agree.
+CV_ONLY = "cross_validation_only"
 METHODS = ("stratified", "out_of_time", "grouped", CV_ONLY)
 # Peduzzi et al., J. Clinical Epidemiology 49 (1996): fewer than 10 events per parameter.
 MIN_EVENTS_PER_PARAMETER = 10

@@ -105,6 +105,12 @@ def test_out_of_fold_predictions_of_other_rows_are_refused_and_nothing_is_writte
     assert not (tmp_path / "scores.parquet").exists() and not (tmp_path / "probability_metrics.json").exists()
 
 
+def test_the_split_and_the_settings_name_the_method_alike():
+    from oddsmith import settings, split
+
+    assert settings.CV_ONLY == split.CV_ONLY == CV_ONLY and CV_ONLY in split.METHODS
+
+
 def test_repeat_summary_orders_repeats_by_number():
     y = np.array([0, 1, 0, 1])
     oof = pd.DataFrame({"p_r10": [0.4, 0.6, 0.4, 0.6], "p": [0.1, 0.9, 0.2, 0.8], "p_r2": [0.6, 0.4, 0.6, 0.4]})
