@@ -1,5 +1,5 @@
 # oddsmith workflow: validate → split → features → fit (one job per candidate) → compare
-# → threshold → evaluate → apply_cutoff → figures → manifest → card → publish. Every job
+# → threshold → evaluate → apply_cutoff (→ refit) → figures → manifest → card → publish. Every job
 # writes under work/<run>/; publish copies a complete, verified build to results/<run>/.
 # There is no default configuration: name one with --configfile (config/demo.yaml is the
 # demo's). See DEVELOPERS.md for the map.
@@ -22,6 +22,7 @@ include: "rules/challenger.smk"
 include: "rules/threshold.smk"
 include: "rules/evaluate.smk"
 include: "rules/apply_cutoff.smk"
+include: "rules/refit.smk"
 include: "rules/figures.smk"
 include: "rules/score.smk"
 include: "rules/manifest.smk"

@@ -107,6 +107,9 @@ _TABLE = (
     ("evaluation/subgroups.json", "apply_cutoff", "subgroup metrics and decision figures"),
     ("evaluation/predictions.parquet", "apply_cutoff", "test-part probabilities and decisions"),
     ("provenance/apply_cutoff.json", "apply_cutoff", "provenance stamp"),
+    # refit (when evaluation.refit_all is true): the deliverable, fitted again on all rows
+    ("final/model.json", "refit", "the selected candidate refitted on all rows (what scoring uses)"),
+    ("provenance/refit.json", "refit", "provenance stamp"),
     # model_figures (do not depend on the cut-off)
     ("figures/reliability.svg", "model_figures", "reliability diagram"),
     ("figures/coefficients.svg", "model_figures", "coefficients with intervals"),
@@ -206,6 +209,28 @@ def figures() -> dict[str, str]:
 CUTOFF_KEYS = ("cutoff", "adopted", "confusion", "cost_per_1000", "cutoff_table")
 
 
+#: The key of the AUC's DeLong interval in ``evaluation/probability_metrics.json``: measured on
+#: the test part, or on out-of-fold predictions when the split keeps no test part.
+AUC_INTERVAL_KEYS = {False: "auc_test_ci", True: "auc_out_of_fold_ci"}
+
+
+def auc_interval_key(out_of_fold: bool) -> str:
+    """The name under which evaluate stores the AUC interval (see :data:`AUC_INTERVAL_KEYS`)."""
+    return AUC_INTERVAL_KEYS[bool(out_of_fold)]
+
+
+def auc_interval(probability_metrics: dict) -> dict:
+    """The AUC's DeLong interval from evaluate's metrics, whichever part it was measured on.
+
+    >>> auc_interval({"auc_out_of_fold_ci": {"lower": 0.6}})
+    {'lower': 0.6}
+    """
+    for key in AUC_INTERVAL_KEYS.values():
+        if key in probability_metrics:
+            return probability_metrics[key]
+    raise ArtifactError("the evaluation holds no AUC interval", [f"expected one of {sorted(AUC_INTERVAL_KEYS.values())}"])
+
+
 def evaluation_at_cutoff(probability_metrics: dict, cutoff_metrics: dict) -> dict:
     """The test part's evaluation as one record: the cut-off-free metrics (evaluate's
     ``probability_metrics.json``, subgroups left out) joined with the figures at the adopted
@@ -227,6 +252,8 @@ def evaluation_at_cutoff(probability_metrics: dict, cutoff_metrics: dict) -> dic
     if problems:
         raise ArtifactError("the test part's cut-off-free and cut-off metrics do not belong together", problems)
     joined = {k: v for k, v in probability_metrics.items() if k != "subgroups"}
+    # Readers of the joined record find the interval under one name, whichever part was measured.
+    joined["auc_interval"] = auc_interval(probability_metrics)
     joined |= {k: cutoff_metrics[k] for k in CUTOFF_KEYS}
     if periods is not None:
         joined["periods"] = [row | {"flag_rate": rate["flag_rate"]} for row, rate in zip(periods, rates)]

@@ -61,6 +61,8 @@ ARTIFACTS = {
 CARD_FILES = tuple(a.path for a in artifacts.written_by("card"))
 #: The flexible challenger's results, present when the run's config has challenger.enabled.
 CHALLENGER_ARTIFACT = "challenger/cv.json"
+#: The selected candidate refitted on all rows (evaluation.refit_all): the deliverable.
+REFIT_ARTIFACT = "final/model.json"
 
 #: Libraries named in the model details (the appendix lists every installed one).
 KEY_LIBRARIES = ("numpy", "scipy", "pandas", "statsmodels", "scikit-learn", "pyarrow", "matplotlib", "jinja2",
@@ -288,6 +290,7 @@ def folder_inputs(run_dir) -> dict:
         selected: artifacts.in_folder(run_dir, artifacts.MODEL, candidate=str(selected))}
     inputs["figures"] = {name: run_dir / rel for name, rel in artifacts.figures().items()}
     inputs["challenger"] = artifacts.in_folder(run_dir, CHALLENGER_ARTIFACT)
+    inputs["final"] = artifacts.in_folder(run_dir, REFIT_ARTIFACT)
     return inputs
 
 
@@ -323,7 +326,41 @@ def load_run(inputs: dict) -> dict:
     run["model"] = read_json(model_path)
     run["config"] = _manifest_config(run["manifest"], wanted["manifest"])
     run["challenger"] = _load_challenger(inputs.get("challenger"), run["config"])
+    run["refit"] = _load_refit(inputs.get("final"), run["config"])
     return run
+
+
+def _load_refit(path, config: dict) -> dict | None:
+    """The refitted model when the run's configuration asked for it, else None."""
+    if not (config.get("evaluation") or {}).get("refit_all"):
+        return None
+    if not path or not Path(path).is_file():
+        raise ArtifactError("the model card needs the model refitted on all rows (evaluation.refit_all is true), "
+                            "which is missing", [f"missing: {path or REFIT_ARTIFACT}"])
+    return read_json(path)
+
+
+def deliverable_statement(run: dict) -> dict | None:
+    """Which model the card's numbers describe and which one is delivered, when they are not
+    simply the selected candidate's fit on the training part evaluated on the test part.
+
+    Returns None for a plain test-part build; else ``{"evaluated", "delivered"}`` sentences.
+    """
+    name, metrics = run["selected"]["candidate"], run["metrics"]
+    oof = metrics.get("out_of_fold")
+    if oof:
+        return {"evaluated": (f"the fold models of {name}: {oof['folds']}-fold cross-validation on all "
+                              f"{fmt_count(metrics['n'])} rows, out-of-fold predictions (no held-out test part)"),
+                "delivered": (f"{name} fitted on all {fmt_count(metrics['n'])} rows "
+                              f"(candidates/{name}/model.json); scoring uses it")}
+    refit = run.get("refit")
+    if refit:
+        return {"evaluated": (f"{name} fitted on the training part ({fmt_count(run['model'].get('n_obs'))} rows, "
+                              f"candidates/{name}/model.json), assessed on the test part"),
+                "delivered": (f"{name} refitted on all {fmt_count(refit['refit']['rows'])} rows after the evaluation "
+                              f"({REFIT_ARTIFACT}; same kind, options and feature recipe); scoring uses it; its "
+                              "performance is not measured separately")}
+    return None
 
 
 def _load_challenger(path, config: dict) -> dict | None:
@@ -420,7 +457,7 @@ def findings(run: dict) -> list[dict]:
     Each is ``{"status": "attention" | "note" | "ok", "check", "basis", "found", "advice"}``.
     """
     out = [_epv_finding(run), _test_size_finding(run), *_maturity_findings(run), *_calibration_findings(run), _subgroup_finding(run),
-           *_group_size_findings(run), _failed_finding(run), _challenger_finding(run), _leak_finding(run), _vif_finding(run),
+           *_group_size_findings(run), *_few_cases_findings(run), _failed_finding(run), _challenger_finding(run), _leak_finding(run), _vif_finding(run),
            _drift_finding(run), *_decision_findings(run)]
     diag = run["diagnostics"]
     if diag["correlations"]["pairs"]:
@@ -442,6 +479,11 @@ def findings(run: dict) -> list[dict]:
     return out
 
 
+def _where(run) -> str:
+    """Where the evaluation's figures come from, for the findings' labels."""
+    return "out-of-fold" if run["metrics"].get("out_of_fold") else "test"
+
+
 def _epv_finding(run):
     diag = run["diagnostics"]
     epv = diag["events_per_parameter"]
@@ -460,13 +502,15 @@ def _maturity_findings(run):
     basis = (f"test applications dated on or before {maturity['matured_through']}: the extraction date "
              f"{maturity['extraction_date']} ({maturity['extraction_date_source']}) minus the "
              f"{maturity['window_months']}-month outcome window")
-    test, train = maturity["parts"]["test"], maturity["parts"]["train"]
+    test, train, where = maturity["parts"]["test"], maturity["parts"]["train"], _where(run)
+    check = f"Outcome window ({where})"
+    rows = "test rows" if where == "test" else "rows (all evaluated out-of-fold)"
     if maturity["test_matured"]:
-        return [_finding("ok", "Outcome window (test)", basis, f"all {fmt_count(test['rows'])} test rows matured")]
+        return [_finding("ok", check, basis, f"all {fmt_count(test['rows'])} {rows} matured")]
     found = (f"outcomes of applications after {maturity['matured_through']} may not have matured: "
-             f"{fmt_count(test['immature_rows'])} of {fmt_count(test['rows'])} test rows"
+             f"{fmt_count(test['immature_rows'])} of {fmt_count(test['rows'])} {rows}"
              + (f" (and {fmt_count(train['immature_rows'])} training rows)" if train["immature_rows"] else ""))
-    return [_finding("attention", "Outcome window (test)", basis, found,
+    return [_finding("attention", check, basis, found,
                      "Some outcomes were still open at extraction: the event rate, the measured performance and the "
                      "cut-off may be understated for those rows. Re-evaluate once every window has closed.")]
 
@@ -476,26 +520,27 @@ def _calibration_findings(run):
     low, high = CALIBRATION_SLOPE_BAND
     slope = overall["calibration_slope"]
     band = f"within [{fmt_fixed(low, 1)}, {fmt_fixed(high, 1)}]"
+    slope_check, hl_check = f"Calibration slope ({_where(run)})", f"Hosmer–Lemeshow goodness of fit ({_where(run)})"
     if slope is None or not low <= slope <= high:
-        slope_f = _finding("attention", "Calibration slope (test)", band, fmt_fixed(slope),
+        slope_f = _finding("attention", slope_check, band, fmt_fixed(slope),
                            "Predicted risks are too spread out (slope below the band) or too compressed "
                            "(above it) on new data. Recalibrate on recent data before using the probabilities.")
     else:
-        slope_f = _finding("ok", "Calibration slope (test)", band, fmt_fixed(slope))
+        slope_f = _finding("ok", slope_check, band, fmt_fixed(slope))
     hl = run["metrics"]["hosmer_lemeshow"]
     found = f"C = {fmt_fixed(hl['statistic'], 2)}, df = {hl['df']}, p = {fmt_p(hl['p_value'])}"
     sample = hl.get("sample_check")  # absent from runs evaluated before the check existed
     if sample is not None and not sample["adequate"]:
-        hl_f = _finding("note", "Hosmer–Lemeshow goodness of fit (test)", sample["rule"],
+        hl_f = _finding("note", hl_check, sample["rule"],
                         f"no p-value stated: {sample['below_1']} of {sample['cells']} expected counts below 1, "
                         f"{sample['below_5']} below 5",
                         "Too few cases per risk group for the test's p-value to mean anything; read the reliability "
                         "table and the calibration slope instead, or evaluate on more data.")
     elif hl["p_value"] is not None and hl["p_value"] < HL_ALPHA:
-        hl_f = _finding("attention", "Hosmer–Lemeshow goodness of fit (test)", f"p at least {HL_ALPHA}", found,
+        hl_f = _finding("attention", hl_check, f"p at least {HL_ALPHA}", found,
                         "Observed and predicted rates differ across risk deciles; inspect the reliability table.")
     else:
-        hl_f = _finding("ok", "Hosmer–Lemeshow goodness of fit (test)", f"p at least {HL_ALPHA}", found)
+        hl_f = _finding("ok", hl_check, f"p at least {HL_ALPHA}", found)
     return [slope_f, hl_f]
 
 
@@ -507,6 +552,8 @@ MIN_TEST_EVENTS = 100
 
 def _test_size_finding(run):
     metrics = run["metrics"]
+    if metrics.get("out_of_fold"):
+        return _out_of_fold_size_finding(metrics)
     events, non_events = metrics["events"], metrics["n"] - metrics["events"]
     basis = (f"at least {MIN_TEST_EVENTS} events and {MIN_TEST_EVENTS} non-events (Collins, Ogundimu & Altman 2016; "
              "from memory)")
@@ -517,6 +564,45 @@ def _test_size_finding(run):
                         "unstable and small differences meaningless. Evaluate on more data, or by repeated "
                         "cross-validation when no more data exist.")
     return _finding("ok", "Size of the test part", basis, found)
+
+
+def _out_of_fold_size_finding(metrics):
+    events, non_events = metrics["events"], metrics["n"] - metrics["events"]
+    basis = (f"at least {MIN_TEST_EVENTS} events and {MIN_TEST_EVENTS} non-events (Collins, Ogundimu & Altman 2016; "
+             "from memory)")
+    found = (f"no held-out test part; {fmt_count(events)} events, {fmt_count(non_events)} non-events, every row "
+             f"evaluated out-of-fold")
+    return _finding("attention" if min(events, non_events) < MIN_TEST_EVENTS else "note",
+                    "Evaluation without a test part", basis, found,
+                    "Every figure is out-of-fold on all rows and the cut-off was chosen and assessed on the same "
+                    "predictions (optimistic). Confirm on new data before relying on the cut-off.")
+
+
+#: Fewest events (or non-events) behind a rate or an interval below which the card says it
+#: rests on few cases: the same count of 5 as the Hosmer–Lemeshow expected-count rule
+#: (common practice).
+MIN_CLASS_COUNT = 5
+
+
+def _few_cases_findings(run):
+    """Group TPR/FPR and bootstrap intervals that rest on very few events or non-events."""
+    out, metrics = [], run["metrics"]
+    thin = [f"{clip(attr)}: {clip(row['group'])} ({fmt_count(row['events'])} events, "
+            f"{fmt_count(row['n'] - row['events'])} non-events)"
+            for attr, block in run["subgroups"]["attributes"].items() for row in block["rows"]
+            if not row["too_small"] and min(row["events"], row["n"] - row["events"]) < MIN_CLASS_COUNT]
+    if thin:
+        out.append(_finding("note", "Group error rates on few cases",
+                            f"at least {MIN_CLASS_COUNT} events and non-events per assessed group (common practice)",
+                            "; ".join(thin), "The TPR (per event) or FPR (per non-event) of these groups rests on "
+                            "fewer than 5 cases: read their intervals, not the point values."))
+    events = metrics["events"]
+    if metrics.get("bootstrap") and min(events, metrics["n"] - events) < 2 * MIN_CLASS_COUNT:
+        out.append(_finding("note", "Bootstrap intervals on few cases",
+                            f"at least {2 * MIN_CLASS_COUNT} events and non-events (a project choice)",
+                            f"{fmt_count(events)} events, {fmt_count(metrics['n'] - events)} non-events",
+                            "Resampling so few cases gives ragged, too-narrow intervals; treat them as rough."))
+    return out
 
 
 def _subgroup_finding(run):
@@ -637,6 +723,9 @@ def _vif_finding(run):
 
 def _drift_finding(run):
     parts, test = run["split"]["parts"], run["split"]["base_rate_test"]
+    if test is None:
+        return _finding("note", "Base-rate drift between training and test", "a test part to compare with",
+                        "no test part (split.method cross_validation_only): nothing to compare")
     found = (f"training {fmt_pct(parts['train']['base_rate'])}, test {fmt_pct(parts['test']['base_rate'])}; "
              f"p = {fmt_p(test['p_value'])}")
     basis = f"no difference at level {test['alpha']}"
@@ -649,9 +738,9 @@ def _drift_finding(run):
 
 def _decision_findings(run):
     out, metrics, choice = [], run["metrics"], run["choice"]
-    if metrics["auc_test_ci"]["lower"] is not None and metrics["auc_test_ci"]["lower"] <= 0.5:
-        out.append(_finding("attention", "Discrimination above chance (test)", "AUC interval above 0.5",
-                            f"{fmt_fixed(metrics['auc_test_ci']['lower'])}–{fmt_fixed(metrics['auc_test_ci']['upper'])}",
+    if metrics["auc_interval"]["lower"] is not None and metrics["auc_interval"]["lower"] <= 0.5:
+        out.append(_finding("attention", f"Discrimination above chance ({_where(run)})", "AUC interval above 0.5",
+                            f"{fmt_fixed(metrics['auc_interval']['lower'])}–{fmt_fixed(metrics['auc_interval']['upper'])}",
                             "The model does not rank cases better than chance with confidence; do not deploy."))
     if choice["adopted_cutoff"] is None:
         out.append(_finding("attention", "Adopted cut-off", "flags some cases", "flags no case",
@@ -747,6 +836,7 @@ def build_context(run: dict, *, release: dict | None) -> dict:
         "equal_count_bins": equal_count(run["metrics"]["reliability"]),
         "challenger": run.get("challenger"), "challenger_sentences": _challenger_sentences(run.get("challenger")),
         "challenger_finding": next(f for f in marks if f["check"] == CHALLENGER_CHECK),
+        "deliverable": deliverable_statement(run),
         "boot": run["metrics"].get("bootstrap"), "maturity": run["metrics"].get("outcome_maturity"),
         "exclusions": (config.get("data") or {}).get("exclusions") or [],
         "monitoring": DEFAULT_MONITORING | (config.get("monitoring") or {}),

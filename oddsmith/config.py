@@ -17,7 +17,7 @@ import yaml
 from oddsmith.errors import ConfigError, quoted
 from oddsmith.io import read_yaml
 from oddsmith.resources import schema_file
-from oddsmith.settings import PENALISED_KINDS, candidate_defaults, constrained_problem, normalised_costs
+from oddsmith.settings import CV_ONLY, PENALISED_KINDS, candidate_defaults, constrained_problem, normalised_costs
 
 SCHEMA_PATH = schema_file("config.schema.yaml")
 #: The schema read here (in the code fingerprint of every rule that runs this module).
@@ -85,7 +85,9 @@ def check_config(raw: dict, *, project_dir: str | Path = ".") -> dict:
             f"the configuration has {len(errors)} problem(s)", [_describe_schema_error(e) for e in errors]
         )
     problems = _sensitive_bands(config["fairness"])
-    problems += _cross_key_problems(config, Path(project_dir))
+    # The file's own split section: a default filled in is not a request.
+    raw_split = raw.get("split") if isinstance(raw.get("split"), dict) else {}
+    problems += _cross_key_problems(config, Path(project_dir), raw_split)
     if problems:
         raise ConfigError(f"the configuration has {len(problems)} problem(s)", problems)
     _add_baseline(config)
@@ -185,7 +187,7 @@ def _describe_schema_error(error) -> str:
     return f"{where}: expected {error.validator} {quoted(error.validator_value)}, found {quoted(error.instance)}"
 
 
-def _cross_key_problems(config: dict, project_dir: Path) -> list[str]:
+def _cross_key_problems(config: dict, project_dir: Path, raw_split: dict) -> list[str]:
     data = config["data"]
     problems = []
     names = [f["name"] for f in config["features"]]
@@ -206,7 +208,7 @@ def _cross_key_problems(config: dict, project_dir: Path) -> list[str]:
             )
     problems += _feature_problems(config, names)
     problems += _candidate_problems(config, names)
-    problems += _split_problems(config)
+    problems += _split_problems(config, raw_split)
     problems += _cost_problems(config["costs"])
     problems += _path_problems(data, project_dir)
     problems += _inference_problems(config)
@@ -279,7 +281,7 @@ def _candidate_problems(config: dict, names: list[str]) -> list[str]:
     return problems
 
 
-def _split_problems(config: dict) -> list[str]:
+def _split_problems(config: dict, raw_split: dict) -> list[str]:
     split, problems = config["split"], []
     if split["method"] == "out_of_time" and not config["data"]["date_column"]:
         problems.append("split.method: out_of_time needs data.date_column")
@@ -287,6 +289,23 @@ def _split_problems(config: dict) -> list[str]:
         problems.append("split.method: grouped needs split.group_column")
     if split["cutoff_date"] is not None and split["method"] != "out_of_time":
         problems.append(f"split.cutoff_date: only used by method out_of_time, not '{split['method']}'")
+    if split["method"] == CV_ONLY:
+        problems += _cv_only_problems(config, raw_split)
+    return problems
+
+
+def _cv_only_problems(config: dict, raw_split: dict) -> list[str]:
+    """Keys that contradict a split without a test part."""
+    problems = []
+    if "test_fraction" in raw_split:
+        problems.append(f"split.test_fraction: {quoted(raw_split['test_fraction'])} asks for a test part, but "
+                        f"split.method {CV_ONLY} keeps none; remove test_fraction or choose another method")
+    if config["split"]["group_column"]:
+        problems.append(f"split.group_column: {CV_ONLY} makes stratified folds, not grouped ones, so rows of one "
+                        "group could straddle folds; use method grouped (with a test part) or remove group_column")
+    if config["evaluation"]["refit_all"]:
+        problems.append(f"evaluation.refit_all: with split.method {CV_ONLY} the selected candidate is already "
+                        "fitted on all rows (its candidates/<name>/model.json is the deliverable); remove refit_all")
     return problems
 
 

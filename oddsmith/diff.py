@@ -17,6 +17,7 @@ import stat
 from pathlib import Path
 
 from oddsmith import artifacts
+from oddsmith.artifacts import AUC_INTERVAL_KEYS
 from oddsmith.errors import ArtifactError, ManifestError
 from oddsmith.verify import read_manifest, verify_results
 
@@ -213,8 +214,8 @@ def _metrics(first: dict, second: dict) -> dict:
     pa, pb = first["probability"], second["probability"]
     oa, ob = pa.get("overall", {}), pb.get("overall", {})
     free = _changes((k, oa.get(k), ob.get(k)) for k in THRESHOLD_FREE)
-    free += _changes((f"auc_test_ci.{k}", pa.get("auc_test_ci", {}).get(k), pb.get("auc_test_ci", {}).get(k))
-                     for k in ("lower", "upper"))
+    free += _changes((f"{key}.{k}", pa.get(key, {}).get(k), pb.get(key, {}).get(k))
+                     for key in AUC_INTERVAL_KEYS.values() for k in ("lower", "upper"))
     a, b = first["cutoff"], second["cutoff"]
     ca, cb = a.get("confusion", {}), b.get("confusion", {})
     at_cutoff = _changes([("cutoff", a.get("cutoff"), b.get("cutoff")),

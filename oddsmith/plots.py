@@ -117,8 +117,11 @@ def roc_points(y, p) -> tuple[np.ndarray, np.ndarray]:
     return np.r_[0.0, fps / fps[-1]], np.r_[0.0, tps / tps[-1]]
 
 
-def roc_svg(y, p, *, auc: float, auc_low: float, auc_high: float, cutoff=None, operating_point=None) -> bytes:
+def roc_svg(y, p, *, auc: float, auc_low: float, auc_high: float, cutoff=None, operating_point=None,
+            where: str = "the test part") -> bytes:
     """ROC curve of the test predictions with the chance diagonal and the operating point.
+
+    ``where`` names the predictions in the title (out-of-fold ones when there is no test part).
 
     ``operating_point`` is (1 − specificity, sensitivity) at the adopted cut-off, as stored
     by the apply_cutoff stage; it is drawn only when ``cutoff`` is not None.
@@ -134,7 +137,7 @@ def roc_svg(y, p, *, auc: float, auc_low: float, auc_high: float, cutoff=None, o
             ax.plot(*operating_point, marker="D", markersize=5, color=PALETTE["ochre"], markeredgecolor=PALETTE["ink"],
                     linestyle="none", label=f"adopted cut-off {cutoff:.4f}")
         ax.set(xlim=(0, 1), ylim=(0, 1.01), xlabel="false-positive rate (1 − specificity)",
-               ylabel="true-positive rate (sensitivity)", title="Discrimination on the test part")
+               ylabel="true-positive rate (sensitivity)", title=f"Discrimination on {where}")
         ax.set_aspect("equal")
         # Below the axes: in the lower right it would cover the curve of a weak model.
         ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=1)
@@ -178,8 +181,8 @@ def equal_count(bins: list[dict]) -> bool:
     return not counts or max(counts) - min(counts) <= 1
 
 
-def reliability_svg(bins: list[dict]) -> bytes:
-    """Observed event rate against mean predicted probability per bin.
+def reliability_svg(bins: list[dict], *, where: str = "the test part") -> bytes:
+    """Observed event rate against mean predicted probability per bin (``where``: as for :func:`roc_svg`).
 
     A panel of bin counts is drawn below only when the bins differ in size; equal-count bins
     would give a row of identical bars, and their count is stated in the card's caption.
@@ -199,7 +202,7 @@ def reliability_svg(bins: list[dict]) -> bytes:
                  label="perfect calibration")
         top.errorbar(x, obs, yerr=error_bar_lengths(obs, low, high), color=PALETTE["teal"], marker="o", markersize=3.5,
                      linewidth=1.0, capsize=2, label="observed rate, 95% interval")
-        top.set(xlim=(0, upper), ylim=(0, upper), ylabel="observed event rate", title="Calibration on the test part")
+        top.set(xlim=(0, upper), ylim=(0, upper), ylabel="observed event rate", title=f"Calibration on {where}")
         top.legend(loc="upper left")
         if bottom is None:
             top.set_xlabel("mean predicted probability in bin")

@@ -121,17 +121,23 @@ class ScoringModel:
 
 
 def load_artifacts(*, recipe_path, selected_path, model_paths: dict, choice_path, contract_path, data_path,
-                   assignment_path, id_column: str, target: str, source: str = "") -> ScoringModel:
+                   assignment_path, id_column: str, target: str, source: str = "",
+                   deliverable_path=None) -> ScoringModel:
     """Build a :class:`ScoringModel` from artifact paths (the score rule's inputs).
 
     ``model_paths`` maps candidate names to their ``model.json``; the one named in
-    ``selected.json`` is used. Formats are checked; a missing artifact is named.
+    ``selected.json`` is used, unless ``deliverable_path`` names the selected candidate
+    refitted on all rows (``final/model.json``, ``evaluation.refit_all``), which is then
+    used instead. Formats are checked; a missing artifact is named.
     """
     selected = read_json(selected_path).get("candidate")
-    if selected not in model_paths:
+    if selected not in model_paths and deliverable_path is None:
         raise ArtifactError(f"{source or 'results'}: selected candidate {selected!r} has no model.json "
                             f"(known: {', '.join(sorted(model_paths))})")
-    model = read_json(model_paths[selected])
+    model = read_json(deliverable_path if deliverable_path is not None else model_paths[selected])
+    if deliverable_path is not None and model.get("candidate") != selected:
+        raise ArtifactError(f"{deliverable_path}: the refitted model is of candidate {model.get('candidate')!r}, "
+                            f"the selected candidate is {selected!r}; rebuild the refit stage")
     recipe = read_json(recipe_path)
     contract = _read_contract(contract_path)
     _raise_format_problems(source, model=model, recipe=recipe, contract=contract)

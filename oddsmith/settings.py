@@ -20,6 +20,8 @@ from oddsmith.resources import schema_file
 #: that runs this module).
 RESOURCE_FILES = ("schemas/config.schema.yaml",)
 
+#: The split method that keeps no test part: every evaluation figure is out-of-fold.
+CV_ONLY = "cross_validation_only"
 #: Kinds fitted with a penalty (standardised design, inner cross-validation of the grid).
 PENALISED_KINDS = ("l1", "l2", "elastic_net")
 #: Costs of the four decisions, per case, in the configuration's words and order.

@@ -1,6 +1,6 @@
 """Divide rows into a training and a test part, and the training part into folds.
 
-Three split methods are offered:
+Four split methods are offered:
 
 ``stratified``
     A random draw of ``test_fraction`` of the rows with the event rate kept equal in both
@@ -13,6 +13,11 @@ Three split methods are offered:
     Whole groups (rows sharing ``group_column``) are drawn at random into the test part, so
     no group straddles the parts. Stratification is approximate: groups with and without an
     event are drawn separately, each towards ``test_fraction`` of its rows.
+
+``cross_validation_only``
+    No test part: every row is a training row and the evaluation uses the out-of-fold
+    predictions of the cross-validation on all rows (for samples too small to spare a
+    test part). ``test_fraction`` and the split ``seed`` are not used.
 
 Folds are assigned to the training rows only; test rows get fold ``-1``. Folds are
 stratified on the target (``StratifiedKFold``); for grouped splits they also keep groups
@@ -45,7 +50,10 @@ from scipy.special import ndtr
 from oddsmith.errors import EventsPerVariableWarning, SplitError, quoted
 from oddsmith.io import write_parquet
 
-METHODS = ("stratified", "out_of_time", "grouped")
+# Spelled here rather than imported from oddsmith.settings (which reads the schema), so that
+# an edit of the schema does not rerun the split; tests/test_out_of_fold.py checks they agree.
+CV_ONLY = "cross_validation_only"
+METHODS = ("stratified", "out_of_time", "grouped", CV_ONLY)
 # Peduzzi et al., J. Clinical Epidemiology 49 (1996): fewer than 10 events per parameter.
 MIN_EVENTS_PER_PARAMETER = 10
 # Threshold of the train/test base-rate test; a project choice, not a published rule.
@@ -118,7 +126,7 @@ def assign_split(
     y = _event_indicator(df[target], positive_label)
     dates = _dates_for_summary(df, settings)
     is_test, detail = _make_parts(df, y, ids, settings, dates)
-    _check_parts(y, is_test)
+    _check_parts(y, is_test, settings["method"])
     groups = _group_codes(df, settings) if settings["method"] == "grouped" else None
     folds = _assign_folds(y, is_test, groups, settings)
     _check_folds(y, is_test, folds, settings)
@@ -173,6 +181,9 @@ def feasibility(df: pd.DataFrame, *, id_column: str, target: str, split: dict, c
         if (~is_test).any():
             problems += _fold_feasibility_problems(train_events, int((~is_test).sum()) - train_events, None, n_folds)
         outcome.update(is_test=is_test, train_rows=int((~is_test).sum()))
+    elif settings["method"] == CV_ONLY:
+        problems += _fold_feasibility_problems(events, n - events, None, n_folds, where="the data")
+        outcome.update(is_test=np.zeros(n, dtype=bool), train_rows=n)
     elif settings["method"] == "stratified":
         try:
             is_test = _stratified_parts(y, settings)
@@ -336,15 +347,15 @@ def _check_groups(df: pd.DataFrame, ids: pd.Series, settings: dict) -> list[str]
     return []
 
 
-def _check_parts(y: np.ndarray, is_test: np.ndarray) -> None:
-    problems = _part_problems(y, is_test)
+def _check_parts(y: np.ndarray, is_test: np.ndarray, method: str) -> None:
+    problems = _part_problems(y, is_test, has_test=method != CV_ONLY)
     if problems:
         raise SplitError("the split leaves a part unusable:", problems)
 
 
-def _part_problems(y: np.ndarray, is_test: np.ndarray) -> list[str]:
+def _part_problems(y: np.ndarray, is_test: np.ndarray, *, has_test: bool = True) -> list[str]:
     problems = []
-    for part, mask in (("training", ~is_test), ("test", is_test)):
+    for part, mask in (("training", ~is_test), ("test", is_test))[:2 if has_test else 1]:
         n, events = int(mask.sum()), int(y[mask].sum())
         if n == 0:
             problems.append(f"the {part} part is empty")
@@ -390,6 +401,8 @@ def _make_parts(df, y, ids, settings, dates) -> tuple[np.ndarray, dict]:
         return _stratified_parts(y, settings), {}
     if method == "out_of_time":
         return _out_of_time_parts(dates, settings)
+    if method == CV_ONLY:
+        return np.zeros(len(y), dtype=bool), {}
     return _grouped_parts(y, _group_codes(df, settings), settings), {}
 
 
@@ -541,10 +554,14 @@ def _assignment_frame(ids: pd.Series, is_test: np.ndarray, folds: list[np.ndarra
 
 
 def _summarise(y, is_test, folds, dates, groups, settings, detail, n_parameters) -> dict:
-    parts = {name: _part_summary(y, mask, dates, groups, n_parameters) for name, mask in _part_masks(is_test)}
+    cv_only = settings["method"] == CV_ONLY
+    parts = {name: _part_summary(y, mask, dates, groups, n_parameters) for name, mask in _part_masks(is_test)
+             if not (cv_only and name == "test")}
     warnings_found = _epv_warnings(parts, n_parameters)
-    base_rate_test = _base_rate_test(y, is_test)
-    warnings_found += _drift_warnings(base_rate_test, settings["method"])
+    # Without a test part there is no second base rate to compare.
+    base_rate_test = None if cv_only else _base_rate_test(y, is_test)
+    if base_rate_test is not None:
+        warnings_found += _drift_warnings(base_rate_test, settings["method"])
     if dates is None and settings["date_column"] is not None:
         warnings_found.append(
             f"date column {settings['date_column']!r} is absent or not parseable as dates; no date ranges reported"
@@ -552,8 +569,8 @@ def _summarise(y, is_test, folds, dates, groups, settings, detail, n_parameters)
     summary = {
         "method": settings["method"],
         "description": _description(settings, detail),
-        "test_fraction": settings["test_fraction"],
-        "seed": settings["seed"],
+        "test_fraction": None if cv_only else settings["test_fraction"],
+        "seed": None if cv_only else settings["seed"],
         "cross_validation": {"folds": settings["folds"], "repeats": settings["repeats"], "seed": settings["cv_seed"]},
         "parts": parts,
         "folds": _fold_summary(y, folds),
@@ -643,6 +660,14 @@ def _drift_warnings(result: dict, method: str) -> list[str]:
 def _description(settings: dict, detail: dict) -> str:
     share = f"{settings['test_fraction'] * 100:g}%"
     method = settings["method"]
+    if method == CV_ONLY:
+        repeats = settings["repeats"]
+        return (
+            f"Cross-validation only: no test part. Every row is used for fitting, and the evaluation uses "
+            f"out-of-fold predictions from {settings['folds']}-fold cross-validation"
+            + (f" repeated {repeats} times with a new fold assignment per repeat" if repeats > 1 else "")
+            + f" (seed {settings['cv_seed']})."
+        )
     if method == "stratified":
         return (
             f"Stratified random: {share} of rows drawn at random (seed {settings['seed']}) into the test part, "

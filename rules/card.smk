@@ -19,6 +19,7 @@ rule card:
         subgroups=artifact("evaluation/subgroups.json"),
         figures=[artifact(f"figures/{name}.svg") for name in FIGURES],
         challenger=CHALLENGER_OUTPUTS,
+        final=REFIT_OUTPUTS,
     output:
         html=artifact("card/model_card.html"),
         pdf=artifact("card/model_card.pdf"),

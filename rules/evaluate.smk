@@ -1,6 +1,11 @@
 # The test part is scored once, by evaluate, which measures what does not depend on the
 # cut-off; apply_cutoff adds the decision figures. A change of costs reruns threshold and
 # apply_cutoff, not evaluate. Neither threshold nor compare reads an evaluation artifact.
+# With split.method cross_validation_only there is no test part: evaluate measures the
+# selected candidate's out-of-fold predictions on all rows instead.
+CV_ONLY_SPLIT = CONFIG["split"]["method"] == "cross_validation_only"
+
+
 rule evaluate:
     input:
         data=artifact("validated/data.parquet"),
@@ -8,6 +13,8 @@ rule evaluate:
         recipe=artifact("features/recipe.json"),
         selected=artifact("comparison/selected.json"),
         models=per_candidate("candidates/{candidate}/model.json"),
+        # Without a test part the evaluation reads the out-of-fold predictions.
+        oof=per_candidate("candidates/{candidate}/oof.parquet") if CV_ONLY_SPLIT else [],
     output:
         scores=artifact("evaluation/scores.parquet"),
         probability_metrics=artifact("evaluation/probability_metrics.json"),
@@ -17,6 +24,7 @@ rule evaluate:
     benchmark:
         "benchmarks/{run}/evaluate.tsv"
     params:
+        **({"cross_validation": CONFIG["cross_validation"]} if CV_ONLY_SPLIT else {}),
         candidates=CANDIDATES,
         data={
             k: CONFIG["data"][k]
@@ -30,7 +38,8 @@ rule evaluate:
         },
         fairness=CONFIG["fairness"],
         feature_names=[f["name"] for f in CONFIG["features"]],
-        evaluation=CONFIG["evaluation"],
+        # refit_all acts after the evaluation (rules/refit.smk), not on it.
+        evaluation={k: v for k, v in CONFIG["evaluation"].items() if k != "refit_all"},
         split_method=CONFIG["split"]["method"],
         code=code(script="scripts/evaluate.py"),
     script:

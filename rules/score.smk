@@ -34,6 +34,8 @@ if SCORING["data"]:
             contract=artifact("validated/contract.yaml"),
             data=artifact("validated/data.parquet"),
             assignment=artifact("split/assignment.parquet"),
+            # The deliverable, when the selected model is refitted on all rows.
+            final=REFIT_OUTPUTS,
         output:
             scores=artifact("scoring/scores.parquet"),
             csv=artifact("scoring/scores.csv"),

@@ -8,4 +8,6 @@ stage(sm, run_evaluate, data_path=sm.input.data, assignment_path=sm.input.assign
       selected_path=sm.input.selected, model_paths=dict(zip(sm.params.candidates, sm.input.models)),
       data=sm.params.data, fairness=sm.params.fairness, feature_names=sm.params.feature_names,
       evaluation=sm.params.evaluation, split_method=sm.params.split_method, out_scores=sm.output.scores,
-      out_probability_metrics=sm.output.probability_metrics)
+      out_probability_metrics=sm.output.probability_metrics,
+      oof_paths=dict(zip(sm.params.candidates, sm.input.oof)) if sm.input.oof else None,
+      cross_validation=sm.params.get("cross_validation"))

@@ -334,19 +334,19 @@ def _changed_by(project: Path, path: str) -> set[str]:
 
 @pytest.mark.parametrize(("path", "rules"), [
     # the scripts that import oddsmith.metrics, directly or through another module
-    ("oddsmith/metrics.py", {"fit", "compare", "challenger", "threshold", "evaluate", "apply_cutoff"}),
+    ("oddsmith/metrics.py", {"fit", "compare", "challenger", "threshold", "evaluate", "apply_cutoff", "refit"}),
     # the drift page imports the card module for its URL fetcher
     ("oddsmith/card.py", {"card", "score"}),
     ("oddsmith/manifest.py", {"manifest", "publish"}),
     # the artifact registry: the card reads through it, the manifest names its own file from it
     ("oddsmith/artifacts.py", {"card", "score", "manifest", "publish"}),
     ("oddsmith/io.py", {"validate", "split", "features", "fit", "compare", "challenger", "threshold", "evaluate",
-                        "apply_cutoff", "model_figures", "figures", "manifest", "card", "score", "publish"}),
+                        "apply_cutoff", "model_figures", "figures", "manifest", "card", "score", "publish", "refit"}),
     ("reports/macros.html.j2", {"card"}),
     ("reports/model_card.css", {"card", "score"}),
     ("reports/drift.html.j2", {"score"}),
     # the candidate defaults and the cost vocabulary are read from the schema (oddsmith.settings)
-    ("schemas/config.schema.yaml", {"fit", "challenger", "threshold", "evaluate", "apply_cutoff", "score"}),
+    ("schemas/config.schema.yaml", {"fit", "challenger", "threshold", "evaluate", "apply_cutoff", "score", "refit"}),
     ("scripts/split.py", {"split"}),
 ])
 def test_an_edit_changes_exactly_the_fingerprints_of_the_rules_that_run_it(project_copy, path, rules):

@@ -13,7 +13,7 @@ import logging
 import numpy as np
 import pandas as pd
 
-from oddsmith import metrics
+from oddsmith import artifacts, metrics
 from oddsmith.errors import ArtifactError
 from oddsmith.fairness import GROUP_COLUMN_PREFIX, add_decisions, add_intervals_of_attributes
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
@@ -82,7 +82,7 @@ def _group_rows(attributes: dict, y, p, scores, *, cutoff, evaluation: dict) -> 
 
 def _level(evaluation: dict) -> float:
     """The evaluation's interval level (its bootstrap's, else its AUC interval's, else 95%)."""
-    return (evaluation.get("bootstrap") or evaluation.get("auc_test_ci") or {}).get("level", 0.95)
+    return (evaluation.get("bootstrap") or evaluation.get(artifacts.auc_interval_key("out_of_fold" in evaluation)) or {}).get("level", 0.95)
 
 
 def _interval_note(evaluation: dict) -> dict:

@@ -2,7 +2,10 @@
 with the selected candidate and measures what does not depend on the cut-off: discrimination
 with intervals, calibration, stability per period and per-group discrimination and
 calibration. The adopted cut-off is applied afterwards by the apply_cutoff stage, from the
-scores written here, so a change of costs does not score the test part again."""
+scores written here, so a change of costs does not score the test part again.
+
+With the split method ``cross_validation_only`` there is no test part: the same measures are
+taken on all rows from the selected candidate's out-of-fold predictions."""
 
 from __future__ import annotations
 
@@ -11,11 +14,13 @@ import logging
 import numpy as np
 import pandas as pd
 
-from oddsmith import metrics
+from oddsmith import artifacts, metrics
+from oddsmith.errors import ArtifactError
 from oddsmith.fairness import GROUP_COLUMN_PREFIX, attribute_groups, group_summaries
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
 from oddsmith.predict import predict_frame
 from oddsmith.recipe import load_recipe
+from oddsmith.settings import CV_ONLY
 
 log = logging.getLogger("oddsmith.evaluate")
 PERIOD_CODES = {"quarter": "Q", "month": "M", "year": "Y"}
@@ -78,31 +83,98 @@ def _intervals(y, p, overall: dict, evaluation: dict) -> dict | None:
                                          max_draws=evaluation["bootstrap_max_draws"], estimates=overall)
 
 
+REPEAT_MEASURES = ("auc", "gini", "ks", "log_loss", "brier", "calibration_intercept", "calibration_slope")
+
+
+def repeat_summary(y, oof: pd.DataFrame) -> dict:
+    """Headline measures of each repeat's out-of-fold predictions, with their mean and range.
+
+    ``oof`` holds one column of predictions per repeat (``p``, ``p_r2``, ...), as the fit
+    stage writes them. The spread shows how much the figures move with the fold assignment
+    alone; the evaluation's tables use repeat 1.
+
+    Returns
+    -------
+    dict
+        ``repeats`` (list of ``{"repeat", <measure>: value}``) and ``spread``
+        (``{<measure>: {"mean", "min", "max"}}``; None where a repeat has no value).
+    """
+    columns = ["p"] + sorted((c for c in oof.columns if c.startswith("p_r")), key=lambda c: int(c[3:]))
+    rows = []
+    for repeat, column in enumerate(columns, start=1):
+        found = metrics.summarise(y, oof[column].to_numpy())
+        rows.append({"repeat": repeat} | {k: found[k] for k in REPEAT_MEASURES})
+    spread = {}
+    for key in REPEAT_MEASURES:
+        values = [row[key] for row in rows]
+        spread[key] = None if any(v is None for v in values) else {
+            "mean": float(np.mean(values)), "min": float(min(values)), "max": float(max(values))}
+    return {"repeats": rows, "spread": spread}
+
+
+def _out_of_fold_predictions(frame: pd.DataFrame, oof_path: str, data: dict, selected: str):
+    """The selected candidate's out-of-fold predictions, checked to be the frame's rows in order."""
+    oof = read_parquet(oof_path)
+    ids = frame[data["id_column"]].astype(str).to_numpy()
+    y = frame[data["target"]].to_numpy().astype(int)
+    if len(oof) != len(frame) or not np.array_equal(oof["id"].astype(str).to_numpy(), ids) \
+            or not np.array_equal(oof["y"].to_numpy().astype(int), y):
+        raise ArtifactError(f"{oof_path}: the out-of-fold predictions of {selected!r} are not the data's rows "
+                            f"in order ({len(oof)} predictions, {len(frame)} rows); rebuild the fit stage")
+    if oof["p"].isna().any():
+        raise ArtifactError(f"{oof_path}: {selected!r} has no out-of-fold predictions (its fit failed)")
+    return oof
+
+
+def _out_of_fold_block(y, oof: pd.DataFrame, cross_validation: dict) -> dict:
+    """What the card says about out-of-fold figures: no test part, which repeat the tables use."""
+    return {"folds": cross_validation["folds"], "repeats": cross_validation["repeats"],
+            "seed": cross_validation["seed"], "repeat_used": 1,
+            "statement": ("No held-out test part: every figure is computed from out-of-fold predictions on all "
+                          "rows (each row predicted by the model of the fold that left it out), from repeat 1 "
+                          "of the cross-validation."),
+            "by_repeat": repeat_summary(y, oof)}
+
+
 def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, selected_path: str, model_paths: dict,
                  data: dict, fairness: dict, feature_names: list, evaluation: dict, split_method: str,
-                 out_scores: str, out_probability_metrics: str) -> dict:
+                 out_scores: str, out_probability_metrics: str, oof_paths: dict | None = None,
+                 cross_validation: dict | None = None) -> dict:
     """Score the test part with the selected model; write the scores (with each row's period
-    and subgroup labels) and the metrics that do not depend on the cut-off."""
-    # Only the test rows and the columns used here are read (at 1M rows the whole frame
-    # would be most of this job's memory).
-    is_test = (read_parquet(assignment_path, columns=["part"])["part"] == "test").to_numpy()
+    and subgroup labels) and the metrics that do not depend on the cut-off.
+
+    With ``split_method`` ``cross_validation_only`` there is no test part: the evaluated rows
+    are all rows and their predictions the selected candidate's out-of-fold ones (repeat 1,
+    from ``oof_paths``); the result then carries an ``out_of_fold`` block, with the spread
+    of the headline measures over the repeats (``cross_validation`` the config section)."""
+    cv_only = split_method == CV_ONLY
+    # Only the evaluated rows and the columns used here are read (at 1M rows the whole
+    # frame would be most of this job's memory).
+    part = read_parquet(assignment_path, columns=["part"])["part"]
+    is_test = (part == ("train" if cv_only else "test")).to_numpy()
     wanted = [data["id_column"], data["target"], data["date_column"], *feature_names,
               *fairness["sensitive"], *fairness["segments"]]
     test = read_parquet(data_path, columns=list(dict.fromkeys(c for c in wanted if c)), rows=is_test)
     selected = read_json(selected_path)["candidate"]
-    model = read_json(model_paths[selected])
     y = test[data["target"]].to_numpy().astype(int)
-    p = predict_frame(load_recipe(recipe_path), model, test)
+    if cv_only:
+        oof = _out_of_fold_predictions(test, oof_paths[selected], data, selected)
+        p = oof["p"].to_numpy()
+    else:
+        p = predict_frame(load_recipe(recipe_path), read_json(model_paths[selected]), test)
     overall = metrics.summarise(y, p)
     level = evaluation["interval_level"]
     result = {"candidate": selected, "n": int(len(y)), "events": int(y.sum()), "overall": overall,
-              # The test AUC itself is overall["auc"]; its DeLong interval is kept without a copy.
-              "auc_test_ci": {k: v for k, v in metrics.auc_confidence_interval(y, p, level=level).items()
-                              if k != "auc"},
+              # The AUC itself is overall["auc"]; its DeLong interval is kept without a copy, named
+              # for what was measured (the test part, or out-of-fold predictions without one).
+              artifacts.auc_interval_key(cv_only): {
+                  k: v for k, v in metrics.auc_confidence_interval(y, p, level=level).items() if k != "auc"},
               "bootstrap": _intervals(y, p, overall, evaluation), "outcome_maturity": None,
               "calibration_intercept_ci": metrics.calibration_intercept_interval(y, p, level=level),
               "hosmer_lemeshow": metrics.hosmer_lemeshow(y, p),
               "reliability": metrics.reliability_bins(y, p, bins=evaluation["calibration_bins"]), "periods": None}
+    if cv_only:
+        result["out_of_fold"] = _out_of_fold_block(y, oof, cross_validation)
     scores = {"id": test[data["id_column"]].to_numpy(), "y": y, "p": p}
     if data["date_column"]:
         periods = test[data["date_column"]].dt.to_period(PERIOD_CODES[evaluation["period"]]).astype(str).to_numpy()
@@ -111,8 +183,9 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
         scores["period"] = periods
         if data.get("outcome_window_months"):
             dates = read_parquet(data_path, columns=[data["date_column"]])[data["date_column"]]
+            # Without a test part the evaluated rows are all rows: they take the test part's place.
             result["outcome_maturity"] = outcome_maturity(
-                dates, read_parquet(assignment_path, columns=["part"])["part"],
+                dates, part.replace("train", "test") if cv_only else part,
                 window_months=data["outcome_window_months"], extraction_date=data.get("extraction_date"))
     groups = {}
     for kind in ("sensitive", "segments"):
@@ -123,7 +196,7 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
                 y, p, labels, min_group_size=fairness["min_group_size"], attribute=name)}
             scores[GROUP_COLUMN_PREFIX + name] = labels
     result["subgroups"] = {"min_group_size": fairness["min_group_size"], "attributes": groups}
-    log.info("test AUC %s (n=%d); bootstrap %s", result["overall"]["auc"], len(y),
+    log.info("%s AUC %s (n=%d); bootstrap %s", "out-of-fold" if cv_only else "test", result["overall"]["auc"], len(y),
              "off" if result["bootstrap"] is None else f"{result['bootstrap']['replicates']} replicates")
     write_parquet(out_scores, pd.DataFrame(scores))
     write_json(out_probability_metrics, result)

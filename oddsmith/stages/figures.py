@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import logging
 
-from oddsmith import plots
+from oddsmith import artifacts, plots
 from oddsmith.errors import ArgumentError
 from oddsmith.io import read_json, read_parquet, write_bytes_atomic
 
@@ -43,6 +43,11 @@ def _cutoff_interval(bootstrap: dict | None) -> tuple[float, float] | None:
     return tuple(1.0 if end is None else end for end in (bootstrap["cutoff_low"], bootstrap["cutoff_high"]))
 
 
+def _where(evaluation: dict) -> str:
+    """What the evaluation's predictions are, for figure titles."""
+    return "out-of-fold predictions" if evaluation.get("out_of_fold") else "the test part"
+
+
 def run_model_figures(*, probability_metrics_path: str, selected_path: str, model_paths: dict, recipe_path: str,
                       out: dict) -> dict:
     """Write the figures of :data:`MODEL_FIGURES` to ``out[name]``.
@@ -57,7 +62,7 @@ def run_model_figures(*, probability_metrics_path: str, selected_path: str, mode
         raise ArgumentError(f"selected candidate {selected!r} has no model path; known: {sorted(model_paths)}")
     evaluation = read_json(probability_metrics_path)
     sds = read_json(recipe_path)["sds"]
-    return _write(out, {"reliability": plots.reliability_svg(evaluation["reliability"]),
+    return _write(out, {"reliability": plots.reliability_svg(evaluation["reliability"], where=_where(evaluation)),
                         "coefficients": plots.coefficients_svg(read_json(model_paths[selected]), sds=sds)})
 
 
@@ -73,11 +78,12 @@ def run_figures(*, predictions_path: str, probability_metrics_path: str, cutoff_
     evaluation, at_cutoff = read_json(probability_metrics_path), read_json(cutoff_metrics_path)
     choice = read_json(choice_path)
     y, p = predictions["y"].to_numpy(), predictions["p"].to_numpy()
-    cutoff, confusion, interval = at_cutoff["cutoff"], at_cutoff["confusion"], evaluation["auc_test_ci"]
+    cutoff, confusion = at_cutoff["cutoff"], at_cutoff["confusion"]
+    auc = artifacts.auc_interval(evaluation) | {"auc": evaluation["overall"]["auc"]}
     svgs = {
-        "roc": plots.roc_svg(y, p, auc=evaluation["overall"]["auc"], auc_low=interval["lower"],
-                             auc_high=interval["upper"], cutoff=cutoff,
-                             operating_point=(1 - confusion["specificity"], confusion["sensitivity"])),
+        "roc": plots.roc_svg(y, p, auc=auc["auc"], auc_low=auc["lower"], auc_high=auc["upper"], cutoff=cutoff,
+                             operating_point=(1 - confusion["specificity"], confusion["sensitivity"]),
+                             where=_where(evaluation)),
         "cost_curve": plots.cost_curve_svg(
             read_parquet(curve_path, columns=["cutoff", "expected_cost_per_case"]),
             adopted=choice["adopted_cutoff"], bayes=choice["bayes"]["cutoff"],

@@ -52,7 +52,8 @@ def _as_arrow_text(ids: pd.Series):
     return pa.chunked_array([pa.Array.from_pandas(ids)]).cast(pa.string()).combine_chunks()
 
 
-def _options(candidate: dict) -> dict:
+def fit_options(candidate: dict) -> dict:
+    """The options of ``fit_design`` that apply to the candidate's kind."""
     options = {k: candidate[k] for k in OPTION_KEYS if k in candidate}
     if candidate["kind"] not in PENALISED_KINDS:
         options = {k: v for k, v in options.items() if k == "max_iter"}
@@ -107,6 +108,18 @@ def original_scale(intercept: float, coefficients: dict, names: list[str], recip
                      "adjusted by the training means (features/recipe.json)"}
 
 
+def model_document(final, header: dict, *, names: list[str], recipe: dict) -> dict:
+    """The model JSON of a successful fit: the fit, the header, and for penalised kinds the
+    coefficients on the original scale."""
+    kind = header["kind"]
+    model = final.to_dict() | header | {
+        "status": "ok", "standardise": kind in PENALISED_KINDS, "coef_table": final.coef_table, "warnings": final.warnings,
+    }
+    if kind in PENALISED_KINDS:
+        model["original_scale"] = original_scale(final.intercept, final.coefficients, names, recipe)
+    return model
+
+
 def cluster_labels(design_path: str, inference: dict | None):
     """The cluster label of every training row (features stage), or None unless clustering."""
     if (inference or {}).get("standard_errors") != "cluster":
@@ -124,7 +137,7 @@ def run_fit(*, design_path: str, assignment_path: str, recipe_path: str, candida
     values, names, y, ids, folds, recipe = training_design(
         design_path=design_path, assignment_path=assignment_path, recipe_path=recipe_path, candidate=candidate,
         id_column=id_column, target=target)
-    kind, options = candidate["kind"], _options(candidate)
+    kind, options = candidate["kind"], fit_options(candidate)
     clusters = None if kind in PENALISED_KINDS else cluster_labels(design_path, inference)
     header = {"candidate": candidate["name"], "kind": kind, "settings": candidate, "n_parameters": len(names) + 1,
               "recipe_sha256": sha256_file(recipe_path), "design_columns": list(names)}
@@ -140,11 +153,7 @@ def run_fit(*, design_path: str, assignment_path: str, recipe_path: str, candida
         write_json(out_model, failed)
         write_json(out_cv, failed | {"folds": [], "pooled": None})
         return failed
-    model = final.to_dict() | header | {
-        "status": "ok", "standardise": kind in PENALISED_KINDS, "coef_table": final.coef_table, "warnings": final.warnings,
-    }
-    if kind in PENALISED_KINDS:
-        model["original_scale"] = original_scale(final.intercept, final.coefficients, names, recipe)
+    model = model_document(final, header, names=names, recipe=recipe)
     pooled = metrics.summarise(y, oof["p"])
     write_parquet(out_oof, pd.DataFrame({"id": ids, "y": y, **oof}))
     write_json(out_model, model)

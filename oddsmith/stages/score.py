@@ -99,8 +99,12 @@ def write_outputs(outputs: dict, paths: dict) -> None:
 
 def run_score(*, new_path: str, recipe_path: str, selected_path: str, model_paths: dict, choice_path: str,
               contract_path: str, data_path: str, assignment_path: str, data: dict, scoring: dict,
-              outputs: dict, template=TEMPLATE, stylesheets: list | None = None, monitoring: dict | None = None) -> dict:
+              outputs: dict, template=TEMPLATE, stylesheets: list | None = None, monitoring: dict | None = None,
+              deliverable_path: str | None = None) -> dict:
     """The score rule: score ``new_path`` with this build's selected model, write the outputs.
+
+    ``deliverable_path``, when given, is the selected model refitted on all rows
+    (``final/model.json``): scoring then uses it.
 
     ``new_path`` must resolve inside the project folder (the working directory) unless
     ``data["allow_outside_project"]`` is true, as for the development data.
@@ -109,7 +113,7 @@ def run_score(*, new_path: str, recipe_path: str, selected_path: str, model_path
     sm = load_artifacts(recipe_path=recipe_path, selected_path=selected_path, model_paths=model_paths,
                         choice_path=choice_path, contract_path=contract_path, data_path=data_path,
                         assignment_path=assignment_path, id_column=data["id_column"], target=data["target"],
-                        source=str(Path(recipe_path).parent.parent))
+                        source=str(Path(recipe_path).parent.parent), deliverable_path=deliverable_path)
     folder = Path(outputs["drift.pdf"]).parent
     result = score_batch(sm, batch_path=new_path, scoring=scoring, encoding=data.get("encoding", "utf-8"),
                          template=template, monitoring=monitoring,

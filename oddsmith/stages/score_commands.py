@@ -56,14 +56,26 @@ def load_results_folder(model_dir, *, check=True) -> tuple[ScoringModel, dict]:
     if not isinstance(config, dict) or not isinstance(config.get("data"), dict):
         raise ManifestError(f"{folder}/manifest.json records no configuration ('config' with 'data')")
     data = config["data"]
+    deliverable = _deliverable(folder, config)
     sm = load_artifacts(
         recipe_path=artifacts.in_folder(folder, "features/recipe.json"), selected_path=selected_path,
         model_paths={selected: model_path}, choice_path=artifacts.in_folder(folder, "threshold/choice.json"),
         contract_path=artifacts.in_folder(folder, "validated/contract.yaml"),
         data_path=artifacts.in_folder(folder, "validated/data.parquet"),
         assignment_path=artifacts.in_folder(folder, "split/assignment.parquet"),
-        id_column=data["id_column"], target=data["target"], source=str(folder))
+        id_column=data["id_column"], target=data["target"], source=str(folder), deliverable_path=deliverable)
     return sm, config
+
+
+def _deliverable(folder: Path, config: dict) -> Path | None:
+    """``final/model.json`` when the build refitted the selected model on all rows, else None."""
+    if not (config.get("evaluation") or {}).get("refit_all"):
+        return None
+    path = artifacts.in_folder(folder, "final/model.json")
+    if not path.is_file():
+        raise ArtifactError(f"{folder} was built with evaluation.refit_all but holds no final/model.json, "
+                            "the model to score with")
+    return path
 
 
 def _read_manifest(folder: Path) -> dict:
