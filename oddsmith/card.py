@@ -332,11 +332,17 @@ def load_run(inputs: dict) -> dict:
 
 def _load_refit(path, config: dict) -> dict | None:
     """The refitted model when the run's configuration asked for it, else None."""
-    if not (config.get("evaluation") or {}).get("refit_all"):
+    return _load_optional(path, (config.get("evaluation") or {}).get("refit_all"), REFIT_ARTIFACT,
+                          "the model refitted on all rows (evaluation.refit_all is true)")
+
+
+def _load_optional(path, enabled, name: str, what: str) -> dict | None:
+    """An optional rule's JSON output: None when the configuration did not enable the rule,
+    else the file's content; a missing file is an error naming ``what``."""
+    if not enabled:
         return None
     if not path or not Path(path).is_file():
-        raise ArtifactError("the model card needs the model refitted on all rows (evaluation.refit_all is true), "
-                            "which is missing", [f"missing: {path or REFIT_ARTIFACT}"])
+        raise ArtifactError(f"the model card needs {what}, which is missing", [f"missing: {path or name}"])
     return read_json(path)
 
 
@@ -365,12 +371,8 @@ def deliverable_statement(run: dict) -> dict | None:
 
 def _load_challenger(path, config: dict) -> dict | None:
     """The challenger's cv.json when the run's configuration enabled it, else None."""
-    if not (config.get("challenger") or {}).get("enabled"):
-        return None
-    if not path or not Path(path).is_file():
-        raise ArtifactError("the model card needs the challenger's results (challenger.enabled is true), "
-                            "which are missing", [f"missing: {path or CHALLENGER_ARTIFACT}"])
-    return read_json(path)
+    return _load_optional(path, (config.get("challenger") or {}).get("enabled"), CHALLENGER_ARTIFACT,
+                          "the challenger's results (challenger.enabled is true)")
 
 
 def _read_yaml(path: Path):
