@@ -338,8 +338,10 @@ def _changed_by(project: Path, path: str) -> set[str]:
     # the drift page imports the card module for its URL fetcher
     ("oddsmith/card.py", {"card", "score"}),
     ("oddsmith/manifest.py", {"manifest", "publish"}),
-    # the artifact registry: the card reads through it, the manifest names its own file from it
-    ("oddsmith/artifacts.py", {"card", "score", "manifest", "publish"}),
+    # the artifact registry: the card reads through it, the manifest names its own file from it,
+    # and evaluate names the AUC interval by it (read back by apply_cutoff and the figures)
+    ("oddsmith/artifacts.py", {"card", "score", "manifest", "publish", "evaluate", "apply_cutoff", "model_figures",
+                               "figures"}),
     ("oddsmith/io.py", {"validate", "split", "features", "fit", "compare", "challenger", "threshold", "evaluate",
                         "apply_cutoff", "model_figures", "figures", "manifest", "card", "score", "publish", "refit"}),
     ("reports/macros.html.j2", {"card"}),
