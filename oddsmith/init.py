@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import math
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -30,12 +30,16 @@ import yaml
 from oddsmith.contract import read_raw
 from oddsmith.errors import InitError
 from oddsmith.io import write_text
+from oddsmith.settings import feature_default
+from oddsmith.split import latest_fraction_cutoff
 
 MAX_LEVELS = 30
 LEAK_AUC = 0.98  # univariate AUC at or above this (or at or below 1 - this) is near-perfect
 SCREEN_ROWS = 200_000  # the content screens look at a fixed sample of a larger file
 BLANK_GROUP = "not stated"  # label of the group a sensitive attribute's blank cells form
 BAND_SHARE = 0.10  # each drafted band of a numeric sensitive attribute holds at least this share
+#: The share of rows the draft holds out for the test part.
+DRAFT_TEST_FRACTION = 0.25
 GRID = [0.003, 0.01, 0.03, 0.1, 0.3, 1.0]
 
 # Outcome words, matched against the tokens of a column name (``serious_delinquency`` ->
@@ -540,6 +544,8 @@ class _Roles:
     positive_why: str | None
     positive_clear: bool
     out_of_time: bool
+    #: Why a stratified split was drafted although the data are dated (None otherwise).
+    split_why: str | None = None
 
 
 def _choose_date_column(raw: pd.DataFrame, columns: dict) -> tuple[str | None, bool]:
@@ -549,6 +555,42 @@ def _choose_date_column(raw: pd.DataFrame, columns: dict) -> tuple[str | None, b
         return None, False
     months = pd.to_datetime(raw[dates[0]], format="%Y-%m-%d").dt.to_period("M").nunique()
     return dates[0], len(dates) == 1 and months >= 6
+
+
+def _levels_after_the_cutoff(raw: pd.DataFrame, roles: _Roles, features: list) -> tuple[_Roles, dict]:
+    """Make an out-of-time draft buildable when a categorical has levels that first occur in
+    the test part (the latest quarter): the model cannot score a level it never saw.
+
+    Where rare training levels will be pooled (fewer than ``min_count`` rows), the feature
+    gets ``missing: indicator`` so the new levels join the pool (``features`` is edited in
+    place); where nothing is pooled, the draft falls back to a stratified split and says why.
+    Returns the roles (``split_why`` set on a fall-back) and {feature index: note}.
+    """
+    if not roles.out_of_time:
+        return roles, {}
+    dates = pd.to_datetime(raw[roles.date_column], format="%Y-%m-%d")
+    is_test = (dates >= latest_fraction_cutoff(dates.dropna(), DRAFT_TEST_FRACTION)).to_numpy()
+    notes, unpooled = {}, []
+    for i, feature in enumerate(features):
+        if feature["type"] != "categorical":
+            continue
+        text = raw[feature["name"]].astype("string")
+        train_counts = text[~is_test].value_counts()
+        new = sorted(set(text[is_test].dropna()) - set(train_counts.index))
+        if not new:
+            continue
+        shown = ", ".join(repr(v) for v in new[:3]) + (f" and {len(new) - 3} more" if len(new) > 3 else "")
+        if (train_counts < feature_default("min_count")).any():
+            feature["missing"] = "indicator"
+            notes[i] = (f"level(s) {shown} first occur in the test part: with missing: indicator they join the "
+                        "pooled rare levels")
+        else:
+            unpooled.append(f"{feature['name']} ({shown})")
+    if unpooled:
+        why = ("stratified although the data are dated: an out-of-time split would leave levels of "
+               + "; ".join(unpooled) + " only in the test part, which the model could not score")
+        return replace(roles, out_of_time=False, split_why=why), notes
+    return roles, notes
 
 
 def _screen_sample(raw: pd.DataFrame) -> pd.DataFrame:
@@ -591,10 +633,12 @@ def draft(data_path: str | Path, *, contract_out: str | Path, config_out: str | 
     columns = {c: _infer_column(raw[c]) for c in raw.columns}
     roles = _choose_roles(raw, columns, target=target, positive=positive, id_column=id_column)
     features, left_out, sensitive = _assign_columns(raw, columns, roles)
+    roles, feature_notes = _levels_after_the_cutoff(raw, roles, features)
     project_dir = Path(project_dir)
     contract_text = _contract_text(data_path, columns, roles)
     config_text, checks = _config_text(raw, data_path, contract_out, roles, features=features,
-                                       left_out=left_out, sensitive=sensitive, run=run, project_dir=project_dir)
+                                       left_out=left_out, sensitive=sensitive, run=run, project_dir=project_dir,
+                                       feature_notes=feature_notes)
     write_text(contract_out, contract_text)
     try:
         write_text(config_out, config_text)
@@ -671,11 +715,11 @@ def _inside(path, project_dir: Path) -> str | None:
 
 
 def _config_text(raw, data_path, contract_out, roles: _Roles, *, features, left_out, sensitive, run,
-                 project_dir: Path) -> tuple[str, list[str]]:
+                 project_dir: Path, feature_notes: dict) -> tuple[str, list[str]]:
     """The commented draft config, and the lines the person must check."""
     events = int((raw[roles.target] == roles.positive).sum())
-    sizes = {"rows": len(raw), "events": events, "test_rows": round(0.25 * len(raw)),
-             "train_events": round(0.75 * events)}
+    sizes = {"rows": len(raw), "events": events, "test_rows": round(DRAFT_TEST_FRACTION * len(raw)),
+             "train_events": round((1 - DRAFT_TEST_FRACTION) * events)}
     notes = _Notes()
     checks = _role_checks(raw, roles, notes)
     data_rel = _inside(data_path, project_dir)
@@ -689,6 +733,12 @@ def _config_text(raw, data_path, contract_out, roles: _Roles, *, features, left_
     config = _config_doc(data, roles, features=features, sensitive=[e for e, _ in sensitive], sizes=sizes,
                          run=run or _run_name(data_path))
     _section_notes(notes, roles, left_out, sizes, folds=config["cross_validation"]["folds"])
+    for i, note in feature_notes.items():
+        notes.at[("features", i)] = note
+    if roles.split_why:
+        notes.at[("split", "method")] = roles.split_why
+        checks.append(f"split: {roles.split_why}; set split.cutoff_date to a date after which every level "
+                      "has occurred, or keep the random split")
     for i, (entry, note) in enumerate(sensitive):
         notes.at[("fairness", "sensitive", i)] = note
         if isinstance(entry, dict) and "blanks" in entry:
@@ -732,7 +782,7 @@ def _config_doc(data: dict, roles: _Roles, *, features, sensitive, sizes: dict, 
         "interactions": [],
         "fairness": {"sensitive": sensitive, "segments": [], "use_sensitive_as_features": False,
                      "min_group_size": min(100, max(20, sizes["test_rows"] // 10))},
-        "split": {"method": "out_of_time" if roles.out_of_time else "stratified", "test_fraction": 0.25,
+        "split": {"method": "out_of_time" if roles.out_of_time else "stratified", "test_fraction": DRAFT_TEST_FRACTION,
                   "seed": 20261202},
         "cross_validation": {"folds": 5 if sizes["train_events"] >= 50 else 3, "repeats": 1, "seed": 7},
         "candidates": [{"name": "logit_all", "kind": "logit"}, {"name": "probit_all", "kind": "probit"},

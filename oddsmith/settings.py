@@ -46,6 +46,17 @@ def constrained_problem(adopt: str, max_flag_rate, min_sensitivity) -> str | Non
 
 
 @functools.lru_cache(maxsize=1)
+def feature_default(name: str):
+    """Schema default of one option of a feature entry (``min_count``, ``missing``, ...).
+
+    >>> feature_default("min_count")
+    20
+    """
+    schema = yaml.safe_load(schema_file("config.schema.yaml").read_text(encoding="utf-8"))
+    return schema["properties"]["features"]["items"]["properties"][name]["default"]
+
+
+@functools.lru_cache(maxsize=1)
 def candidate_defaults() -> dict:
     """Schema defaults of a candidate's fit options (``inner_folds``, ``l1_ratio``, ``max_iter``).
 

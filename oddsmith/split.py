@@ -429,13 +429,13 @@ def _out_of_time_parts(dates: pd.Series, settings: dict) -> tuple[np.ndarray, di
         cutoff = _parse_cutoff(settings["cutoff_date"], dates)
         chosen = "configured"
     else:
-        cutoff = _latest_fraction_cutoff(dates, settings["test_fraction"])
+        cutoff = latest_fraction_cutoff(dates, settings["test_fraction"])
         chosen = "latest test_fraction of rows"
     is_test = (dates >= cutoff).to_numpy()
     return is_test, {"cutoff_date": _iso(cutoff), "cutoff_chosen": chosen}
 
 
-def _latest_fraction_cutoff(dates: pd.Series, fraction: float) -> pd.Timestamp:
+def latest_fraction_cutoff(dates: pd.Series, fraction: float) -> pd.Timestamp:
     """Return the date splitting off the share of latest rows closest to ``fraction``.
 
     Candidate cut-offs are the distinct dates after the first; ties in closeness go to the

@@ -203,6 +203,40 @@ def test_dates_get_no_upper_limit_and_an_out_of_time_split(tmp_path, monkeypatch
     assert "business_id" not in {f["name"] for f in config["features"]}
 
 
+def _dated_frame(*, rare_level: bool) -> pd.DataFrame:
+    """Hand-made: 400 rows over 14 months; 'branch' level 'new' occurs only in the last 2 months
+    (about the latest seventh of the rows, inside the draft's test quarter). With ``rare_level`` one
+    training level has 10 rows (below min_count 20), so rare levels are pooled."""
+    rng = np.random.default_rng(3)
+    dates = pd.date_range("2024-01-01", periods=400, freq="1D1h")
+    months = pd.Series(dates).dt.to_period("M")
+    late = (months >= months.max() - 1).to_numpy()
+    branch = np.where(late, "new", np.where(np.arange(400) % 2 == 0, "east", "west"))
+    if rare_level:
+        branch[np.flatnonzero(~late)[:10]] = "north"
+    return pd.DataFrame({"case_id": np.arange(400), "opened": dates.strftime("%Y-%m-%d"), "branch": branch,
+                         "amount": rng.normal(size=400).round(3), "late": rng.integers(0, 2, 400)})
+
+
+def test_levels_new_in_the_latest_quarter_join_the_pooled_rare_levels(tmp_path, monkeypatch, capsys):
+    _project(tmp_path, monkeypatch, _dated_frame(rare_level=True))
+    assert _init("data.csv", "--target", "late", "--positive", "1") == 0
+    text, config, _ = _drafts(tmp_path)
+    assert config["split"]["method"] == "out_of_time"
+    branch = next(f for f in config["features"] if f["name"] == "branch")
+    assert branch["missing"] == "indicator"
+    assert "'new' first occur in the test part" in text
+
+
+def test_levels_new_in_the_latest_quarter_without_a_pool_give_a_stratified_split(tmp_path, monkeypatch, capsys):
+    _project(tmp_path, monkeypatch, _dated_frame(rare_level=False))
+    assert _init("data.csv", "--target", "late", "--positive", "1") == 0
+    text, config, _ = _drafts(tmp_path)
+    assert config["split"]["method"] == "stratified"
+    assert "an out-of-time split would leave levels of branch ('new') only in the test part" in text
+    assert "split: stratified although the data are dated" in capsys.readouterr().out
+
+
 # ---------------------------------------------------------------------------------------------
 # --target and --positive
 

