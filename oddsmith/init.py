@@ -134,6 +134,36 @@ def _looks_like_id_name(name: str) -> bool:
     return bool(tokens) and ("".join(tokens) in ID_NAMES or (len(tokens) > 1 and tokens[-1] in ID_LAST_TOKENS))
 
 
+#: Spellings of a point in time other than YYYY-MM-DD that init recognises (to say so; the
+#: contract reads dates only as YYYY-MM-DD). Day-first before month-first: where both read
+#: every value (no day above 12), the note says the order is ambiguous.
+OTHER_DATE_SPELLINGS = (("ISO8601", "a date with a time of day"), ("%d/%m/%Y", "DD/MM/YYYY"),
+                        ("%m/%d/%Y", "MM/DD/YYYY"), ("%Y/%m/%d", "YYYY/MM/DD"), ("%d.%m.%Y", "DD.MM.YYYY"),
+                        ("%d-%m-%Y", "DD-MM-YYYY"))
+
+
+def _other_date_spelling(values: pd.Series) -> str | None:
+    """How a column of points in time not written YYYY-MM-DD is spelled, or None.
+
+    >>> _other_date_spelling(pd.Series(["2012-01-01T06:16:41Z", "2012-01-02T07:00:00Z"]))
+    'a date with a time of day'
+    >>> _other_date_spelling(pd.Series(["31/12/2024", "01/02/2025"]))
+    'DD/MM/YYYY'
+    >>> _other_date_spelling(pd.Series(["03/04/2024"]))
+    'DD/MM/YYYY or MM/DD/YYYY (no day above 12 tells which)'
+    >>> _other_date_spelling(pd.Series(["north", "south"])) is None
+    True
+    """
+    found = [label for fmt, label in OTHER_DATE_SPELLINGS
+             if len(values) and pd.to_datetime(values.head(50), format=fmt, errors="coerce").notna().all()
+             and pd.to_datetime(values, format=fmt, errors="coerce").notna().all()]
+    if not found:
+        return None
+    if found[:2] == ["DD/MM/YYYY", "MM/DD/YYYY"]:
+        return "DD/MM/YYYY or MM/DD/YYYY (no day above 12 tells which)"
+    return found[0]
+
+
 def _infer_column(text: pd.Series) -> dict:
     """Contract type of a column of text cells, with its observed facts under ``_``-keys."""
     values = text.dropna()
@@ -151,6 +181,8 @@ def _infer_column(text: pd.Series) -> dict:
         spec["levels"] = sorted(values.unique().tolist())
     else:
         spec["type"] = "string"
+    if spec["type"] in ("category", "string"):
+        spec["_date_spelling"] = _other_date_spelling(values)
     if text.isna().any():
         spec["nullable"] = True
     spec["_distinct"] = int(values.nunique())
@@ -371,6 +403,10 @@ def _leave_out_reason(raw: pd.DataFrame, name: str, spec: dict, event: pd.Series
         return "the date column (data.date_column): used for the split and per-period checks"
     if spec["type"] == "date":
         return "a date: a point in time is not a model input"
+    if spec.get("_date_spelling"):
+        return (f"a point in time written as {spec['_date_spelling']}, not YYYY-MM-DD, which is how oddsmith reads "
+                "dates: to split by time or report periods, add the date as YYYY-MM-DD in a column of its own and "
+                "name it in data.date_column")
     if _looks_like_id_name(name) or (spec["type"] == "string" and spec["_distinct"] == n - spec["_blanks"]):
         why = "looks like an identifier (a key, not a measurement)"
         if spec["_distinct"] < n - spec["_blanks"]:

