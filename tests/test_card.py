@@ -431,8 +431,12 @@ def test_card_states_its_definitions_units_and_the_deciding_numbers(demo_run, de
     selected, table = _load(demo_run, "comparison/selected.json"), _load(demo_run, "comparison/table.json")
     assert _squash("Kolmogorov–Smirnov statistic (KS): the largest gap between the cumulative score distributions "
                    "of events and non-events") in text
-    assert _squash("The four-fifths rule comes from US employment-selection guidelines (29 CFR 1607.4(D)); applied "
-                   "here to lending/clinical decisions by analogy.") in text
+    assert _squash("(29 CFR 1607.4(D)). The four-fifths rule comes from US employment-selection guidelines and is "
+                   "applied here to lending and clinical decisions by analogy.") in text
+    # the Hosmer–Lemeshow grouping rule, with the number of groups of this run
+    groups = len(metrics["hosmer_lemeshow"]["groups"])
+    assert _squash(f"Its groups: rows sorted by predicted probability and cut before sorted positions ⌊n·k/g⌋ "
+                   f"(k = 1 … g − 1, g = {groups} here), each cut moved up past tied predictions") in text
     # costs carry their unit (the demo declares no currency), and the tile compares like with like
     assert _squash("Cost per 1,000 cases (cost units)") in text and _squash("Cost per case (cost units)") in text
     flag_none = card.trivial_costs_on_test(metrics, choice["costs"])["flag_none"]
