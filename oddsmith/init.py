@@ -27,7 +27,7 @@ import numpy as np
 import pandas as pd
 import yaml
 
-from oddsmith.contract import read_raw
+from oddsmith.data.contract import read_raw
 from oddsmith.errors import InitError
 from oddsmith.io import write_text
 

@@ -9,12 +9,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from oddsmith import fairness, metrics
 from oddsmith.artifacts import evaluation_at_cutoff
+from oddsmith.assessment import fairness, metrics
+from oddsmith.assessment.threshold import choose_cutoff
 from oddsmith.errors import ArtifactError
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
 from oddsmith.stages.apply_cutoff import run_apply_cutoff
-from oddsmith.threshold import choose_cutoff
 
 COSTS = {"false_positive": 1.0, "false_negative": 4.5, "true_positive": 0.0, "true_negative": 0.0}  # Bayes cut-off 1/5.5
 
