@@ -1,4 +1,4 @@
-"""Check the proximal Newton path of oddsmith.models against scikit-learn's saga run to a
+"""Check the proximal Newton path of oddsmith.fitting.models against scikit-learn's saga run to a
 tight tolerance, for L1 and elastic-net logistic regression on invented data.
 
 Prints, per data set and C, the largest absolute coefficient difference and the objective
@@ -17,7 +17,7 @@ import warnings
 import numpy as np
 from sklearn.linear_model import LogisticRegression
 
-from oddsmith.solvers import penalised_objective as _penalised_objective, proximal_newton_path as _proximal_newton_path
+from oddsmith.fitting.solvers import penalised_objective as _penalised_objective, proximal_newton_path as _proximal_newton_path
 
 GRID = [0.001, 0.01, 0.1, 1.0, 10.0]
 

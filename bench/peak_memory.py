@@ -37,7 +37,7 @@ for folder in ("validated", "split", "features"):
 cfg = check_config(read_config_file("config/bench.yaml"), project_dir=".")
 data = cfg["data"]
 if stage == "validate":
-    from oddsmith.validate import run_validate
+    from oddsmith.data.validate import run_validate
     run_validate(config=cfg, data_path=data["path"], contract_path=data["contract"],
                  out_data=f"{out}/validated/data.parquet", out_report=f"{out}/validated/report.json",
                  out_summary=f"{out}/validated/summary.txt")

@@ -29,11 +29,11 @@ import numpy as np
 import pandas as pd
 import yaml
 
-from oddsmith.contract import load_contract, validate_frame
+from oddsmith.data.contract import load_contract, validate_frame
+from oddsmith.data.recipe import apply_recipe, learn_recipe
 from oddsmith.demo import generate_applications
-from oddsmith.models import fit_candidate
-from oddsmith.recipe import apply_recipe, learn_recipe
-from oddsmith.score import ScoringModel, check_batch, csv_bytes, reason_reference, score_frame
+from oddsmith.fitting.models import fit_candidate
+from oddsmith.use.score import ScoringModel, check_batch, csv_bytes, reason_reference, score_frame
 
 ROOT = Path(__file__).resolve().parent.parent
 CONFIG = yaml.safe_load((ROOT / "config" / "demo.yaml").read_text(encoding="utf-8"))

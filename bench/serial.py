@@ -40,7 +40,7 @@ import yaml
 from sklearn.metrics import brier_score_loss, log_loss, roc_auc_score, roc_curve
 from sklearn.model_selection import StratifiedKFold, train_test_split
 
-from oddsmith.solvers import proximal_newton_path  # the penalised solver (see docstring)
+from oddsmith.fitting.solvers import proximal_newton_path  # the penalised solver (see docstring)
 
 
 def design(df: pd.DataFrame, features: list[dict]) -> pd.DataFrame:

@@ -119,7 +119,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 _REGISTRARS: list = []
 
-from oddsmith import diff as _diff, release as _release, verify as _verify  # noqa: E402 (registrars below)
+from oddsmith.evidence import diff as _diff, release as _release, verify as _verify  # noqa: E402 (registrars below)
 
 _REGISTRARS += [_verify.register, _release.register, _diff.register]
 

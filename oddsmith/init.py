@@ -27,11 +27,11 @@ import numpy as np
 import pandas as pd
 import yaml
 
-from oddsmith.contract import read_raw
+from oddsmith.data.contract import read_raw
 from oddsmith.errors import InitError
 from oddsmith.io import write_text
 from oddsmith.settings import feature_default
-from oddsmith.split import latest_fraction_cutoff
+from oddsmith.data.split import latest_fraction_cutoff
 
 MAX_LEVELS = 30
 LEAK_AUC = 0.98  # univariate AUC at or above this (or at or below 1 - this) is near-perfect

@@ -19,7 +19,7 @@ import sys
 from pathlib import Path
 
 from oddsmith.errors import ArgumentError, OddsmithError
-from oddsmith.filehash import CACHE_PATH, sha256_remembered
+from oddsmith.evidence.filehash import CACHE_PATH, sha256_remembered
 from oddsmith.io import canonical_json, sha256_file, write_json
 
 LOG_FORMAT = "%(levelname)s %(name)s: %(message)s"
@@ -277,7 +277,7 @@ def failure_block(rule: str, exc: OddsmithError, *, log_path: str) -> str:
 def write_stamp(snakemake) -> None:
     """Write the provenance stamp of a finished job to its output named ``stamp``.
 
-    Inputs are hashed through the project's remembered hashes (:mod:`oddsmith.filehash`): a
+    Inputs are hashed through the project's remembered hashes (:mod:`oddsmith.evidence.filehash`): a
     file that several jobs read (the design, the validated data) is read by the first one to
     finish and not again while it is unchanged. The job's own outputs are always read (they
     are not remembered here: Snakemake touches a finished job's outputs, a new state).

@@ -8,9 +8,9 @@ from snakemake.resources import Resources
 from oddsmith import artifacts
 from oddsmith.config import check_config, read_config_file
 from oddsmith.errors import ConfigError
-from oddsmith.filehash import CACHE_PATH, sha256_remembered
-from oddsmith.manifest import build_info, environment, source_date_epoch
-from oddsmith.publish import current_result_note
+from oddsmith.evidence.filehash import CACHE_PATH, sha256_remembered
+from oddsmith.evidence.manifest import build_info, environment, source_date_epoch
+from oddsmith.evidence.publish import current_result_note
 from oddsmith.runner import params_hash, script_fingerprint
 
 CHOOSE_CONFIG = """a build reads exactly one configuration file, complete on its own (the schema's
@@ -131,7 +131,7 @@ def stamps(run):
 # Raw inputs (data file, contract) enter their rules by content: as ancient() inputs, so that
 # a newer modification time alone reruns nothing, and with their SHA-256 in params, so that
 # changed bytes rerun the rule whatever the clock says. Hashed once per change of a file's
-# size or times (oddsmith.filehash); the manifest reads the same remembered hashes.
+# size or times (oddsmith.evidence.filehash); the manifest reads the same remembered hashes.
 RAW_FILES = [CONFIG["data"]["path"], CONFIG["data"]["contract"]]
 RAW_SHA256 = sha256_remembered(
     [p for p in RAW_FILES if os.path.isfile(p)], cache=CACHE_PATH

@@ -2,7 +2,7 @@
 # its copy verifies; a failed, partial or killed build leaves results/<run> as it was.
 # `pending` is None in every ordinary state and names the staging card otherwise, so a
 # finished build whose publication was interrupted is published by the next invocation.
-from oddsmith.publish import after_build, describe_current, pending
+from oddsmith.evidence.publish import after_build, describe_current, pending
 
 # Read once, before any job runs (a lambda would be evaluated when the job starts, after the
 # card is built, and would differ on every build).

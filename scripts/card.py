@@ -1,6 +1,6 @@
 """Snakemake script of the card rule: render the model card from the rule's declared inputs."""
 
-from oddsmith.card import ARTIFACTS
+from oddsmith.reporting.card_loader import ARTIFACTS
 from oddsmith.runner import stage
 from oddsmith.stages.card import run_card
 

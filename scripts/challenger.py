@@ -1,6 +1,6 @@
 """Snakemake script of the challenger rule: gradient-boosted trees on the shared folds."""
 
-from oddsmith.challenger import run_challenger
+from oddsmith.fitting.challenger import run_challenger
 from oddsmith.runner import stage
 
 sm = snakemake  # noqa: F821 (provided by Snakemake)

@@ -1,7 +1,7 @@
 """Snakemake script of the validate rule: raw data + contract → typed snapshot and report."""
 
+from oddsmith.data.validate import run_validate
 from oddsmith.runner import stage
-from oddsmith.validate import run_validate
 
 stage(
     snakemake,  # noqa: F821 (provided by Snakemake)

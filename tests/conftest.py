@@ -103,8 +103,8 @@ def write_card(run_dir: Path, text: str = "card") -> None:
 
 def small_build(project: Path, run: str = "demo", *, model: bytes = b'{"b": 1}\n', card: str = "card") -> Path:
     """``work/<run>`` with two jobs (validate, fit), a manifest and a card; returns the folder."""
+    from oddsmith.evidence.manifest import build_manifest
     from oddsmith.io import write_json
-    from oddsmith.manifest import build_manifest
 
     run_dir = project / "work" / run
     (project / "data").mkdir(parents=True, exist_ok=True)

@@ -9,12 +9,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from oddsmith import fairness, metrics
 from oddsmith.artifacts import evaluation_at_cutoff
+from oddsmith.assessment import fairness, metrics
+from oddsmith.assessment.threshold import choose_cutoff
 from oddsmith.errors import ArtifactError
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
 from oddsmith.stages.apply_cutoff import run_apply_cutoff
-from oddsmith.threshold import choose_cutoff
 
 COSTS = {"false_positive": 1.0, "false_negative": 4.5, "true_positive": 0.0, "true_negative": 0.0}  # Bayes cut-off 1/5.5
 
@@ -30,6 +30,7 @@ def _artifacts(folder, *, n=3000, seed=4):
                            fairness.GROUP_COLUMN_PREFIX + "region": region})
     periods = [{"period": q, "n": int((period == q).sum())} for q in ("2025Q3", "2025Q4")]
     evaluation = {"candidate": "logit", "n": n, "events": int(y.sum()), "overall": metrics.summarise(y, p),
+                  "auc_test_ci": {k: v for k, v in metrics.auc_confidence_interval(y, p).items() if k != "auc"},
                   "periods": periods, "period_unit": "quarter",
                   "subgroups": {"min_group_size": 100, "attributes": {"region": {
                       "kind": "segments", "used_as_feature": False,
@@ -127,13 +128,15 @@ def test_outcome_maturity_counts_rows_whose_window_had_not_closed():
 def test_joining_the_two_evaluation_files_refuses_files_of_different_runs():
     """Hand-made records: the join adds the cut-off keys and each period's flag rate, and
     refuses a candidate or period mismatch, naming both sides."""
-    probability = {"candidate": "logit", "n": 4, "overall": {"auc": 0.75}, "subgroups": {"attributes": {}},
+    ci = {"lower": 0.6, "upper": 0.9, "level": 0.95, "method": "DeLong"}
+    probability = {"candidate": "logit", "n": 4, "overall": {"auc": 0.75}, "auc_test_ci": ci, "subgroups": {"attributes": {}},
                    "periods": [{"period": "2025Q3", "n": 2}, {"period": "2025Q4", "n": 2}]}
     at_cutoff = {"candidate": "logit", "n": 4, "cutoff": 0.5, "adopted": "empirical", "confusion": {"tp": 1},
                  "cost_per_1000": 250.0, "cutoff_table": [],
                  "period_flag_rates": [{"period": "2025Q3", "flag_rate": 0.5}, {"period": "2025Q4", "flag_rate": 0.0}]}
     joined = evaluation_at_cutoff(probability, at_cutoff)
-    assert joined == {"candidate": "logit", "n": 4, "overall": {"auc": 0.75}, "cutoff": 0.5, "adopted": "empirical",
+    assert joined == {"candidate": "logit", "n": 4, "overall": {"auc": 0.75}, "auc_test_ci": ci, "auc_interval": ci,
+                      "cutoff": 0.5, "adopted": "empirical",
                       "confusion": {"tp": 1}, "cost_per_1000": 250.0, "cutoff_table": [],
                       "periods": [{"period": "2025Q3", "n": 2, "flag_rate": 0.5},
                                   {"period": "2025Q4", "n": 2, "flag_rate": 0.0}]}

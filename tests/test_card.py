@@ -19,11 +19,14 @@ import yaml
 from markupsafe import escape
 from pypdf import PdfReader
 
-from oddsmith import artifacts, card, selection
+from oddsmith import artifacts
 from oddsmith.artifacts import evaluation_at_cutoff
-from oddsmith.card import (CardError, RunFolderFetcher, clip, fmt_count, fmt_fixed, fmt_p, fmt_pct, fmt_sig,
-                           render_card, render_pdf)
 from oddsmith.errors import ArtifactError
+from oddsmith.fitting import selection
+from oddsmith.reporting import card, card_findings, card_loader, formats
+from oddsmith.reporting.card import CardError, render_card, render_pdf
+from oddsmith.reporting.fetcher import RefusedFetch, RunFolderFetcher
+from oddsmith.reporting.formats import clip, fmt_count, fmt_fixed, fmt_p, fmt_pct, fmt_sig
 from oddsmith.stages.card import run_card
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -70,7 +73,7 @@ def test_clip_says_how_long_the_text_was():
     long = "y" * 500
     out = clip(long, 50)
     assert len(out) < 100 and "[shortened; 500 characters in full]" in out
-    assert str(card.clip_html("<b>" + "z" * 40, 60)).startswith('<span class="long">&lt;b&gt;')
+    assert str(formats.clip_html("<b>" + "z" * 40, 60)).startswith('<span class="long">&lt;b&gt;')
 
 
 def test_fetcher_allows_only_data_urls_and_files_inside_the_run(tmp_path):
@@ -89,7 +92,7 @@ def test_fetcher_allows_only_data_urls_and_files_inside_the_run(tmp_path):
                 (run / "figures" / ".." / ".." / "secret.txt").as_uri(), "file://otherhost" + str(inside),
                 (run / "missing.svg").as_uri(), "javascript:alert(1)"):
         assert not fetcher.allows(url), url
-        with pytest.raises(card.RefusedFetch, match="refused"):
+        with pytest.raises(RefusedFetch, match="refused"):
             fetcher.fetch(url)
     assert len(fetcher.refused) == 10
 
@@ -117,9 +120,9 @@ def test_bad_release_is_refused():
 
 
 def test_code_state_in_plain_words():
-    assert "uncommitted changes" in card.code_state({"commit": "a" * 40, "dirty": True})
-    assert "was committed, with no uncommitted changes" in card.code_state({"commit": "a" * 40, "dirty": False})
-    assert "not built from a git checkout" in card.code_state(None)
+    assert "uncommitted changes" in card_findings.code_state({"commit": "a" * 40, "dirty": True})
+    assert "was committed, with no uncommitted changes" in card_findings.code_state({"commit": "a" * 40, "dirty": False})
+    assert "not built from a git checkout" in card_findings.code_state(None)
 
 
 def test_template_carries_the_cautions_verbatim():
@@ -219,7 +222,7 @@ def test_rerender_is_byte_identical_in_another_folder_time_and_hash_seed(demo_ru
     copy = tmp_path / "elsewhere" / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
     env = dict(os.environ, PYTHONHASHSEED="987", SOURCE_DATE_EPOCH="86400")
-    script = f"from oddsmith.card import render_card; render_card({str(copy)!r})"
+    script = f"from oddsmith.reporting.card import render_card; render_card({str(copy)!r})"
     subprocess.run([sys.executable, "-c", script], check=True, cwd=tmp_path, env=env, capture_output=True)
     for name in ("model_card.html", "model_card.pdf", "card.sha256"):
         assert (copy / "card" / name).read_bytes() == (demo_run / "card" / name).read_bytes(), name
@@ -231,7 +234,7 @@ def test_the_card_reads_the_paths_it_is_given_not_the_folder_layout(demo_run, tm
     run folder and named in the inputs give the same HTML; the folder's own copies are absent."""
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
-    inputs = card.folder_inputs(copy)
+    inputs = card_loader.folder_inputs(copy)
     moved = {}
     for key, path in (("cutoff_metrics", inputs["cutoff_metrics"]), ("roc", inputs["figures"]["roc"])):
         moved[key] = tmp_path / "elsewhere" / path.name
@@ -383,7 +386,7 @@ def test_hostile_text_is_escaped_laid_out_and_never_fetched_in_a_release_copy(de
 def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
-    run = card.load_run(card.folder_inputs(copy))
+    run = card_loader.load_run(card_loader.folder_inputs(copy))
     run["diagnostics"]["events_per_parameter"] = 6.5  # Peduzzi et al. (1996): below 10
     run["metrics"]["overall"]["calibration_slope"] = 0.71  # outside [0.8, 1.2]
     first = run["table"]["rows"][0]
@@ -395,7 +398,7 @@ def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
     run["diagnostics"]["vif"]["flagged"] = [{"column": "credit_score", "vif": 14.2}]
     run["split"]["base_rate_test"]["p_value"] = 0.0004
     run["manifest"]["git"] = {"commit": "f" * 40, "dirty": True}
-    attention = {f["check"]: f for f in card.findings(run) if f["status"] == "attention"}
+    attention = {f["check"]: f for f in card_findings.findings(run) if f["status"] == "attention"}
     assert "6.5" in attention["Events per parameter (training)"]["found"]
     assert attention["Calibration slope (test)"]["found"] == "0.710"
     assert "quasi-complete separation" in attention["Candidates that could not be fitted"]["found"]
@@ -417,7 +420,7 @@ def test_a_penalised_selection_shows_its_penalty_instead_of_wald_intervals(demo_
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
     artifacts.in_folder(copy, "comparison/selected.json").write_text(json.dumps({"candidate": "lasso", "reason": "test"}))
-    run = card.load_run(card.folder_inputs(copy))
+    run = card_loader.load_run(card_loader.folder_inputs(copy))
     html = card.render_html(card.build_context(run, release=None))
     penalty = run["model"]["penalty"]
     assert f"C = {penalty['C']:g} chosen from" in html and "Standardised coefficient" in html

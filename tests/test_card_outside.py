@@ -17,7 +17,7 @@ import pytest
 import yaml
 
 from conftest import copy_project, run_snakemake
-from oddsmith import card
+from oddsmith.reporting import card, card_loader, formats
 
 MAIN = ["age", "lwt", "race", "smoke", "ptl", "ht", "ui", "ftv"]
 
@@ -109,14 +109,14 @@ def test_a_selected_penalised_model_shows_original_scale_and_what_has_no_interva
     copy = tmp_path / "birthwt"
     shutil.copytree(birthwt_run, copy, ignore=shutil.ignore_patterns("card"))
     (copy / "comparison" / "selected.json").write_text(json.dumps({"candidate": "ridge", "reason": "test"}))
-    run = card.load_run(card.folder_inputs(copy))
+    run = card_loader.load_run(card_loader.folder_inputs(copy))
     model, recipe = run["model"], run["recipe"]
     html = card.render_html(card.build_context(run, release=None))
     assert "What has no interval." in html and "no standard errors" in html and "Odds ratio" not in html
     # per unit of lwt = standardised coefficient / training SD of lwt (from the recipe)
     per_unit = model["coefficients"]["lwt"] / recipe["sds"]["lwt"]
     assert model["original_scale"]["coefficients"]["lwt"] == pytest.approx(per_unit, rel=1e-12)
-    assert card.fmt_sig(per_unit) in html
+    assert formats.fmt_sig(per_unit) in html
     # the same predictions on both scales, at the training means plus one unit of lwt
     means = recipe["means"]
     eta_std = model["intercept"] + model["coefficients"]["lwt"] / recipe["sds"]["lwt"]

@@ -13,10 +13,11 @@ import pandas as pd
 import pytest
 
 from oddsmith import artifacts
-from oddsmith import card, challenger
 from oddsmith.config import check_config
 from oddsmith.errors import ArtifactError, ConfigError
-from oddsmith.stages.fit import cross_validate
+from oddsmith.fitting import challenger
+from oddsmith.fitting.cross_validation import cross_validate
+from oddsmith.reporting import card, card_findings, card_loader
 
 ROOT = Path(__file__).resolve().parent.parent
 RUN = Path("results") / "lease_demo"
@@ -130,12 +131,12 @@ def test_gap_sentences_say_which_way_and_turn_the_interval():
     better = {"metric": "log_loss", "advantage": 0.012, "lower": 0.004, "upper": 0.020, "level": 0.95,
               "relative": 0.03}
     worse = {"metric": "auc", "advantage": -0.05, "lower": -0.08, "upper": -0.02, "level": 0.95, "relative": -0.07}
-    assert "log loss is 0.0120 lower" in card.challenger_gap_sentence(better, selected="m")
-    assert "(95% interval 0.0040 to 0.0200" in card.challenger_gap_sentence(better, selected="m")
-    text = card.challenger_gap_sentence(worse, selected="m")
+    assert "log loss is 0.0120 lower" in card_findings.challenger_gap_sentence(better, selected="m")
+    assert "(95% interval 0.0040 to 0.0200" in card_findings.challenger_gap_sentence(better, selected="m")
+    text = card_findings.challenger_gap_sentence(worse, selected="m")
     assert "AUC is 0.050 lower" in text and "(95% interval 0.020 to 0.080; 7.0%" in text
     missing = {"metric": "auc", "advantage": None, "note": "AUC undefined on every fold"}
-    assert card.challenger_gap_sentence(missing, selected="m") == "The gap in AUC cannot be stated: AUC undefined on every fold."
+    assert card_findings.challenger_gap_sentence(missing, selected="m") == "The gap in AUC cannot be stated: AUC undefined on every fold."
 
 
 # ---------------------------------------------------------------------------------------------
@@ -152,7 +153,7 @@ def test_config_fills_challenger_defaults_and_names_bad_values(demo_config, root
 
 
 def test_no_pickle_in_the_challenger_code():
-    for path in ("oddsmith/challenger.py", "scripts/challenger.py", "rules/challenger.smk"):
+    for path in ("oddsmith/fitting/challenger.py", "scripts/challenger.py", "rules/challenger.smk"):
         text = (ROOT / path).read_text(encoding="utf-8")
         assert not any(word in text for word in ("import pickle", "joblib", ".pkl", "dump(")), path
 
@@ -206,15 +207,15 @@ def test_card_shows_the_challenger_line_and_says_when_it_is_off(demo_run, tmp_pa
     html = artifacts.in_folder(demo_run, "card/model_card.html").read_text(encoding="utf-8")
     assert "challenger — not for adoption" in html
     gap = json.loads(artifacts.in_folder(demo_run, "challenger/cv.json").read_text())["gap"]
-    sentence = card.challenger_gap_sentence(gap["log_loss"], selected=gap["selected"])
+    sentence = card_findings.challenger_gap_sentence(gap["log_loss"], selected=gap["selected"])
     assert sentence.replace("'", "&#39;") in html
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_run, copy, ignore=shutil.ignore_patterns("card"))
-    run = card.load_run(card.folder_inputs(copy))
+    run = card_loader.load_run(card_loader.folder_inputs(copy))
     run["config"]["challenger"]["enabled"], run["challenger"] = False, None
     off = card.render_html(card.build_context(run, release=None))
     assert "Not run: challenger.enabled is false" in off and "not for adoption" in off
     artifacts.in_folder(copy, "challenger/cv.json").unlink()
     with pytest.raises(ArtifactError) as info:
-        card.load_run(card.folder_inputs(copy))
+        card_loader.load_run(card_loader.folder_inputs(copy))
     assert "challenger/cv.json" in str(info.value)

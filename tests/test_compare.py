@@ -7,7 +7,7 @@ import math
 import pytest
 
 from oddsmith.errors import FitError
-from oddsmith.selection import DEFAULT_PREFERENCE, choose, comparison_row, count_parameters
+from oddsmith.fitting.selection import DEFAULT_PREFERENCE, choose, comparison_row, count_parameters
 
 PREFERENCE = list(DEFAULT_PREFERENCE)
 

@@ -7,7 +7,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from oddsmith.contract import read_raw, read_raw_pieces
+from oddsmith.data.contract import read_raw, read_raw_pieces
 from oddsmith.errors import ContractError
 from oddsmith.io import read_parquet, read_parquet_pieces, write_parquet_chunks
 

@@ -38,9 +38,9 @@ import statsmodels.api as sm
 import statsmodels.stats.sandwich_covariance as sandwich
 from statsmodels.genmod.families import links
 
-from oddsmith import solvers
 from oddsmith.errors import FitError
-from oddsmith.models import covariance_record, check_inference, fit_candidate, fit_design
+from oddsmith.fitting import solvers
+from oddsmith.fitting.models import covariance_record, check_inference, fit_candidate, fit_design
 
 RTOL = 1e-6
 SM_LINK = {"logit": links.Logit, "probit": links.Probit, "cloglog": links.CLogLog}
@@ -363,7 +363,7 @@ def test_config_fills_inference_defaults(demo_config, root):
 
 
 def _validate(config, root, data, out):
-    from oddsmith.validate import run_validate
+    from oddsmith.data.validate import run_validate
 
     return run_validate(config=config, data_path=str(data),
                         contract_path=str(root / "schemas" / "contracts" / "lease_applications.yaml"),

@@ -1,4 +1,4 @@
-"""Tests for oddsmith.diagnostics: VIF, correlations, events per parameter, leakage screen."""
+"""Tests for oddsmith.data.diagnostics: VIF, correlations, events per parameter, leakage screen."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ import statsmodels.api as sm
 from sklearn.metrics import roc_auc_score
 from statsmodels.stats.outliers_influence import variance_inflation_factor
 
-from oddsmith.diagnostics import design_diagnostics, rank_auc
+from oddsmith.data.diagnostics import design_diagnostics, rank_auc
 from oddsmith.errors import EventsPerVariableWarning
 
 
@@ -137,7 +137,7 @@ def test_bad_outcome_is_rejected():
 
 def test_a_leakage_screen_made_earlier_gives_the_same_report():
     # The features stage screens the raw columns first, frees them, then diagnoses the design.
-    from oddsmith.diagnostics import leakage_screen
+    from oddsmith.data.diagnostics import leakage_screen
 
     rng = np.random.default_rng(8)
     raw = pd.DataFrame({"a": rng.normal(size=300), "b": rng.choice(["x", "y"], 300)})

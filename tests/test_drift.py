@@ -10,12 +10,12 @@ import pandas as pd
 import pytest
 from scipy.stats import entropy
 
-from oddsmith.drift import (EMPTY_BIN_POLICY, RefusedFetch, band, categorical_drift, decile_edges, drift_report,
+from oddsmith.reporting.drift import (EMPTY_BIN_POLICY, RefusedFetch, band, categorical_drift, decile_edges, drift_report,
                             numeric_drift, pdf_bytes, psi, psi_from_shares, render_html, shares)
 
 from conftest import ROOT
-from oddsmith import drift
 from oddsmith.errors import OddsmithError
+from oddsmith.reporting import drift
 
 TEMPLATE = ROOT / "reports" / "drift.html.j2"
 

@@ -1,4 +1,4 @@
-"""Tests for oddsmith.fairness: the four-fifths rule in exact fractions and subgroup tables."""
+"""Tests for oddsmith.assessment.fairness: the four-fifths rule in exact fractions and subgroup tables."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 from sklearn.metrics import roc_auc_score
 
-from oddsmith import fairness, metrics
+from oddsmith.assessment import fairness, metrics
 from oddsmith.errors import OddsmithError
 
 # ------------------------------------------------------------------ adverse impact
@@ -247,7 +247,7 @@ def test_decisions_refuse_summaries_of_other_rows():
 
 
 def test_band_labels_and_edges_by_hand():
-    from oddsmith.fairness import attribute_groups, band_labels
+    from oddsmith.assessment.fairness import attribute_groups, band_labels
 
     assert band_labels([30, 45, 60]) == ["below 30", "30 to <45", "45 to <60", "60 and over"]
     assert band_labels([0.5]) == ["below 0.5", "0.5 and over"]
@@ -258,7 +258,7 @@ def test_band_labels_and_edges_by_hand():
 
 
 def test_bands_feed_the_subgroup_table():
-    from oddsmith.fairness import attribute_groups, group_summaries
+    from oddsmith.assessment.fairness import attribute_groups, group_summaries
 
     ages = pd.Series([25, 35, 50, 70] * 50)
     y = np.array([0, 1] * 100)
@@ -271,7 +271,7 @@ def test_bands_feed_the_subgroup_table():
 def test_blank_cells_take_the_declared_group_label():
     import pandas as pd
 
-    from oddsmith.fairness import attribute_groups
+    from oddsmith.assessment.fairness import attribute_groups
 
     labels = attribute_groups(pd.Series(["a", None, "b"]), blanks="not stated")
     assert labels.tolist() == ["a", "not stated", "b"]
@@ -281,7 +281,7 @@ def test_blank_cells_take_the_declared_group_label():
 
 def test_group_comparison_replicates_equal_a_plain_loop():
     # Slow reference: copy each replicate's rows (metrics.bootstrap_rows) and count by hand.
-    from oddsmith import metrics as m
+    from oddsmith.assessment import metrics as m
 
     rng = np.random.default_rng(8)
     n = 400

@@ -8,8 +8,8 @@ import os
 
 import pytest
 
-import oddsmith.filehash as filehash
-from oddsmith.filehash import file_state, sha256_remembered
+import oddsmith.evidence.filehash as filehash
+from oddsmith.evidence.filehash import file_state, sha256_remembered
 
 
 @pytest.fixture()

@@ -23,8 +23,8 @@ from typing import Callable
 import pytest
 
 from oddsmith.cli import main
+from oddsmith.evidence.verify import verify_results
 from oddsmith.io import sha256_file
-from oddsmith.verify import verify_results
 
 from conftest import BIN, DEMO_CONFIG, ROOT, copy_project, small_build
 from test_io import alias_bomb

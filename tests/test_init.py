@@ -20,8 +20,8 @@ from sklearn.metrics import roc_auc_score
 
 from oddsmith.cli import main
 from oddsmith.config import check_config, load_schema
+from oddsmith.data.validate import run_validate
 from oddsmith.init import _auc, _level_class, _numeric_bands, _protected_kind, _tokens
-from oddsmith.validate import run_validate
 
 from conftest import ROOT
 

@@ -8,7 +8,7 @@ import time
 import pytest
 
 from oddsmith.config import read_config_file
-from oddsmith.contract import load_contract
+from oddsmith.data.contract import load_contract
 from oddsmith.errors import ConfigError, ContractError, quoted
 from oddsmith.io import read_yaml
 

@@ -13,9 +13,9 @@ import pytest
 
 from oddsmith.config import check_config, read_config_file
 from oddsmith.errors import ManifestError
-from oddsmith.io import canonical_json, sha256_bytes, sha256_file, write_json
-from oddsmith.manifest import (FORMAT, GIT_OVERRIDE_ENV, build_manifest, environment, git_state,
+from oddsmith.evidence.manifest import (FORMAT, GIT_OVERRIDE_ENV, build_manifest, environment, git_state,
                                source_date_epoch, unsafe_path_reason)
+from oddsmith.io import canonical_json, sha256_bytes, sha256_file, write_json
 
 from conftest import DEMO_CONFIG, run_snakemake
 
@@ -209,7 +209,7 @@ def test_git_state_and_source_date_epoch(tmp_path, monkeypatch):
 
 def _committed_project(repo: Path) -> str:
     """A repository holding one file of each kind of code, committed; returns the commit."""
-    for rel in ("oddsmith/metrics.py", "Snakefile", "rules/fit.smk", "scripts/fit.py", "reports/card.html.j2",
+    for rel in ("oddsmith/assessment/metrics.py", "Snakefile", "rules/fit.smk", "scripts/fit.py", "reports/card.html.j2",
                 "schemas/config.schema.yaml", "schemas/contracts/demo.yaml", "pyproject.toml", "config/demo.yaml",
                 "data_demo/rows.csv"):
         (repo / rel).parent.mkdir(parents=True, exist_ok=True)
@@ -232,7 +232,7 @@ def test_data_and_config_files_are_not_uncommitted_code(tmp_path, monkeypatch, r
     assert git_state(tmp_path) == {"commit": head, "dirty": False}
 
 
-@pytest.mark.parametrize("rel", ["oddsmith/metrics.py", "oddsmith/new_module.py", "Snakefile", "rules/fit.smk",
+@pytest.mark.parametrize("rel", ["oddsmith/assessment/metrics.py", "oddsmith/new_module.py", "Snakefile", "rules/fit.smk",
                                  "rules/extra.smk", "scripts/fit.py", "reports/card.html.j2",
                                  "schemas/config.schema.yaml", "pyproject.toml", "requirements.lock"])
 def test_edited_or_added_code_is_uncommitted_code(tmp_path, monkeypatch, rel):

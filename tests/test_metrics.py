@@ -1,4 +1,4 @@
-"""Tests for oddsmith.metrics: outside references, slow reference implementations, toy cases."""
+"""Tests for oddsmith.assessment.metrics: outside references, slow reference implementations, toy cases."""
 
 from __future__ import annotations
 
@@ -14,7 +14,7 @@ from scipy import stats
 from sklearn import metrics as skm
 from statsmodels.stats.nonparametric import rank_compare_2indep
 
-from oddsmith import metrics
+from oddsmith.assessment import metrics
 from oddsmith.errors import OddsmithError
 
 
@@ -454,7 +454,7 @@ def test_wilson_bounds_equal_statsmodels_to_the_last_bit():
 
     from statsmodels.stats.proportion import proportion_confint
 
-    from oddsmith.metrics import _rate_interval
+    from oddsmith.assessment.metrics import _rate_interval
 
     rng = np.random.default_rng(20261202)
     cases = [(e, n) for n in (1, 2, 3, 10, 999, 250_000, 1_000_003) for e in sorted({0, 1, n // 3, n - 1, n})]

@@ -1,4 +1,4 @@
-"""Tests of oddsmith.models: candidate fits, coefficient tables, JSON models, failures."""
+"""Tests of oddsmith.fitting.models: candidate fits, coefficient tables, JSON models, failures."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from oddsmith.errors import ArtifactError, FitError, SeparationWarning
-from oddsmith.models import (
+from oddsmith.fitting.models import (
     COEF_TABLE_KEYS, DEFAULT_GRID, KINDS, MODEL_FORMAT, PENALISED_KINDS, SOLVER, FittedModel,
     average_marginal_effects, fit_candidate, inverse_link, linear_predictor, model_from_dict,
     predict_from_dict,
@@ -518,7 +518,7 @@ def test_too_few_events_for_the_inner_folds_is_a_fit_failure_not_a_bad_argument(
 def test_a_failure_inside_the_solver_becomes_a_fit_error_naming_the_candidate_kind(monkeypatch):
     # The solver's own failure modes (a singular system, overflow) are rare on real data;
     # the path from any of them to a FitError is checked by making the linear solve fail.
-    from oddsmith import solvers
+    from oddsmith.fitting import solvers
 
     def singular(*args, **kwargs):
         raise np.linalg.LinAlgError("matrix is singular")

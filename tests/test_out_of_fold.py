@@ -16,13 +16,14 @@ import pytest
 import yaml
 
 from conftest import DEMO_CONFIG, ROOT, copy_project, run_snakemake
-from oddsmith import metrics
 from oddsmith.artifacts import evaluation_at_cutoff
+from oddsmith.assessment import metrics
+from oddsmith.assessment.metrics import repeat_summary
 from oddsmith.config import check_config
 from oddsmith.errors import ConfigError
+from oddsmith.fitting.cross_validation import cross_validate
 from oddsmith.io import write_json, write_parquet
-from oddsmith.stages.evaluate import repeat_summary, run_evaluate
-from oddsmith.stages.fit import cross_validate
+from oddsmith.stages.evaluate import run_evaluate
 
 CV_ONLY = "cross_validation_only"
 
@@ -107,7 +108,8 @@ def test_out_of_fold_predictions_of_other_rows_are_refused_and_nothing_is_writte
 
 
 def test_the_split_and_the_settings_name_the_method_alike():
-    from oddsmith import settings, split
+    from oddsmith import settings
+    from oddsmith.data import split
 
     assert settings.CV_ONLY == split.CV_ONLY == CV_ONLY and CV_ONLY in split.METHODS
 

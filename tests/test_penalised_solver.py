@@ -9,7 +9,7 @@ import pytest
 from scipy.special import expit
 from sklearn.linear_model import LogisticRegression
 
-from oddsmith.solvers import penalised_objective as _penalised_objective, proximal_newton_path as _proximal_newton_path
+from oddsmith.fitting.solvers import penalised_objective as _penalised_objective, proximal_newton_path as _proximal_newton_path
 
 GRID = [0.01, 0.1, 1.0]
 

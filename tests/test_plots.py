@@ -14,8 +14,8 @@ import pandas as pd
 import pytest
 from sklearn.metrics import roc_curve
 
-from oddsmith import plots
 from oddsmith.io import write_json, write_parquet
+from oddsmith.reporting import plots
 from oddsmith.stages import figures
 
 HOSTILE = [
@@ -194,7 +194,7 @@ def test_calibration_intervals_and_error_bars_are_never_negative_for_any_bin():
     (e.g. 8.7e-19 with no events) that the bars must also survive."""
     from statsmodels.stats.proportion import proportion_confint
 
-    from oddsmith.metrics import _rate_interval
+    from oddsmith.assessment.metrics import _rate_interval
 
     for n in range(1, 3001):
         for events in sorted({0, 1, n // 2, n - 1, n}):

@@ -14,9 +14,9 @@ from pathlib import Path
 import pytest
 
 from oddsmith.cli import main
+from oddsmith.evidence.publish import PublishError, describe_current, folders, pending, publish, recover
+from oddsmith.evidence.verify import verify_results
 from oddsmith.io import sha256_file
-from oddsmith.publish import PublishError, describe_current, folders, pending, publish, recover
-from oddsmith.verify import verify_results
 
 from conftest import ROOT, copy_project, small_build, write_card
 

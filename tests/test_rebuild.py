@@ -28,8 +28,8 @@ from pathlib import Path
 import pyarrow.parquet as pq
 import pytest
 
+from oddsmith.evidence.verify import verify_results
 from oddsmith.io import sha256_file
-from oddsmith.verify import verify_results
 
 from conftest import BIN, DEMO_CONFIG, ROOT, copy_project, run_snakemake
 

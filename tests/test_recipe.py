@@ -1,4 +1,4 @@
-"""Tests for oddsmith.recipe: learned on training rows only, applied identically everywhere."""
+"""Tests for oddsmith.data.recipe: learned on training rows only, applied identically everywhere."""
 
 from __future__ import annotations
 
@@ -10,8 +10,7 @@ import patsy
 import pytest
 from sklearn.preprocessing import StandardScaler
 
-from oddsmith.errors import RecipeError
-from oddsmith.recipe import (
+from oddsmith.data.recipe import (
     KNOT_QUANTILES,
     apply_recipe,
     design_columns,
@@ -20,6 +19,7 @@ from oddsmith.recipe import (
     load_recipe,
     recipe_digest,
 )
+from oddsmith.errors import RecipeError
 
 FEATURES = [
     {"name": "income", "type": "numeric", "transform": "log"},
@@ -363,7 +363,7 @@ def test_inconsistent_recipe_is_detected_even_with_a_fresh_digest(tmp_path, edit
 def test_standardisation_learned_piece_by_piece_equals_the_whole_column(monkeypatch):
     # The means and SDs are combined from pieces of rows; they must be those of the whole
     # design column (numpy's mean and population SD), and the same dropped columns.
-    import oddsmith.recipe as recipe_module
+    import oddsmith.data.recipe as recipe_module
 
     train = _applicants(2000, seed=5)
     whole = _learn(train)

@@ -13,10 +13,10 @@ import pytest
 
 from oddsmith import artifacts
 from oddsmith.cli import main
-from oddsmith.diff import compare_folders, config_changes, differs, flatten, format_text
+from oddsmith.evidence.diff import compare_folders, config_changes, differs, flatten, format_text
+from oddsmith.evidence.release import ReleaseError, release
+from oddsmith.evidence.verify import verify_results
 from oddsmith.io import sha256_file
-from oddsmith.release import ReleaseError, release
-from oddsmith.verify import verify_results
 
 from conftest import DEMO_CONFIG, run_snakemake
 

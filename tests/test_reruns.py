@@ -240,21 +240,21 @@ def test_a_template_only_the_card_uses_reruns_card_and_manifest(built, every_job
 
 
 @pytest.mark.e2e
-def test_the_card_module_reruns_card_manifest_and_the_drift_page(built, every_job, tmp_path):
-    """oddsmith/card.py runs in the card rule and, through the drift page's URL fetcher, in the
+def test_the_url_fetcher_reruns_card_manifest_and_the_drift_page(built, every_job, tmp_path):
+    """oddsmith/reporting/fetcher.py runs in the card rule and, as the drift page's URL fetcher, in the
     score rule: exactly those two and the manifest rerun."""
     if "card" not in every_job:
         pytest.skip("this workflow renders no card")
-    project, env = _copy(built, tmp_path / "card_module", with_package=True)
-    with open(project / "oddsmith" / "card.py", "a", encoding="utf-8") as handle:
-        handle.write("\n# an edit that changes the card module's bytes\n")
+    project, env = _copy(built, tmp_path / "fetcher_module", with_package=True)
+    with open(project / "oddsmith" / "reporting" / "fetcher.py", "a", encoding="utf-8") as handle:
+        handle.write("\n# an edit that changes the fetcher module's bytes\n")
     assert planned(project, *targets(project), env=env) == {"card", "manifest"} | ({"score", "publish"} & every_job)
 
 
 @pytest.mark.e2e
 def test_the_manifest_module_reruns_manifest_and_card(built, every_job, tmp_path):
     project, env = _copy(built, tmp_path / "manifest_module", with_package=True)
-    with open(project / "oddsmith" / "manifest.py", "a", encoding="utf-8") as handle:
+    with open(project / "oddsmith" / "evidence" / "manifest.py", "a", encoding="utf-8") as handle:
         handle.write("\n# an edit that changes the manifest module's bytes\n")
     assert planned(project, *targets(project), env=env) == {"manifest"} | ({"card", "publish"} & every_job)
 
@@ -262,7 +262,7 @@ def test_the_manifest_module_reruns_manifest_and_card(built, every_job, tmp_path
 @pytest.mark.e2e
 def test_the_metrics_module_reruns_from_fit_on_but_not_the_data_stages(built, every_job, tmp_path):
     project, env = _copy(built, tmp_path / "metrics_module", with_package=True)
-    with open(project / "oddsmith" / "metrics.py", "a", encoding="utf-8") as handle:
+    with open(project / "oddsmith" / "assessment" / "metrics.py", "a", encoding="utf-8") as handle:
         handle.write("\n# an edit that changes the metrics module's bytes\n")
     assert planned(project, *targets(project), env=env) == every_job - {"validate", "split", "features"}
 
@@ -333,15 +333,16 @@ def _changed_by(project: Path, path: str) -> set[str]:
 
 
 @pytest.mark.parametrize(("path", "rules"), [
-    # the scripts that import oddsmith.metrics, directly or through another module
-    ("oddsmith/metrics.py", {"fit", "compare", "challenger", "threshold", "evaluate", "apply_cutoff", "refit"}),
-    # the drift page imports the card module for its URL fetcher
-    ("oddsmith/card.py", {"card", "score"}),
-    ("oddsmith/manifest.py", {"manifest", "publish"}),
+    # the scripts that import oddsmith.assessment.metrics, directly or through another module
+    ("oddsmith/assessment/metrics.py", {"fit", "compare", "challenger", "threshold", "evaluate", "apply_cutoff", "refit"}),
+    # the card's renderer runs in the card rule only; the URL fetcher also renders the drift page
+    ("oddsmith/reporting/card.py", {"card"}),
+    ("oddsmith/reporting/card_findings.py", {"card"}),
+    ("oddsmith/reporting/fetcher.py", {"card", "score"}),
+    ("oddsmith/evidence/manifest.py", {"manifest", "publish"}),
     # the artifact registry: the card reads through it, the manifest names its own file from it,
-    # and evaluate names the AUC interval by it (read back by apply_cutoff and the figures)
-    ("oddsmith/artifacts.py", {"card", "score", "manifest", "publish", "evaluate", "apply_cutoff", "model_figures",
-                               "figures"}),
+    # evaluate, apply_cutoff and the figures join the evaluation files through it
+    ("oddsmith/artifacts.py", {"evaluate", "apply_cutoff", "model_figures", "figures", "card", "manifest", "publish"}),
     ("oddsmith/io.py", {"validate", "split", "features", "fit", "compare", "challenger", "threshold", "evaluate",
                         "apply_cutoff", "model_figures", "figures", "manifest", "card", "score", "publish", "refit"}),
     ("reports/macros.html.j2", {"card"}),

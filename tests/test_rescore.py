@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from oddsmith.errors import ContractError
-from oddsmith.rescore import format_rescore, parse_settings, read_record, row_from_file, row_from_record, rescore_row
+from oddsmith.use.rescore import format_rescore, parse_settings, read_record, row_from_file, row_from_record, rescore_row
 
 from test_score import BATCH, raw_rows, toy_model, verified_demo  # noqa: F401 (fixture)
 

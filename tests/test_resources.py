@@ -18,7 +18,8 @@ def test_a_checkout_uses_its_own_top_level_folders():
 
 
 def test_the_users_of_templates_and_schemas_ask_the_one_lookup():
-    from oddsmith import card, config
+    from oddsmith import config
+    from oddsmith.reporting import card
     from oddsmith.stages import score
 
     assert card.TEMPLATE_DIR == resources.template_dir()

@@ -15,14 +15,14 @@ import pandas as pd
 import pytest
 
 from oddsmith import artifacts
+from oddsmith.data.recipe import learn_recipe
 from oddsmith.errors import ArtifactError, ConfigError, ContractError, ManifestError
 from oddsmith.io import read_parquet
-from oddsmith.recipe import learn_recipe
-from oddsmith.score import (ScoringModel, check_batch, contributions, csv_bytes, design_matrix, feature_weights,
-                            load_artifacts, neutralise_text, reason_reference, score_frame,
-                            top_reasons)
 from oddsmith.stages.score import run_score
 from oddsmith.stages.score_commands import OUTPUTS, load_results_folder, score_folder
+from oddsmith.use.score import (ScoringModel, check_batch, contributions, csv_bytes, design_matrix, feature_weights,
+                            load_artifacts, neutralise_text, reason_reference, score_frame,
+                            top_reasons)
 
 from conftest import ROOT, run_snakemake
 
@@ -334,11 +334,11 @@ def test_incompatible_formats_are_refused(demo_build, tmp_path):
 @pytest.fixture(scope="module")
 def verified_demo(demo_build) -> Path:
     """The demo build with its manifest (built here if the workflow has the rule)."""
-    pytest.importorskip("oddsmith.verify", reason="oddsmith.verify is not in this tree yet")
+    pytest.importorskip("oddsmith.evidence.verify", reason="oddsmith.evidence.verify is not in this tree yet")
     folder = demo_build / "results" / RUN
     if not artifacts.in_folder(folder, artifacts.MANIFEST).is_file():
         run_snakemake(demo_build)  # the default target publishes a verified result
-    from oddsmith.verify import verify_results
+    from oddsmith.evidence.verify import verify_results
 
     assert verify_results(folder) == []
     return folder

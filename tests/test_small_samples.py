@@ -8,7 +8,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from oddsmith import card, metrics
+from oddsmith.assessment import metrics
+from oddsmith.reporting import card, card_findings, card_loader
 
 RUN = Path("results") / "lease_demo"
 
@@ -52,15 +53,15 @@ def test_a_48_row_test_part_of_birthwt_gets_no_hosmer_lemeshow_p_value():
 def test_card_states_the_rule_instead_of_the_p_value_and_flags_a_small_test_part(demo_build, tmp_path):
     copy = tmp_path / "lease_demo"
     shutil.copytree(demo_build / RUN, copy, ignore=shutil.ignore_patterns("card"))
-    run = card.load_run(card.folder_inputs(copy))
-    checks = {f["check"]: f for f in card.findings(run)}
+    run = card_loader.load_run(card_loader.folder_inputs(copy))
+    checks = {f["check"]: f for f in card_findings.findings(run)}
     assert checks["Size of the test part"]["status"] == "ok"  # the demo's test part is large
     assert checks["Hosmer–Lemeshow goodness of fit (test)"]["status"] in ("ok", "attention")
     hl = run["metrics"]["hosmer_lemeshow"]
     hl["p_value"] = 0.026
     hl["sample_check"] = metrics.hosmer_lemeshow_sample_check([0.4, 1.2, 2.0], [5, 5, 5])
     run["metrics"]["n"], run["metrics"]["events"] = 48, 15
-    checks = {f["check"]: f for f in card.findings(run)}
+    checks = {f["check"]: f for f in card_findings.findings(run)}
     hl_check = checks["Hosmer–Lemeshow goodness of fit (test)"]
     assert hl_check["status"] == "note" and hl_check["found"].startswith("no p-value stated")
     assert "0.026" not in hl_check["found"]

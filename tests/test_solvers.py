@@ -5,8 +5,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from oddsmith import solvers
-from oddsmith.models import KINDS, PENALISED_KINDS, fit_candidate, fit_design, inverse_link
+from oddsmith.fitting import solvers
+from oddsmith.fitting.models import KINDS, PENALISED_KINDS, fit_candidate, fit_design, inverse_link
 
 
 @pytest.mark.parametrize("link", ["logit", "probit", "cloglog"])

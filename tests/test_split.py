@@ -1,4 +1,4 @@
-"""Tests for oddsmith.split: determinism, split properties, folds, summary and bad input."""
+"""Tests for oddsmith.data.split: determinism, split properties, folds, summary and bad input."""
 
 from __future__ import annotations
 
@@ -15,8 +15,8 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 from statsmodels.stats.proportion import proportions_ztest
 
+from oddsmith.data.split import assign_split, fold_columns, write_assignment
 from oddsmith.errors import EventsPerVariableWarning, SplitError
-from oddsmith.split import assign_split, fold_columns, write_assignment
 
 CV = {"folds": 5, "repeats": 1, "seed": 7}
 
@@ -93,7 +93,7 @@ def test_bytes_do_not_depend_on_the_process_or_hash_seed(tmp_path):
     write_assignment(_assign(pd.read_csv(tmp_path / "loans.csv"))[0], tmp_path / "here.parquet")
     code = (
         "import sys, pandas as pd\n"
-        "from oddsmith.split import assign_split, write_assignment\n"
+        "from oddsmith.data.split import assign_split, write_assignment\n"
         "df = pd.read_csv(sys.argv[1])\n"
         "split = {'method': 'stratified', 'test_fraction': 0.25, 'seed': 20261202, 'date_column':"
         " 'application_date', 'cutoff_date': None, 'group_column': 'customer_id'}\n"
@@ -340,7 +340,7 @@ def test_fold_advice_never_goes_below_two_folds():
 
 @pytest.mark.parametrize("method", ["stratified", "out_of_time", "grouped"])
 def test_feasibility_finds_no_problem_where_the_split_succeeds(method):
-    from oddsmith.split import feasibility
+    from oddsmith.data.split import feasibility
 
     df = _loans()
     split = _split(method, cutoff_date="2025-10-01" if method == "out_of_time" else None)
@@ -356,7 +356,7 @@ def test_feasibility_finds_no_problem_where_the_split_succeeds(method):
 def test_feasibility_refuses_only_what_every_seed_refuses(seed):
     """Stratified: fold feasibility is judged on the largest training counts any seed can give,
     so a refusal at validate is a refusal of the split for every seed."""
-    from oddsmith.split import feasibility
+    from oddsmith.data.split import feasibility
 
     df = _loans(40, seed=seed, base_rate=0.15)
     refused = 0

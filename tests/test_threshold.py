@@ -1,4 +1,4 @@
-"""Tests for oddsmith.threshold: Elkan's cut-off, exact cost curves, constraints, bootstrap."""
+"""Tests for oddsmith.assessment.threshold: Elkan's cut-off, exact cost curves, constraints, bootstrap."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import pytest
 from scipy import stats
 from sklearn.metrics import confusion_matrix
 
-from oddsmith import threshold
+from oddsmith.assessment import threshold
 from oddsmith.errors import CostError, OddsmithError
 
 # Eight rows worked by hand below. Distinct cut-offs 0.1, 0.3, 0.4, 0.6, 0.8, 0.9, inf.

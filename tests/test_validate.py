@@ -11,9 +11,9 @@ import pandas as pd
 import pytest
 
 from oddsmith.config import check_config
+from oddsmith.data.validate import run_validate
 from oddsmith.errors import ContractError
 from oddsmith.io import sha256_file
-from oddsmith.validate import run_validate
 
 from conftest import ROOT, run_snakemake
 
@@ -222,7 +222,7 @@ def test_sensitive_attribute_with_one_group(cfg, tmp_path):
 def test_decoding_is_checked_piece_by_piece_with_the_file_offset(tmp_path):
     # Tiny pieces: a two-byte character split across pieces is fine, and the offset of a bad
     # byte is its offset in the file, not in the piece.
-    from oddsmith.contract import _check_decodes
+    from oddsmith.data.contract import _check_decodes
     from oddsmith.errors import ContractError
 
     good = "id,name\n1,Zoë\n2,Åsa\n".encode("utf-8")
@@ -243,7 +243,7 @@ def test_decoding_is_checked_piece_by_piece_with_the_file_offset(tmp_path):
 def test_numbers_parse_the_same_through_the_fast_path_and_pandas():
     # _to_float uses Arrow's cast when every cell parses and pandas otherwise; both must give
     # the same doubles (reference: pandas.to_numeric), and cells that are not numbers stay missing.
-    from oddsmith.contract import _to_float
+    from oddsmith.data.contract import _to_float
 
     rng = np.random.default_rng(3)
     x = (rng.standard_normal(20_000) * 10.0 ** rng.integers(-6, 9, 20_000)).tolist()
@@ -390,7 +390,7 @@ def _run_in_pieces(cfg, data: Path, out: Path, piece_rows: int):
 def _whole_frame_snapshot(cfg, data: Path, path: Path, group_rows: int) -> None:
     """The snapshot as a check of the whole file at once writes it: the typed frame cut into
     row groups (the reference for the piece-by-piece writer)."""
-    from oddsmith.contract import load_contract, read_raw, validate_frame
+    from oddsmith.data.contract import load_contract, read_raw, validate_frame
     from oddsmith.io import write_parquet_chunks
 
     d = cfg["data"]
@@ -409,7 +409,7 @@ def test_pieces_of_seven_rows_give_the_same_bytes_as_one_piece(cfg, tmp_path):
 def test_row_groups_do_not_depend_on_the_pieces(cfg, tmp_path, monkeypatch):
     # Row groups of 50 rows from pieces of 7 rows: each group is assembled from several
     # pieces and cut inside one; the bytes equal the whole typed frame cut every 50 rows.
-    import oddsmith.validate as validate
+    import oddsmith.data.validate as validate
 
     monkeypatch.setattr(validate, "PARQUET_CHUNK_ROWS", 50)
     path = _write(tmp_path, _demo_frame(333))
@@ -421,7 +421,7 @@ def test_row_groups_do_not_depend_on_the_pieces(cfg, tmp_path, monkeypatch):
 
 
 def test_the_demo_snapshot_in_pieces_equals_the_whole_file_typed_at_once(cfg, tmp_path):
-    from oddsmith.validate import PARQUET_CHUNK_ROWS
+    from oddsmith.data.validate import PARQUET_CHUNK_ROWS
 
     _run_in_pieces(cfg, DEMO, tmp_path / "pieces", piece_rows=1_000)
     _whole_frame_snapshot(cfg, DEMO, tmp_path / "whole.parquet", group_rows=PARQUET_CHUNK_ROWS)
@@ -463,7 +463,7 @@ def test_problems_scattered_over_pieces_are_merged_as_one_piece_reports_them(cfg
 def test_a_hash_shared_by_different_ids_is_not_a_repeat(cfg, tmp_path, monkeypatch):
     # Rows whose hashes agree are looked at again: with every hash forced equal, only the
     # real repeat (rows 6 and 301) may be reported.
-    import oddsmith.contract as contract
+    import oddsmith.data.contract as contract
 
     monkeypatch.setattr(contract, "_value_hashes", lambda values: np.zeros(len(values), dtype=np.uint64))
     frame = _demo_frame()
@@ -504,7 +504,7 @@ def test_blank_rejected_feature_counts_every_piece(cfg, tmp_path):
 def test_nullable_whole_numbers_without_blanks_are_stored_as_int64(cfg, tmp_path, monkeypatch):
     # guarantor_score is a nullable integer: without a blank anywhere it is int64, as when the
     # whole file is typed at once, although each piece held it as float64.
-    import oddsmith.validate as validate
+    import oddsmith.data.validate as validate
 
     monkeypatch.setattr(validate, "PARQUET_CHUNK_ROWS", 50)
     frame = _demo_frame()
@@ -517,8 +517,8 @@ def test_nullable_whole_numbers_without_blanks_are_stored_as_int64(cfg, tmp_path
 
 
 def test_the_file_is_read_in_bounded_pieces(cfg, tmp_path, monkeypatch):
-    import oddsmith.validate as validate
-    from oddsmith.contract import PIECE_ROWS
+    import oddsmith.data.validate as validate
+    from oddsmith.data.contract import PIECE_ROWS
 
     asked = []
 
@@ -535,7 +535,7 @@ def test_the_file_is_read_in_bounded_pieces(cfg, tmp_path, monkeypatch):
 def test_rows_a_multiple_of_the_row_group_leave_no_empty_group(cfg, tmp_path, monkeypatch):
     import pyarrow.parquet as pq
 
-    import oddsmith.validate as validate
+    import oddsmith.data.validate as validate
 
     monkeypatch.setattr(validate, "PARQUET_CHUNK_ROWS", 100)
     _run_in_pieces(cfg, _write(tmp_path, _demo_frame()), tmp_path / "v", piece_rows=7)

@@ -16,10 +16,10 @@ from pathlib import Path
 
 import pytest
 
-import oddsmith.verify as verify_module
+import oddsmith.evidence.verify as verify_module
+from oddsmith.evidence.manifest import build_manifest
+from oddsmith.evidence.verify import check_results, verify_results
 from oddsmith.io import sha256_bytes, sha256_file, write_json
-from oddsmith.manifest import build_manifest
-from oddsmith.verify import check_results, verify_results
 
 from conftest import run_snakemake, small_build, write_card
 
@@ -243,7 +243,7 @@ def test_a_listed_file_linked_from_outside_the_folder_still_verifies(small_run):
 def test_verify_never_runs_code_from_the_checked_folder(small_run):
     marker = small_run.parent.parent / "ran.txt"
     payload = f"open({str(marker)!r}, 'w').write('ran')\n"
-    for rel in ("sitecustomize.py", "usercustomize.py", "oddsmith/__init__.py", "oddsmith/verify.py", "conftest.py"):
+    for rel in ("sitecustomize.py", "usercustomize.py", "oddsmith/__init__.py", "oddsmith/evidence/verify.py", "conftest.py"):
         (small_run / rel).parent.mkdir(exist_ok=True)
         (small_run / rel).write_text(payload)
     result = subprocess.run([str(BIN / "oddsmith"), "verify", "."], cwd=small_run, capture_output=True, text=True)

@@ -210,7 +210,7 @@ def test_a_build_reads_only_its_own_configuration(tmp_path):
     assert "results/card_default now holds this build (card fingerprint " in done.stderr
 
     run_dir = project / "results" / "card_default"
-    from oddsmith.verify import verify_results
+    from oddsmith.evidence.verify import verify_results
 
     assert verify_results(run_dir) == []
     assert not (project / "results" / "lease_demo").exists()

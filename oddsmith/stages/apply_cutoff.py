@@ -13,11 +13,12 @@ import logging
 import numpy as np
 import pandas as pd
 
-from oddsmith import artifacts, metrics
+from oddsmith import artifacts
+from oddsmith.assessment import metrics
+from oddsmith.assessment.fairness import GROUP_COLUMN_PREFIX, add_decisions, add_intervals_of_attributes
+from oddsmith.assessment.threshold import confusion_at, realised_cost_per_1000
 from oddsmith.errors import ArtifactError
-from oddsmith.fairness import GROUP_COLUMN_PREFIX, add_decisions, add_intervals_of_attributes
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
-from oddsmith.threshold import confusion_at, realised_cost_per_1000
 
 log = logging.getLogger("oddsmith.apply_cutoff")
 TABLE_CUTOFFS = (0.05, 0.10, 0.15, 0.20, 0.25, 0.30, 0.40, 0.50, 0.60, 0.70)

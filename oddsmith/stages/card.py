@@ -1,20 +1,21 @@
 """The card stage: render the model card of a run from the files its rule declares (artifacts,
-figures, models, manifest) into HTML, PDF and card.sha256. All logic lives in :mod:`oddsmith.card`."""
+figures, models, manifest) into HTML, PDF and card.sha256. All logic lives in :mod:`oddsmith.reporting`
+(:mod:`~oddsmith.reporting.card_loader`, :mod:`~oddsmith.reporting.card_findings`, :mod:`~oddsmith.reporting.card`)."""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-from oddsmith.card import CARD_FILES, CardError, render_card
+from oddsmith.reporting.card import CARD_FILES, CardError, render_card
 
 #: The templates and stylesheet this stage renders (in the code fingerprint of its rule; see
-#: :data:`oddsmith.runner.RESOURCE_CONSTANT`). Named here rather than in :mod:`oddsmith.card`,
-#: which the drift page also imports for its URL fetcher only.
+#: :data:`oddsmith.runner.RESOURCE_CONSTANT`). Named here, by the one rule that renders them; the
+#: drift page reuses the stylesheet and names it in :mod:`oddsmith.stages.score`.
 RESOURCE_FILES = ("reports/model_card.html.j2", "reports/macros.html.j2", "reports/model_card.css")
 
 
 def run_card(*, inputs: dict, out_html: str, out_pdf: str, out_sha256: str) -> dict:
-    """Render the card from ``inputs`` (see :func:`oddsmith.card.load_run`) into the outputs'
+    """Render the card from ``inputs`` (see :func:`oddsmith.reporting.card_loader.load_run`) into the outputs'
     folder, inside the run folder that holds the manifest."""
     out_dir = Path(out_html).parent
     run_dir = Path(inputs["manifest"]).parent

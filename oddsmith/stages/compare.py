@@ -1,13 +1,13 @@
 """The compare stage: read every candidate's cross-validation results, out-of-fold predictions
-and final model, choose one by the configured rule (:mod:`oddsmith.selection`), and write the
+and final model, choose one by the configured rule (:mod:`oddsmith.fitting.selection`), and write the
 comparison table and the selected candidate with the numbers that decided."""
 
 from __future__ import annotations
 
 import logging
 
+from oddsmith.fitting.selection import compare_candidates
 from oddsmith.io import read_json, read_parquet, write_json
-from oddsmith.selection import compare_candidates
 
 log = logging.getLogger("oddsmith.compare")
 

@@ -14,12 +14,13 @@ import logging
 import numpy as np
 import pandas as pd
 
-from oddsmith import artifacts, metrics
+from oddsmith import artifacts
+from oddsmith.assessment import metrics
+from oddsmith.assessment.fairness import GROUP_COLUMN_PREFIX, attribute_groups, group_summaries
+from oddsmith.data.recipe import load_recipe
 from oddsmith.errors import ArtifactError
-from oddsmith.fairness import GROUP_COLUMN_PREFIX, attribute_groups, group_summaries
+from oddsmith.fitting.predict import predict_frame
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
-from oddsmith.predict import predict_frame
-from oddsmith.recipe import load_recipe
 from oddsmith.settings import CV_ONLY
 
 log = logging.getLogger("oddsmith.evaluate")
@@ -83,35 +84,6 @@ def _intervals(y, p, overall: dict, evaluation: dict) -> dict | None:
                                          max_draws=evaluation["bootstrap_max_draws"], estimates=overall)
 
 
-REPEAT_MEASURES = ("auc", "gini", "ks", "log_loss", "brier", "calibration_intercept", "calibration_slope")
-
-
-def repeat_summary(y, oof: pd.DataFrame) -> dict:
-    """Headline measures of each repeat's out-of-fold predictions, with their mean and range.
-
-    ``oof`` holds one column of predictions per repeat (``p``, ``p_r2``, ...), as the fit
-    stage writes them. The spread shows how much the figures move with the fold assignment
-    alone; the evaluation's tables use repeat 1.
-
-    Returns
-    -------
-    dict
-        ``repeats`` (list of ``{"repeat", <measure>: value}``) and ``spread``
-        (``{<measure>: {"mean", "min", "max"}}``; None where a repeat has no value).
-    """
-    columns = ["p"] + sorted((c for c in oof.columns if c.startswith("p_r")), key=lambda c: int(c[3:]))
-    rows = []
-    for repeat, column in enumerate(columns, start=1):
-        found = metrics.summarise(y, oof[column].to_numpy())
-        rows.append({"repeat": repeat} | {k: found[k] for k in REPEAT_MEASURES})
-    spread = {}
-    for key in REPEAT_MEASURES:
-        values = [row[key] for row in rows]
-        spread[key] = None if any(v is None for v in values) else {
-            "mean": float(np.mean(values)), "min": float(min(values)), "max": float(max(values))}
-    return {"repeats": rows, "spread": spread}
-
-
 def _out_of_fold_predictions(frame: pd.DataFrame, oof_path: str, data: dict, selected: str):
     """The selected candidate's out-of-fold predictions, checked to be the frame's rows in order."""
     oof = read_parquet(oof_path)
@@ -133,7 +105,7 @@ def _out_of_fold_block(y, oof: pd.DataFrame, cross_validation: dict) -> dict:
             "statement": ("No held-out test part: every figure is computed from out-of-fold predictions on all "
                           "rows (each row predicted by the model of the fold that left it out), from repeat 1 "
                           "of the cross-validation."),
-            "by_repeat": repeat_summary(y, oof)}
+            "by_repeat": metrics.repeat_summary(y, oof)}
 
 
 def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, selected_path: str, model_paths: dict,

@@ -9,10 +9,10 @@ import logging
 import numpy as np
 import pandas as pd
 
+from oddsmith.data.diagnostics import design_diagnostics, leakage_screen
+from oddsmith.data.recipe import CLUSTER_LABELS, apply_recipe, dump_recipe, learn_recipe
 from oddsmith.errors import ArtifactError
-from oddsmith.diagnostics import design_diagnostics, leakage_screen
 from oddsmith.io import read_parquet, read_parquet_pieces, release_arrow_memory, write_json, write_parquet_chunks
-from oddsmith.recipe import CLUSTER_LABELS, apply_recipe, dump_recipe, learn_recipe
 
 log = logging.getLogger("oddsmith.features")
 

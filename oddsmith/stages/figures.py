@@ -10,9 +10,10 @@ from __future__ import annotations
 
 import logging
 
-from oddsmith import artifacts, plots
+from oddsmith import artifacts
 from oddsmith.errors import ArgumentError
 from oddsmith.io import read_json, read_parquet, write_bytes_atomic
+from oddsmith.reporting import plots
 
 log = logging.getLogger("oddsmith.figures")
 #: Figures drawn by the ``model_figures`` rule: independent of the cut-off.

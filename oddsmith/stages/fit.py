@@ -5,17 +5,16 @@ reason, and the build goes on with the others."""
 from __future__ import annotations
 
 import logging
-import math
 
 import numpy as np
 import pandas as pd
 
-from oddsmith import metrics, solvers
+from oddsmith.assessment import metrics
+from oddsmith.data.recipe import CLUSTER_LABELS, design_columns, load_recipe
 from oddsmith.errors import ArtifactError, FitError
+from oddsmith.fitting.cross_validation import cross_validate
+from oddsmith.fitting.models import PENALISED_KINDS, fit_design, original_scale
 from oddsmith.io import read_parquet, read_parquet_matrix, sha256_file, write_json, write_parquet
-from oddsmith.models import PENALISED_KINDS, fit_design, inverse_link
-from oddsmith.recipe import CLUSTER_LABELS, design_columns, load_recipe
-from oddsmith.split import fold_columns
 
 log = logging.getLogger("oddsmith.fit")
 OPTION_KEYS = ("grid", "inner_folds", "l1_ratio", "max_iter")
@@ -64,48 +63,6 @@ def fit_options(candidate: dict) -> dict:
     if candidate["kind"] != "elastic_net":
         options.pop("l1_ratio", None)
     return options
-
-
-def cross_validate(values: np.ndarray, names: list[str], y: np.ndarray, folds: pd.DataFrame, *, kind: str,
-                   options: dict, seed: int):
-    """Out-of-fold predictions (one column per repeat) and per-fold metrics."""
-    oof, per_fold = {}, []
-    for repeat, column in enumerate(fold_columns(folds.shape[1]), start=1):
-        fold = folds[column].to_numpy()
-        p = np.full(len(y), np.nan)
-        for k in np.unique(fold):
-            valid = fold == k
-            fit_rows, valid_rows = np.flatnonzero(~valid), np.flatnonzero(valid)
-            model = fit_design(values, names, y, rows=fit_rows, kind=kind, options=options, seed=seed + k)
-            coef = np.r_[model.intercept, [model.coefficients[n] for n in names]]
-            p[valid] = inverse_link(model.link, solvers.linear_predictor(values, valid_rows, coef))
-            row = {"repeat": repeat, "fold": int(k), "n_train": int(fit_rows.size)} | metrics.summarise(y[valid], p[valid])
-            if model.penalty:
-                row["chosen_C"] = model.penalty.get("C")
-            per_fold.append(row)
-            log.info("repeat %d fold %d: log loss %.4f, AUC %s", repeat, k, row["log_loss"], row["auc"])
-        oof["p" if repeat == 1 else f"p_r{repeat}"] = p
-    return oof, per_fold
-
-
-def original_scale(intercept: float, coefficients: dict, names: list[str], recipe: dict) -> dict:
-    """A standardised fit's coefficients per unit of each design column, as the recipe makes it.
-
-    With z = (x - mean) / sd: b_z z = (b_z / sd) x - b_z mean / sd, so each coefficient is
-    divided by its column's training SD and the intercept absorbs the means. The predictions
-    are the same; only the unit changes.
-
-    Examples
-    --------
-    >>> recipe = {"means": {"x": 10.0}, "sds": {"x": 2.0}}
-    >>> original_scale(0.5, {"x": 1.0}, ["x"], recipe)["coefficients"]
-    {'x': 0.5}
-    """
-    per_unit = {c: float(coefficients[c]) / float(recipe["sds"][c]) for c in names}
-    shift = math.fsum(per_unit[c] * float(recipe["means"][c]) for c in names)
-    return {"intercept": float(intercept) - shift, "coefficients": per_unit,
-            "basis": "standardised coefficient divided by the training SD of its design column; intercept "
-                     "adjusted by the training means (features/recipe.json)"}
 
 
 def model_document(final, header: dict, *, names: list[str], recipe: dict) -> dict:

@@ -5,9 +5,9 @@ from __future__ import annotations
 
 import logging
 
-from oddsmith.filehash import CACHE_PATH
+from oddsmith.evidence.filehash import CACHE_PATH
+from oddsmith.evidence.manifest import build_manifest
 from oddsmith.io import write_json
-from oddsmith.manifest import build_manifest
 
 log = logging.getLogger("oddsmith.manifest")
 

@@ -1,12 +1,12 @@
 """The publish stage: copy the finished staging build into ``results/<run>`` once it verifies
-(see :mod:`oddsmith.publish`) and record what was published."""
+(see :mod:`oddsmith.evidence.publish`) and record what was published."""
 
 from __future__ import annotations
 
 import logging
 
+from oddsmith.evidence.publish import publish
 from oddsmith.io import write_text
-from oddsmith.publish import publish
 
 log = logging.getLogger("oddsmith.publish")
 

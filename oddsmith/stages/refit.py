@@ -11,10 +11,10 @@ import logging
 
 import numpy as np
 
+from oddsmith.data.recipe import apply_recipe, load_recipe
 from oddsmith.errors import ArtifactError, FitError
+from oddsmith.fitting.models import PENALISED_KINDS, fit_design
 from oddsmith.io import read_json, read_parquet, sha256_file, write_json
-from oddsmith.models import PENALISED_KINDS, fit_design
-from oddsmith.recipe import apply_recipe, load_recipe
 from oddsmith.stages.fit import fit_options, model_document
 
 log = logging.getLogger("oddsmith.refit")

@@ -13,11 +13,11 @@ from __future__ import annotations
 import logging
 from pathlib import Path
 
-from oddsmith import drift
 from oddsmith.errors import ArgumentError, ConfigError
 from oddsmith.io import canonical_json, write_bytes_atomic, write_parquet
+from oddsmith.reporting import drift
 from oddsmith.resources import template_dir
-from oddsmith.score import (DEFAULT_TOP_K, EXTRA_COLUMN_POLICIES, REFERENCES, ScoringModel, check_batch,
+from oddsmith.use.score import (DEFAULT_TOP_K, EXTRA_COLUMN_POLICIES, REFERENCES, ScoringModel, check_batch,
                             csv_bytes, feature_weights, file_source, load_artifacts, probabilities,
                             read_batch, reason_reference, score_frame, score_summary)
 

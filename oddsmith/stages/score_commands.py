@@ -14,8 +14,8 @@ from pathlib import Path
 from oddsmith import artifacts
 from oddsmith.errors import ArtifactError, ConfigError, ManifestError
 from oddsmith.io import canonical_json, read_json
-from oddsmith.score import (EXTRA_COLUMN_POLICIES, REFERENCES, ScoringModel, load_artifacts, reason_reference)
 from oddsmith.stages.score import card_stylesheets, score_batch, write_outputs
+from oddsmith.use.score import (EXTRA_COLUMN_POLICIES, REFERENCES, ScoringModel, load_artifacts, reason_reference)
 
 #: What ``oddsmith score`` writes into its output folder: the score rule's files, same names.
 OUTPUTS = artifacts.outputs_of("score")
@@ -28,7 +28,7 @@ def load_results_folder(model_dir, *, check=True) -> tuple[ScoringModel, dict]:
     """Load the frozen model of a finished results folder, refusing a tampered one.
 
     The folder must hold a selected model and a ``manifest.json`` of a readable format;
-    :func:`oddsmith.verify.verify_results` must find no problem (every hash matches).
+    :func:`oddsmith.evidence.verify.verify_results` must find no problem (every hash matches).
     Returns the scoring model and the configuration recorded in the manifest.
 
     Raises
@@ -104,7 +104,7 @@ def _readable_manifest_format(fmt) -> bool:
 
 def _verify(folder: Path) -> None:
     try:
-        from oddsmith.verify import verify_results
+        from oddsmith.evidence.verify import verify_results
     except ImportError:
         raise ManifestError(f"cannot check {folder}: this oddsmith has no verify module, and scoring "
                             "refuses an unverified folder") from None
@@ -235,7 +235,7 @@ def _cmd_score(args) -> int:
 
 
 def _cmd_rescore(args) -> int:
-    from oddsmith.rescore import format_rescore, parse_settings, read_record, rescore_row, row_from_file, row_from_record
+    from oddsmith.use.rescore import format_rescore, parse_settings, read_record, rescore_row, row_from_file, row_from_record
 
     if args.row is not None and not args.data:
         raise ConfigError("--row needs --data FILE (the CSV holding that row)")

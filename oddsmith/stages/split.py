@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import logging
 
+from oddsmith.data.split import assign_split, write_assignment
 from oddsmith.io import parquet_columns, read_json, read_parquet, write_json
-from oddsmith.split import assign_split, write_assignment
 
 log = logging.getLogger("oddsmith.split")
 

@@ -5,9 +5,9 @@ from __future__ import annotations
 
 import logging
 
+from oddsmith.assessment.threshold import choose_cutoff, cost_curve
 from oddsmith.io import read_json, read_parquet, write_json, write_parquet
 from oddsmith.settings import COST_KEYS
-from oddsmith.threshold import choose_cutoff, cost_curve
 
 log = logging.getLogger("oddsmith.threshold")
 

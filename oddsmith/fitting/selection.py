@@ -32,7 +32,7 @@ import math
 
 import numpy as np
 
-from oddsmith import metrics
+from oddsmith.assessment import metrics
 from oddsmith.errors import FitError
 
 METRICS = ("log_loss", "brier", "auc", "gini", "ks", "calibration_intercept", "calibration_slope")

@@ -14,9 +14,9 @@ from numbers import Real
 import numpy as np
 import pandas as pd
 
+from oddsmith.assessment.metrics import outcomes_and_probabilities
 from oddsmith.errors import CostError, OddsmithError
 from oddsmith.settings import COST_KEYS, constrained_problem
-from oddsmith.metrics import outcomes_and_probabilities
 
 _ADOPT = ("empirical", "bayes", "constrained")
 _BOOTSTRAP_LEVEL = 0.95

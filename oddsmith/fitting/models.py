@@ -14,7 +14,7 @@ Seven kinds of candidate are supported:
   by stratified inner cross-validation on the rows given, by mean log loss, and the model
   is refitted on all of those rows along the same warm-started path.
 
-Both solvers live in :mod:`oddsmith.solvers`; they visit the rows in blocks, so a fit on the
+Both solvers live in :mod:`oddsmith.fitting.solvers`; they visit the rows in blocks, so a fit on the
 training rows of one fold (``fit_design(..., rows=...)``) never copies those rows, and one
 fit job holds a single copy of its design. The tests check them against the reference
 libraries: estimates, standard errors, log-likelihoods and marginal effects against
@@ -48,8 +48,8 @@ import pandas as pd
 import scipy.linalg
 import scipy.special
 
-from oddsmith import solvers
 from oddsmith.errors import ArgumentError, ArtifactError, FitError, SeparationWarning
+from oddsmith.fitting import solvers
 from oddsmith.settings import PENALISED_KINDS, candidate_defaults
 
 KINDS = ("baseline", "logit", "probit", "cloglog", "l1", "l2", "elastic_net")
@@ -57,7 +57,9 @@ ML_KINDS = ("logit", "probit", "cloglog")
 LINKS = ("logit", "probit", "cloglog")
 MODEL_FORMAT = "oddsmith-model/1"
 INTERCEPT_TERM = "intercept"
-# Recorded in a penalised model's ``penalty`` as the solver of its fits.
+# Recorded in a penalised model's ``penalty`` as the solver of its fits. The text keeps the
+# module's name from before the package had subfolders (it is oddsmith.fitting.solvers now), so
+# that model files stay byte-identical.
 SOLVER = "proximal Newton (oddsmith.solvers)"
 
 # Common practice: the default grid of scikit-learn's LogisticRegressionCV (Cs=10),
@@ -1023,3 +1025,23 @@ def _penalised_notes(separating: list[str]) -> list[str]:
                "penalty keeps these coefficients finite")
     warnings.warn(message, SeparationWarning, stacklevel=5)
     return [message]
+
+
+def original_scale(intercept: float, coefficients: dict, names: list[str], recipe: dict) -> dict:
+    """A standardised fit's coefficients per unit of each design column, as the recipe makes it.
+
+    With z = (x - mean) / sd: b_z z = (b_z / sd) x - b_z mean / sd, so each coefficient is
+    divided by its column's training SD and the intercept absorbs the means. The predictions
+    are the same; only the unit changes.
+
+    Examples
+    --------
+    >>> recipe = {"means": {"x": 10.0}, "sds": {"x": 2.0}}
+    >>> original_scale(0.5, {"x": 1.0}, ["x"], recipe)["coefficients"]
+    {'x': 0.5}
+    """
+    per_unit = {c: float(coefficients[c]) / float(recipe["sds"][c]) for c in names}
+    shift = math.fsum(per_unit[c] * float(recipe["means"][c]) for c in names)
+    return {"intercept": float(intercept) - shift, "coefficients": per_unit,
+            "basis": "standardised coefficient divided by the training SD of its design column; intercept "
+                     "adjusted by the training means (features/recipe.json)"}

@@ -18,9 +18,9 @@ import tempfile
 from pathlib import Path
 
 from oddsmith.errors import OddsmithError
+from oddsmith.evidence.manifest import CARD_DIR, MANIFEST_NAME, unsafe_path_reason
+from oddsmith.evidence.verify import verify_results
 from oddsmith.io import read_json, sha256_file, write_json
-from oddsmith.manifest import CARD_DIR, MANIFEST_NAME, unsafe_path_reason
-from oddsmith.verify import verify_results
 
 
 class ReleaseError(OddsmithError):
@@ -113,7 +113,7 @@ def _fill(staging: Path, run_dir: Path, manifest: dict, record: dict) -> None:
 
 def _card_renderer():
     try:
-        from oddsmith.card import render_card
+        from oddsmith.reporting.card import render_card
     except ImportError:
         return None
     return render_card

@@ -14,9 +14,9 @@ from numbers import Integral, Rational, Real
 import numpy as np
 import pandas as pd
 
-from oddsmith import metrics
+from oddsmith.assessment import metrics
+from oddsmith.assessment.threshold import confusion_at
 from oddsmith.errors import OddsmithError
-from oddsmith.threshold import confusion_at
 
 FOUR_FIFTHS = Fraction(4, 5)
 #: Prefix of the test scores' columns that hold an attribute's group labels (as text).
@@ -445,7 +445,7 @@ def group_comparison_replicates(y, flagged, labels, assessed: list[str], referen
     """Every bootstrap replicate's adverse-impact ratio and TPR/FPR gaps of each group in
     ``assessed`` against ``reference`` (held fixed), NaN where undefined.
 
-    Replicates resample rows as :func:`oddsmith.metrics.bootstrap_rows` states (stratified
+    Replicates resample rows as :func:`oddsmith.assessment.metrics.bootstrap_rows` states (stratified
     by outcome, seeded per replicate), so replicate ``b`` here is the same resample as
     replicate ``b`` of the evaluation's bootstrap.
 

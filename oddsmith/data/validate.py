@@ -2,7 +2,7 @@
 
 Besides the contract, validate checks what later stages will need of the data, so that a
 build stops here rather than after the fits: the split and folds (through the split's own
-checks, :func:`oddsmith.split.feasibility`), blanks in the groups to assess and in features
+checks, :func:`oddsmith.data.split.feasibility`), blanks in the groups to assess and in features
 that refuse them, levels seen only in a test part the cut-off date already fixes, and enough
 rows for every unpenalised candidate's parameters. Nothing is written unless every check
 passes; the raw file is only read.
@@ -19,11 +19,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from oddsmith.contract import PIECE_ROWS, ContractCheck, load_contract, read_raw_pieces
+from oddsmith.data.contract import PIECE_ROWS, ContractCheck, load_contract, read_raw_pieces
+from oddsmith.data.split import feasibility
 from oddsmith.errors import ContractError, DataError, quoted
 from oddsmith.io import (parquet_columns, read_parquet, sha256_file, write_bytes_atomic, write_json,
                          write_parquet_chunks, write_text)
-from oddsmith.split import feasibility
 
 log = logging.getLogger("oddsmith.validate")
 
@@ -182,7 +182,7 @@ def analysis_problems(df: pd.DataFrame, *, config: dict, contract: dict, blanks:
     (method, test_fraction, cutoff_date, group_column), ``cross_validation`` (folds) and
     ``candidates`` (name, kind, features); no seed is read, so a change of seed needs no new
     check. ``df`` needs the :func:`analysis_columns`; the blank cells of the features come
-    from ``blanks`` (column → [count, first ids], as :class:`oddsmith.contract.ContractCheck`
+    from ``blanks`` (column → [count, first ids], as :class:`oddsmith.data.contract.ContractCheck`
     counts them) or, without it, from ``df``.
     """
     data, ids = config["data"], df[config["data"]["id_column"]]
@@ -234,7 +234,7 @@ def _group_problems(df: pd.DataFrame, fairness: dict, ids: pd.Series) -> list[st
 
 
 def _bands_used(values: pd.Series, edges: list) -> int:
-    """How many of the bands (see :func:`oddsmith.fairness.attribute_groups`) hold a value;
+    """How many of the bands (see :func:`oddsmith.assessment.fairness.attribute_groups`) hold a value;
     counted here so that validate does not depend on the fairness module."""
     numbers = values.to_numpy(dtype=float)
     return len(np.unique(np.searchsorted(np.asarray(edges, dtype=float), numbers, side="right")))

@@ -262,14 +262,14 @@ class RefusedFetch(OddsmithError):
 def pdf_bytes(html: str, *, folder) -> bytes:
     """Render the page to PDF bytes; deterministic for the same HTML and library versions.
 
-    The base URL is ``folder``; the model card's fetcher (``oddsmith.card.RunFolderFetcher``)
+    The base URL is ``folder``; the model card's fetcher (``oddsmith.reporting.fetcher.RunFolderFetcher``)
     serves only ``data:`` URLs and files inside it, and a refused fetch fails the render
     (``RefusedFetch``). WeasyPrint's warnings go to stderr (the rule's log).
     """
     import weasyprint
     from weasyprint.urls import FatalURLFetchingError
 
-    from oddsmith.card import RunFolderFetcher
+    from oddsmith.reporting.fetcher import RunFolderFetcher
 
     fetcher = RunFolderFetcher(folder)
     _route_weasyprint_warnings()

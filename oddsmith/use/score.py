@@ -1,7 +1,7 @@
 """Score new rows with the frozen model of a results folder: probability, decision, reasons.
 
 Everything is recomputed from the folder's artifacts (the feature recipe, the selected
-model's JSON, the adopted cut-off and the data contract) through :mod:`oddsmith.predict`,
+model's JSON, the adopted cut-off and the data contract) through :mod:`oddsmith.fitting.predict`,
 the path the evaluate stage uses, so a row scored here gets the probability the card
 describes, bit for bit.
 
@@ -58,13 +58,13 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.csv as pa_csv
 
-from oddsmith.contract import CONTRACT_FORMAT, read_raw, validate_frame
+from oddsmith.data.contract import CONTRACT_FORMAT, read_raw, validate_frame
+from oddsmith.data.recipe import FORMAT as RECIPE_FORMAT
+from oddsmith.data.recipe import recipe_problems
 from oddsmith.errors import ArgumentError, ArtifactError, ContractError
+from oddsmith.fitting.models import MODEL_FORMAT, inverse_link, linear_predictor
+from oddsmith.fitting.predict import model_design
 from oddsmith.io import read_json, read_parquet, read_yaml, sha256_file
-from oddsmith.models import MODEL_FORMAT, inverse_link, linear_predictor
-from oddsmith.predict import model_design
-from oddsmith.recipe import FORMAT as RECIPE_FORMAT
-from oddsmith.recipe import recipe_problems
 
 REFERENCES = ("training_mean", "most_favourable")
 EXTRA_COLUMN_POLICIES = ("reject", "ignore")
@@ -334,7 +334,7 @@ def json_value(value):
 
 
 def design_matrix(sm: ScoringModel, df: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """The model's design matrix and the recipe's per-row flags (through oddsmith.predict)."""
+    """The model's design matrix and the recipe's per-row flags (through oddsmith.fitting.predict)."""
     # Index by id so that recipe errors name rows by their id.
     indexed = df.set_axis(pd.Index(df[sm.id_column].astype(str).to_numpy()), axis=0) \
         if sm.id_column in df.columns else df
@@ -464,6 +464,8 @@ def score_summary(sm: ScoringModel, scored: pd.DataFrame, *, reference: dict, to
             "interactions": "an interaction column's contribution is split half to each of its two features",
             "direction": "reasons are features with a positive contribution: they push the probability of the "
                          "adverse outcome up relative to the reference",
+            # the module's name from before the package had subfolders (now oddsmith/use/score.py),
+            # kept so that the scoring summary stays byte-identical
             "method": "contribution of feature f = sum over its design columns j of w_jf * beta_j * x_j, minus the "
                       "same at the reference; see oddsmith/score.py",
             "times_named": {k: int(v) for k, v in sorted(reasons.value_counts().items())},

@@ -5,7 +5,7 @@ written as the text a CSV cell would hold and goes through the same data contrac
 feature recipe as a scored batch, so a value the contract does not allow (out of range,
 unknown level, empty where not nullable) is refused with the contract's reason, and a
 value the recipe handles by policy (a missing value filled, an unseen level mapped to
-``other``) is flagged. Contributions are those of :mod:`oddsmith.score`: on the model's
+``other``) is flagged. Contributions are those of :mod:`oddsmith.use.score`: on the model's
 link scale, relative to the stated reference, interactions split half to each feature.
 """
 
@@ -16,10 +16,10 @@ from pathlib import Path
 
 import pandas as pd
 
-from oddsmith.contract import read_raw, validate_frame
+from oddsmith.data.contract import read_raw, validate_frame
 from oddsmith.errors import ContractError
-from oddsmith.models import inverse_link, linear_predictor
-from oddsmith.score import (LINK_SCALES, ScoringModel, contributions, design_matrix, feature_weights, flagged,
+from oddsmith.fitting.models import inverse_link, linear_predictor
+from oddsmith.use.score import (LINK_SCALES, ScoringModel, contributions, design_matrix, feature_weights, flagged,
                             json_value, reason_reference)
 
 RECORD_ID = "(record)"

@@ -16,7 +16,7 @@ Two solvers:
   the maximum, as in statsmodels' ``Logit``, ``Probit`` and ``GLM(..., method="newton")``,
   against which the tests check estimates, standard errors and log-likelihoods.
   ``information_and_meat`` adds, in one more pass, the expected information and the middle
-  of a robust or cluster-robust sandwich (``oddsmith.models`` assembles the covariance).
+  of a robust or cluster-robust sandwich (``oddsmith.fitting.models`` assembles the covariance).
 - ``proximal_newton_path``: penalised logistic regression minimising scikit-learn's
   objective ``C * sum(log loss) + l1_ratio * |w|_1 + (1 - l1_ratio) / 2 * |w|^2`` (intercept
   not penalised) along an ascending grid of C, each fit started from the previous one. Each

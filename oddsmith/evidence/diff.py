@@ -19,7 +19,7 @@ from pathlib import Path
 from oddsmith import artifacts
 from oddsmith.artifacts import AUC_INTERVAL_KEYS
 from oddsmith.errors import ArtifactError, ManifestError
-from oddsmith.verify import read_manifest, verify_results
+from oddsmith.evidence.verify import read_manifest, verify_results
 
 #: Test metrics that do not depend on the cut-off.
 THRESHOLD_FREE = ("auc", "gini", "ks", "log_loss", "brier", "calibration_intercept", "calibration_slope",

@@ -9,9 +9,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from oddsmith.data.recipe import apply_recipe, recipe_digest
 from oddsmith.errors import ArtifactError
-from oddsmith.models import linear_predictor, predict_from_dict
-from oddsmith.recipe import apply_recipe, recipe_digest
+from oddsmith.fitting.models import linear_predictor, predict_from_dict
 
 
 def model_design(recipe: dict, model: dict, df: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:

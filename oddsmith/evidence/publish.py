@@ -8,7 +8,7 @@ deletes a job's old outputs before the job runs, but those outputs live in the s
 1. the files the staging manifest lists (artifacts, ``manifest.json``, the card's files named
    in ``card/card.sha256``) are hard-linked into ``results/.<run>.incoming/`` (copied when the
    two folders sit on different devices or the file system has no hard links);
-2. that copy is verified (``oddsmith.verify``) exactly as a user would verify it;
+2. that copy is verified (``oddsmith.evidence.verify``) exactly as a user would verify it;
 3. it is swapped in with two renames (old → ``results/.<run>.previous``, incoming →
    ``results/<run>``) and the previous folder is removed.
 
@@ -27,9 +27,9 @@ from pathlib import Path
 
 from oddsmith import artifacts
 from oddsmith.errors import OddsmithError
+from oddsmith.evidence.manifest import MANIFEST_NAME, RESULTS_DIR, STAGING_DIR, unsafe_path_reason
+from oddsmith.evidence.verify import CARD_HASHES, check_results
 from oddsmith.io import read_json, sha256_file
-from oddsmith.manifest import MANIFEST_NAME, RESULTS_DIR, STAGING_DIR, unsafe_path_reason
-from oddsmith.verify import CARD_HASHES, check_results
 
 
 def folders(run: str, *, project_dir: str | Path = ".") -> dict[str, Path]:

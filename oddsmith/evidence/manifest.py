@@ -3,7 +3,7 @@ that wrote it, plus the raw inputs, the resolved configuration and the environme
 
 The workflow builds in the staging folder ``work/<run>/``; ``manifest.json`` is written there
 by the ``manifest`` rule after every other stage except the card, and the whole folder is
-published as ``results/<run>/`` only when it is complete and verifies (``oddsmith.publish``).
+published as ``results/<run>/`` only when it is complete and verifies (``oddsmith.evidence.publish``).
 The manifest covers every file of the run folder except ``card/`` (rendered after it) and
 itself; the card prints the manifest's SHA-256 and ``card/card.sha256`` binds the card's
 files to that hash. Stamps record the paths the jobs wrote (``work/<run>/...``); files are
@@ -28,7 +28,7 @@ from pathlib import Path, PurePosixPath
 
 from oddsmith import artifacts
 from oddsmith.errors import ManifestError
-from oddsmith.filehash import sha256_remembered
+from oddsmith.evidence.filehash import sha256_remembered
 from oddsmith.io import canonical_json
 
 log = logging.getLogger("oddsmith.manifest")
@@ -252,7 +252,7 @@ def raw_input_entries(roles: dict, *, project_dir: str | Path = ".", hash_cache:
 
     ``roles`` maps each path the build read from outside the run folder to what it is
     (``data``, ``contract``, ``config``, ``scoring batch``). With ``hash_cache``, a file whose
-    state is unchanged since it was last hashed is not read again (:mod:`oddsmith.filehash`).
+    state is unchanged since it was last hashed is not read again (:mod:`oddsmith.evidence.filehash`).
     """
     project_dir = Path(project_dir).resolve()
     full = {path: (project_dir / path).resolve() for path in roles}
@@ -270,7 +270,7 @@ def build_manifest(*, run: str, run_dir: str | Path, stamps, raw_inputs, config:
     """Assemble the manifest of ``run_dir`` (``work/<run>``, as the stamps name it) from the job stamps.
 
     ``raw_inputs`` maps each raw input path (data, contract, config files, a scoring batch) to
-    its role. With ``hash_cache`` (the workflow passes :data:`oddsmith.filehash.CACHE_PATH`), a
+    its role. With ``hash_cache`` (the workflow passes :data:`oddsmith.evidence.filehash.CACHE_PATH`), a
     file whose size, times and inode are those it had when last hashed (by the job that wrote
     it, or by an earlier manifest) is not read again: a file changed after its job finished
     has a new state, is read, and is reported below.

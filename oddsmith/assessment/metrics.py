@@ -31,7 +31,7 @@ def outcomes_and_probabilities(y, p) -> tuple[np.ndarray, np.ndarray]:
     """Return ``y`` as an int array of 0/1 and ``p`` as a float array in [0, 1].
 
     The one check of outcomes and predicted probabilities that the metrics, the cut-off
-    (:mod:`oddsmith.threshold`) and the subgroup measures (:mod:`oddsmith.fairness`) apply.
+    (:mod:`oddsmith.assessment.threshold`) and the subgroup measures (:mod:`oddsmith.assessment.fairness`) apply.
 
     Raises
     ------
@@ -141,7 +141,7 @@ def brier(y, p) -> float:
 
 def _calibration_slope_fit(y: np.ndarray, lp: np.ndarray) -> float:
     """Slope b of ``logit P(y=1) = a + b·lp`` by maximum likelihood (row-blocked Newton)."""
-    from oddsmith import solvers
+    from oddsmith.fitting import solvers
 
     rate = float(np.clip(y.mean(), 1e-12, 1 - 1e-12))
     start = np.array([math.log(rate) - math.log1p(-rate), 0.0])
@@ -928,3 +928,33 @@ def calibration_intercept_interval(y, p, *, level: float = 0.95) -> dict:
     half = float(stats.norm.ppf(0.5 + level / 2.0)) * se
     return {"estimate": a, "se": se, "lower": a - half, "upper": a + half, "level": level,
             "method": WALD_INTERCEPT_METHOD}
+
+
+#: The headline measures reported per cross-validation repeat.
+REPEAT_MEASURES = ("auc", "gini", "ks", "log_loss", "brier", "calibration_intercept", "calibration_slope")
+
+
+def repeat_summary(y, oof) -> dict:
+    """Headline measures of each repeat's out-of-fold predictions, with their mean and range.
+
+    ``oof`` (a data frame) holds one column of predictions per repeat (``p``, ``p_r2``, ...), as the fit
+    stage writes them. The spread shows how much the figures move with the fold assignment
+    alone; the evaluation's tables use repeat 1.
+
+    Returns
+    -------
+    dict
+        ``repeats`` (list of ``{"repeat", <measure>: value}``) and ``spread``
+        (``{<measure>: {"mean", "min", "max"}}``; None where a repeat has no value).
+    """
+    columns = ["p"] + sorted((c for c in oof.columns if c.startswith("p_r")), key=lambda c: int(c[3:]))
+    rows = []
+    for repeat, column in enumerate(columns, start=1):
+        found = summarise(y, oof[column].to_numpy())
+        rows.append({"repeat": repeat} | {k: found[k] for k in REPEAT_MEASURES})
+    spread = {}
+    for key in REPEAT_MEASURES:
+        values = [row[key] for row in rows]
+        spread[key] = None if any(v is None for v in values) else {
+            "mean": float(np.mean(values)), "min": float(min(values)), "max": float(max(values))}
+    return {"repeats": rows, "spread": spread}

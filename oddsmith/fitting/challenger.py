@@ -7,7 +7,7 @@ the features stage writes. The challenger is never a candidate for adoption and 
 stored as a model: only its out-of-fold predictions, per-fold metrics, settings and library
 version are written. Its gap to the selected candidate is the mean paired fold difference,
 with an interval from the corrected resampled t-test's standard error (Nadeau & Bengio 2003,
-:func:`oddsmith.selection.paired_difference`).
+:func:`oddsmith.fitting.selection.paired_difference`).
 """
 
 from __future__ import annotations
@@ -17,11 +17,11 @@ import logging
 import numpy as np
 import pandas as pd
 
-from oddsmith import metrics
+from oddsmith.assessment import metrics
+from oddsmith.data.split import fold_columns
 from oddsmith.errors import ArtifactError, OddsmithError
+from oddsmith.fitting.selection import comparison_row, paired_difference
 from oddsmith.io import read_json, write_json, write_parquet
-from oddsmith.selection import comparison_row, paired_difference
-from oddsmith.split import fold_columns
 
 log = logging.getLogger("oddsmith.challenger")
 
@@ -57,8 +57,8 @@ def cross_validate_trees(values: np.ndarray, y: np.ndarray, folds: pd.DataFrame,
                          threads: int = 1) -> tuple[dict, list[dict]]:
     """Out-of-fold predictions (one column per repeat) and per-fold metrics of the trees.
 
-    Same layout as a candidate's (:func:`oddsmith.stages.fit.cross_validate`): the fold
-    records carry ``repeat``, ``fold``, ``n_train`` and :func:`oddsmith.metrics.summarise`, so
+    Same layout as a candidate's (:func:`oddsmith.fitting.cross_validation.cross_validate`): the fold
+    records carry ``repeat``, ``fold``, ``n_train`` and :func:`oddsmith.assessment.metrics.summarise`, so
     paired fold differences against any candidate line up by ``(repeat, fold)``.
     ``threads`` caps the OpenMP pool the trees use.
     """

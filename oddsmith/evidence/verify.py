@@ -28,10 +28,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from oddsmith import artifacts
-from oddsmith.io import canonical_json, sha256_file
-from oddsmith.manifest import (CARD_DIR, FORMAT_NAME, FORMAT_VERSION, GIT_OVERRIDE_ENV, MANIFEST_NAME,
+from oddsmith.evidence.manifest import (CARD_DIR, FORMAT_NAME, FORMAT_VERSION, GIT_OVERRIDE_ENV, MANIFEST_NAME,
                                STAGING_DIR, config_sha256, git_state, is_hex_digest, run_files, run_relative,
                                unsafe_path_reason)
+from oddsmith.io import canonical_json, sha256_file
 
 MAX_MANIFEST_BYTES = 64 << 20
 CARD_HASHES = artifacts.CARD_HASHES

@@ -1,0 +1,1 @@
+"""Assessment of a fitted model: metrics, the cost-based cut-off and subgroup (fairness) figures."""

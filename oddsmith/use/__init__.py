@@ -1,0 +1,1 @@
+"""Using a frozen model: scoring a later batch and rescoring one record."""
