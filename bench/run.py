@@ -40,6 +40,7 @@ import re
 import shutil
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -74,19 +75,34 @@ IMPORTS = ("import snakemake.script, pandas, pyarrow.parquet, sklearn.linear_mod
 # ---------------------------------------------------------------------------------------
 
 
+#: Seconds between two readings of the 1-minute load while a command runs.
+LOAD_SAMPLE_S = 10
+
+
 def timed(cmd: list[str], *, cwd: Path, env: dict | None = None) -> dict:
-    """Run ``cmd``; return wall seconds, peak RSS of the process tree (MB), output, code."""
+    """Run ``cmd``; return wall seconds, CPU seconds and peak RSS of the process tree (MB),
+    output, code, and the 1-minute load read every ``LOAD_SAMPLE_S`` s while it ran (mean, max)."""
     full_env = dict(os.environ) | ENV | (env or {})
     full_env["PYTHONPATH"] = str(cwd if (cwd / "oddsmith").is_dir() else ROOT)
     started = time.perf_counter()
     proc = subprocess.Popen(cmd, cwd=cwd, env=full_env, stdout=subprocess.PIPE,
                             stderr=subprocess.STDOUT, text=True)
+    readings, done = [load()], threading.Event()
+
+    def sample():
+        while not done.wait(LOAD_SAMPLE_S):
+            readings.append(load())
+    sampler = threading.Thread(target=sample, daemon=True)
+    sampler.start()
     output = proc.stdout.read()
     _, status, usage = os.wait4(proc.pid, 0)
     wall = time.perf_counter() - started
+    done.set()
+    sampler.join()
     proc.returncode = os.waitstatus_to_exitcode(status)
     return {"seconds": wall, "cpu_seconds": usage.ru_utime + usage.ru_stime,
-            "max_rss_mb": usage.ru_maxrss / 1024, "output": output, "returncode": proc.returncode}
+            "max_rss_mb": usage.ru_maxrss / 1024, "output": output, "returncode": proc.returncode,
+            "load_during": [sum(readings) / len(readings), max(readings)]}
 
 
 #: The configuration bench/generate.py writes into each measured project.
@@ -137,15 +153,19 @@ def prepare(work: Path, rows: int) -> dict:
             "csv_mb": (work / "data" / "portfolio.csv").stat().st_size / 2**20}
 
 
+def _number(text: str) -> float | None:
+    return float(text) if text not in ("", "NA", None) else None
+
+
 def job_records(work: Path, run: str) -> list[dict]:
-    """One record per job from Snakemake's benchmark files (wall s, max_rss MB)."""
+    """One record per job from Snakemake's benchmark files (wall s, max_rss MB, CPU s)."""
     records = []
     base = work / "benchmarks" / run
     for path in sorted(base.rglob("*.tsv")):
         with path.open() as handle:
             row = next(csv.DictReader(handle, delimiter="\t"))
         records.append({"job": str(path.relative_to(base).with_suffix("")), "seconds": float(row["s"]),
-                        "max_rss_mb": float(row["max_rss"]) if row["max_rss"] not in ("", "NA") else None})
+                        "max_rss_mb": _number(row["max_rss"]), "cpu_seconds": _number(row.get("cpu_time"))})
     return records
 
 
@@ -245,7 +265,8 @@ def run_serial(work: Path, rows: int, key: str, log, loads: dict) -> dict:
         runs[label] = {"seconds": result["seconds"], "cpu_seconds": result["cpu_seconds"],
                        "max_rss_mb": result["max_rss_mb"], "seconds_by_step": summary.get("seconds_by_step"),
                        "selected": summary.get("selected"), "cutoff": summary.get("cutoff"),
-                       "auc": summary.get("test", {}).get("auc"), "load_after": load()}
+                       "auc": summary.get("test", {}).get("auc"), "load_after": load(),
+                       "load_during": result["load_during"]}
         log(f"[{rows}] {key} {label}: {result['seconds']:.1f} s")
     return runs
 
@@ -263,6 +284,7 @@ def measure(rows: int, log, *, serial_max_rows: int, wait_max_s: int) -> dict:
     before = load()
     full = snakemake(work, check=False)
     loads["full"] = [before, load()]
+    record["load_during"] = {"full": full["load_during"]}
     record["full"] = {"seconds": full["seconds"], "cpu_seconds": full["cpu_seconds"], "jobs": full["jobs"],
                       "load_after": load()}
     record["job_records"] = job_records(work, run)
@@ -285,6 +307,7 @@ def measure(rows: int, log, *, serial_max_rows: int, wait_max_s: int) -> dict:
     before = load()
     cost = snakemake(work)
     loads["cost_only"] = [before, load()]
+    record["load_during"]["cost_only"] = cost["load_during"]
     record["cost_only"] = {"seconds": cost["seconds"], "cpu_seconds": cost["cpu_seconds"], "jobs": cost["jobs"]}
     (work / BENCH_CONFIG).write_text(original)
     snakemake(work)  # back to the measured configuration (not timed)
@@ -354,8 +377,15 @@ def _load_text(r: dict) -> str:
     if "load_first_check" in load_:
         text += f" (first check {load_['load_first_check']:.2f}, waited {load_['waited_s']} s)"
     if "loads" in r:
-        return text + "; before → after each step: " + ", ".join(
+        during = {step: v for step, v in r.get("load_during", {}).items()}
+        during |= {f"{key}_{label}": v["load_during"] for key in SERIAL_SCRIPTS
+                   for label, v in (r.get(key) or {}).items() if "load_during" in v}
+        text += "; before → after each step: " + ", ".join(
             f"{step} {a:.2f} → {b:.2f}" for step, (a, b) in r["loads"].items()) + "."
+        if during:
+            text += (f" Read every {LOAD_SAMPLE_S} s while each step ran (mean / max): "
+                     + ", ".join(f"{step} {m:.2f} / {x:.2f}" for step, (m, x) in during.items()) + ".")
+        return text
     serial = ", ".join(f"{k} {v['load_after']:.2f}" for k, v in r.get("serial", {}).items())
     return text + f"; after the build {r['full']['load_after']:.2f}; after the serial runs: {serial}."
 
@@ -457,12 +487,14 @@ def size_lines(r: dict) -> list[str]:
              + (f", {cpu}." if cpu else "."),
              _serial_steps(r),
              f"Cost-only rebuild re-ran: {', '.join(r['cost_only']['jobs'])}.", "",
-             "| job | wall s | max_rss MB | max_rss ÷ data | (max_rss − imports) ÷ data |", "|---|---:|---:|---:|---:|"]
+             "| job | wall s | CPU s | max_rss MB | max_rss ÷ data | (max_rss − imports) ÷ data |",
+             "|---|---:|---:|---:|---:|---:|"]
     for j in sorted(r["job_records"], key=lambda j: -j["seconds"]):
         rss, data, base = j["max_rss_mb"], r["data_in_memory_mb"], r["import_baseline_mb"]
         share = "—" if rss is None else f"{rss / data:.2f}"
         above = "—" if rss is None else f"{(rss - base) / data:.2f}"
-        lines.append(f"| {j['job']} | {j['seconds']:.1f} | {_fmt(rss, 0)} | {share} | {above} |")
+        lines.append(f"| {j['job']} | {j['seconds']:.1f} | {_fmt(j.get('cpu_seconds'))} | {_fmt(rss, 0)} | {share} | "
+                     f"{above} |")
     total = sum(j["seconds"] for j in r["job_records"])
     peaks = "; ".join(f"{key} {max(v['max_rss_mb'] for v in r[key].values()):.0f} MB"
                       for key in SERIAL_SCRIPTS if r.get(key))
@@ -501,6 +533,18 @@ def report(records: list[dict], *, kept: str = "") -> str:
     return text + ("\n" + kept if kept else "")
 
 
+def with_job_cpu(record: dict, work: Path) -> dict:
+    """A saved record whose job records lack CPU seconds, completed from the benchmark files
+    where those still hold the measured run (same wall seconds; the cost-only rebuild
+    rewrites the files of the jobs it reruns, and those stay without)."""
+    files = {j["job"]: j for j in job_records(work, record["run"])} if (work / "benchmarks").is_dir() else {}
+    for j in record.get("job_records", []):
+        found = files.get(j["job"])
+        if "cpu_seconds" not in j and found and abs(found["seconds"] - j["seconds"]) < 1e-9:
+            j["cpu_seconds"] = found["cpu_seconds"]
+    return record
+
+
 #: Sections of results.md written by hand, kept when the runner rewrites the file.
 KEPT_FROM = "## Reruns"
 
@@ -533,7 +577,7 @@ def main() -> None:
     records, kept = [], kept_sections()
     for rows in args.rows:
         saved = WORK / f"n{rows}" / "measure.json"
-        records.append(json.loads(saved.read_text()) if args.report_only else
+        records.append(with_job_cpu(json.loads(saved.read_text()), WORK / f"n{rows}") if args.report_only else
                        measure(rows, log, serial_max_rows=args.serial_max_rows, wait_max_s=args.load_wait))
         # Rewritten after every size, so a later size that fails leaves the earlier ones reported.
         (BENCH / "results.md").write_text(report(records, kept=kept))
