@@ -40,8 +40,6 @@ import yaml
 from sklearn.metrics import brier_score_loss, log_loss, roc_auc_score, roc_curve
 from sklearn.model_selection import StratifiedKFold, train_test_split
 
-from oddsmith.fitting.solvers import proximal_newton_path  # the penalised solver (see docstring)
-
 
 def design(df: pd.DataFrame, features: list[dict]) -> pd.DataFrame:
     """Numeric columns as they are; categoricals as 0/1 columns without the reference level."""
@@ -72,6 +70,8 @@ def fit_ml(kind: str, X: np.ndarray, y: np.ndarray):
 def fit_penalised(X: np.ndarray, y: np.ndarray, *, grid: list[float], inner_folds: int,
                   l1_ratio: float, seed: int):
     """Inner stratified CV over the grid (warm starts), then refit at the chosen C."""
+    from oddsmith.fitting.solvers import proximal_newton_path  # the penalised solver (see docstring)
+
     grid = sorted(grid)
     losses = np.zeros((inner_folds, len(grid)))
     inner = StratifiedKFold(n_splits=inner_folds, shuffle=True, random_state=seed)
@@ -82,17 +82,23 @@ def fit_penalised(X: np.ndarray, y: np.ndarray, *, grid: list[float], inner_fold
     chosen = grid[int(np.argmin(losses.mean(axis=0)))]
     coef, _ = proximal_newton_path(X, y, grid[: grid.index(chosen) + 1], rows=None,
                                    l1_ratio=l1_ratio, max_iter=1000)[-1]
-    return lambda Z: scipy.special.expit(coef[0] + Z @ coef[1:])
+
+    def predict(Z):
+        return scipy.special.expit(coef[0] + Z @ coef[1:])
+    predict.C = chosen  # reported beside the results
+    return predict
 
 
-def fit(candidate: dict, X: np.ndarray, y: np.ndarray, seed: int):
+def fit(candidate: dict, X: np.ndarray, y: np.ndarray, seed: int, *, penalised=fit_penalised):
+    """Fit one candidate; ``penalised`` fits the l1 and l2 kinds (bench/serial_analyst.py
+    passes scikit-learn's own)."""
     kind = candidate["kind"]
     if kind == "baseline":
         rate = y.mean()
         return lambda Z: np.full(len(Z), rate)
     if kind in ("logit", "probit", "cloglog"):
         return fit_ml(kind, X, y)
-    return fit_penalised(X, y, grid=candidate["grid"], inner_folds=candidate.get("inner_folds", 3),
+    return penalised(X, y, grid=candidate["grid"], inner_folds=candidate.get("inner_folds", 3),
                          l1_ratio=1.0 if kind == "l1" else 0.0, seed=seed)
 
 
@@ -118,8 +124,10 @@ def cost_cutoff(y: np.ndarray, p: np.ndarray, cost_fp: float, cost_fn: float) ->
     return float(cutoffs[best]), float(cost[best])
 
 
-def main() -> None:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+def main(*, penalised=fit_penalised, description: str = __doc__) -> Path:
+    """Parse ``--project`` and ``--out``, run the whole analysis (the penalised candidates
+    fitted by ``penalised``) and return the path of the summary written."""
+    parser = argparse.ArgumentParser(description=description.splitlines()[0])
     parser.add_argument("--project", type=Path, required=True)
     parser.add_argument("--out", type=Path, required=True)
     args = parser.parse_args()
@@ -148,19 +156,21 @@ def main() -> None:
     for cand in candidates:
         candidate_started = time.perf_counter()
         X = (X_std if cand["kind"] in ("l1", "l2") else X_raw)[train]
-        oof, per_fold = np.empty(train.size), []
+        oof, per_fold, chosen = np.empty(train.size), [], []
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             for k in range(cv["folds"]):
                 va = folds == k
-                predict = fit(cand, X[~va], y_train[~va], seed=cv["seed"] + k)
+                predict = fit(cand, X[~va], y_train[~va], seed=cv["seed"] + k, penalised=penalised)
                 oof[va] = predict(X[va])
+                chosen.append(getattr(predict, "C", None))
                 per_fold.append(fold_metrics(y_train[va], oof[va]))
-            finals[cand["name"]] = fit(cand, X, y_train, seed=cv["seed"])
+            finals[cand["name"]] = fit(cand, X, y_train, seed=cv["seed"], penalised=penalised)
+            chosen.append(getattr(finals[cand["name"]], "C", None))
         losses = np.array([f["log_loss"] for f in per_fold])
         results[cand["name"]] = {"oof": oof, "mean": losses.mean(), "se": losses.std(ddof=1) / np.sqrt(losses.size),
                                  "n_parameters": X.shape[1] + 1 if cand["kind"] != "baseline" else 1,
-                                 "folds": per_fold}
+                                 "folds": per_fold, "C_by_fold_then_refit": chosen}
         seconds[cand["name"]] = time.perf_counter() - candidate_started
     best = min(results, key=lambda n: results[n]["mean"])
     within = [n for n in results if results[n]["mean"] <= results[best]["mean"] + results[best]["se"]]
@@ -184,7 +194,8 @@ def main() -> None:
                "cutoff_interval": [float(np.quantile(boot, 0.025)), float(np.quantile(boot, 0.975))],
                "test": fold_metrics(y_test, p_test) | {"flag_rate": float(flag.mean()),
                                                        "cost_per_1000": 1000 * (costs["false_positive"] * fp + costs["false_negative"] * fn) / y_test.size},
-               "segments": {}, "cv": {n: {"log_loss_mean": r["mean"], "se": r["se"]} for n, r in results.items()}}
+               "segments": {}, "cv": {n: {"log_loss_mean": r["mean"], "se": r["se"], "C_by_fold_then_refit": r["C_by_fold_then_refit"]}
+                      for n, r in results.items()}}
     for name in cfg["fairness"]["segments"]:
         groups = df[name].to_numpy()[test]
         summary["segments"][name] = {str(g): {"n": int(np.sum(groups == g)), "flag_rate": float(flag[groups == g].mean()),
@@ -195,6 +206,7 @@ def main() -> None:
     args.out.write_text(json.dumps(summary, indent=1, default=float))
     print(f"selected {selected}, cut-off {cutoff:.4f}, test AUC {summary['test']['auc']:.4f}, "
           f"{summary['seconds']:.1f} s")
+    return args.out
 
 
 if __name__ == "__main__":

@@ -1,6 +1,7 @@
 """Snakemake script of the validate rule: raw data + contract → typed snapshot and report."""
 
 from oddsmith.data.validate import run_validate
+from oddsmith.evidence.filehash import CACHE_PATH
 from oddsmith.runner import stage
 
 stage(
@@ -13,4 +14,5 @@ stage(
     out_report=snakemake.output.report,  # noqa: F821
     out_summary=snakemake.output.summary,  # noqa: F821
     out_contract=snakemake.output.contract,  # noqa: F821
+    hash_cache=CACHE_PATH,
 )

@@ -4,6 +4,7 @@ problems, a non-zero exit, no snapshot, and an untouched input file."""
 from __future__ import annotations
 
 import json
+import os
 from pathlib import Path
 
 import numpy as np
@@ -13,6 +14,7 @@ import pytest
 from oddsmith.config import check_config
 from oddsmith.data.validate import run_validate
 from oddsmith.errors import ContractError
+from oddsmith.evidence.filehash import file_state
 from oddsmith.io import sha256_file
 
 from conftest import ROOT, run_snakemake
@@ -28,10 +30,10 @@ def cfg(demo_config):
     return check_config(demo_config, project_dir=ROOT)
 
 
-def _run(cfg, data: Path, out: Path, contract=CONTRACT):
+def _run(cfg, data: Path, out: Path, contract=CONTRACT, **options):
     return run_validate(config=cfg, data_path=str(data), contract_path=str(contract),
                         out_data=str(out / "data.parquet"), out_report=str(out / "report.json"),
-                        out_summary=str(out / "summary.txt"))
+                        out_summary=str(out / "summary.txt"), **options)
 
 
 def _expect_failure(cfg, tmp_path, data: Path, *fragments, contract=CONTRACT):
@@ -67,6 +69,20 @@ def test_demo_data_validates(cfg, tmp_path):
     assert report["column_profile"]["guarantor_score"]["missing_share"] > 0
     assert "Peduzzi" in report["epv_source"]
     assert sha256_file(DEMO) == before
+
+
+def test_raw_hash_is_taken_from_the_remembered_hashes(cfg, tmp_path):
+    # In a build the workflow has hashed the raw file when it started (oddsmith.evidence.filehash);
+    # validate takes that hash for an unchanged file instead of reading every byte again.
+    data = _write(tmp_path, pd.read_csv(DEMO, nrows=400))
+    cache = tmp_path / "hashes.json"
+    cache.write_text(json.dumps({os.path.abspath(data): {"state": file_state(data), "sha256": "f" * 64}}))
+    assert _run(cfg, data, tmp_path / "a", hash_cache=cache)["source"]["sha256"] == "f" * 64
+    # A changed file (another state) is read; so is every file without remembered hashes.
+    data.write_bytes(data.read_bytes())
+    os.utime(data, ns=(1, 1))
+    assert _run(cfg, data, tmp_path / "b", hash_cache=cache)["source"]["sha256"] == sha256_file(data)
+    assert _run(cfg, data, tmp_path / "c")["source"]["sha256"] == sha256_file(data)
 
 
 def test_missing_file(cfg, tmp_path):

@@ -752,9 +752,13 @@ def _calibration_replicates(w: np.ndarray, y_s: np.ndarray, lp_s: np.ndarray) ->
     wy = w @ y_s
     n = w.sum(axis=1)
 
+    def counts_of(rows):
+        # ``rows`` is a sorted subset of the replicates: all of them means w itself (no copy).
+        return w if rows.size == w.shape[0] else w[rows]
+
     def slope_model(params, rows):
         eta = params[:, :1] + params[:, 1:] * lp_s
-        q, wr = expit(eta), w[rows]
+        q, wr = expit(eta), counts_of(rows)
         loglik = (wr * (y_s * eta - np.logaddexp(0.0, eta))).sum(axis=1)
         resid, v = wr * (y_s - q), wr * q * (1.0 - q)
         g_a, g_s = resid.sum(axis=1), resid @ lp_s
@@ -766,7 +770,7 @@ def _calibration_replicates(w: np.ndarray, y_s: np.ndarray, lp_s: np.ndarray) ->
 
     def offset_model(params, rows):
         eta = params[:, :1] + lp_s
-        q, wr = expit(eta), w[rows]
+        q, wr = expit(eta), counts_of(rows)
         loglik = (wr * (y_s * eta - np.logaddexp(0.0, eta))).sum(axis=1)
         with np.errstate(divide="ignore", invalid="ignore"):
             step = ((wy[rows] - (wr * q).sum(axis=1)) / (wr * q * (1.0 - q)).sum(axis=1))[:, None]

@@ -22,6 +22,7 @@ import pandas as pd
 from oddsmith.data.contract import PIECE_ROWS, ContractCheck, load_contract, read_raw_pieces
 from oddsmith.data.split import feasibility
 from oddsmith.errors import ContractError, DataError, quoted
+from oddsmith.evidence.filehash import sha256_remembered
 from oddsmith.io import (parquet_columns, read_parquet, sha256_file, write_bytes_atomic, write_json,
                          write_parquet_chunks, write_text)
 
@@ -311,9 +312,14 @@ PARQUET_CHUNK_ROWS = 131_072
 
 
 def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: str, out_report: str, out_summary: str,
-                 out_contract: str | None = None, piece_rows: int = PIECE_ROWS) -> dict:
+                 out_contract: str | None = None, piece_rows: int = PIECE_ROWS, hash_cache: str | None = None) -> dict:
     """Check the raw data against contract and config; write the snapshot, report, summary,
     and a byte copy of the contract (so a results folder carries the contract it was checked by).
+
+    ``hash_cache``: the project's remembered file hashes (:mod:`oddsmith.evidence.filehash`). The
+    workflow hashes the raw file when it starts, so in a build the report's SHA-256 of it
+    comes from there while the file is unchanged, rather than from a second reading of every
+    byte; without it (or after a change) the file is read.
 
     The file is read, typed and checked ``piece_rows`` rows at a time; the typed rows go
     straight into a scratch Parquet file beside ``out_data`` (row groups of
@@ -340,7 +346,8 @@ def run_validate(*, config: dict, data_path: str, contract_path: str, out_data: 
         check.finish(pieces)
         _store_whole_numbers(scratch, check.whole_number_columns())
         report = _checked_report(scratch, check, config=config, contract=contract)
-        report["source"] = {"path": str(data_path), "sha256": sha256_file(data_path), "contract": str(contract_path),
+        raw_sha256 = sha256_remembered([data_path], cache=hash_cache)[str(data_path)]
+        report["source"] = {"path": str(data_path), "sha256": raw_sha256, "contract": str(contract_path),
                             "contract_sha256": sha256_file(contract_path)}
         report["ignored_columns"] = [c for c in check.raw_columns if c not in contract["columns"]]
         report["target_encoding"] = f"{data['target']} = 1 where the raw value is {data['positive_label']!r}, else 0"
