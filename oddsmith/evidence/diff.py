@@ -349,7 +349,8 @@ def register(sub) -> None:
     """Add ``oddsmith diff`` to the command line."""
     import argparse
 
-    p = sub.add_parser("diff", help="what changed between two results or release folders (exit 0 same, 1 differ)",
+    p = sub.add_parser("diff", help="what changed between two results or release folders "
+                                    "(exit 0 same, 1 differ, 2 unverifiable)",
                        description=DIFF_DESCRIPTION, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("a", metavar="A", help="the reference folder, e.g. a release")
     p.add_argument("b", metavar="B", help="the folder to compare with it, e.g. the current results")
