@@ -154,8 +154,8 @@ BAD_DATA = [
     Bad("blank_id", _set("application_id", [3], ""), ("application_id",)),
     Bad("whitespace_cell", _set("credit_score", [5], "   "), ("credit_score", "LA-000006")),
     # file structure
-    # a short row reads as blank trailing cells (pandas fills them): refused only because those are not nullable
-    Bad("ragged_short_row", _text_with(_short_row), ("serious_delinquency", "LA-000004=(missing)")),
+    # a short row would read as blank trailing cells (pandas fills them); it is refused as a short row
+    Bad("ragged_short_row", _text_with(_short_row), ("1 row(s) have fewer fields than the header's 14", "line 5 (12)")),
     Bad("unclosed_quote", _text_with(lambda t: t.replace(b"\nLA-000005,", b'\n"LA-000005,', 1)), ("EOF inside string",)),
     Bad("header_with_spaces", _text_with(_header_renamed(",region,", ", region ,")), ("region",)),
     Bad("huge_header_name", _text_with(_header_renamed(",region,", "," + "r" * 200_000 + ",")), ("cut; 200,000 characters",)),

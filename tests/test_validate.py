@@ -491,6 +491,34 @@ def test_a_hash_shared_by_different_ids_is_not_a_repeat(cfg, tmp_path, monkeypat
     _run_in_pieces(cfg, _write(tmp_path, frame), tmp_path / "ok", 7)
 
 
+def test_rows_cut_short_are_refused_in_any_piece_all_at_once(cfg, tmp_path):
+    # A row with fewer fields than the header would read as blank trailing cells, reported (or,
+    # for nullable columns, accepted) as missing values; it is refused as the short row it is.
+    frame = _demo_frame(60)
+    path = _write(tmp_path, frame)
+    lines = path.read_text().splitlines()
+    for k in (9, 45):  # lines 10 and 46: the second and seventh pieces of 7 rows
+        lines[k] = lines[k].rsplit(",", 3)[0]
+    path.write_text("\n".join(lines) + "\n")
+    with pytest.raises(ContractError) as err:
+        _run_in_pieces(cfg, path, tmp_path / "validated", 7)
+    assert "2 row(s) have fewer fields than the header's 14: line 10 (11), line 46 (11)" in str(err.value)
+    out = tmp_path / "validated"
+    assert not out.exists() or not any(out.iterdir())
+
+
+def test_a_blank_last_cell_with_its_comma_is_not_a_short_row(cfg, tmp_path):
+    frame = _demo_frame(60)
+    last = frame.columns[-1]
+    path = _write(tmp_path, frame)
+    lines = path.read_text().splitlines()
+    lines[20] = lines[20].rsplit(",", 1)[0] + ","  # the last cell emptied, its comma kept
+    path.write_text("\n".join(lines) + "\n")
+    with pytest.raises(ContractError) as err:  # refused by the column's own rule, not as short
+        _run_in_pieces(cfg, path, tmp_path / "validated", 7)
+    assert "fewer fields" not in str(err.value) and last in str(err.value)
+
+
 def test_ragged_row_in_a_later_piece_names_its_line(cfg, tmp_path):
     path = _write(tmp_path, _demo_frame(60))
     lines = path.read_text().splitlines()

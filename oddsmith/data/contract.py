@@ -75,7 +75,8 @@ def read_raw(path: str | Path, *, encoding: str = "utf-8") -> pd.DataFrame:
     refused with the offset of the first bad byte. The whole file is held as text; the
     validate stage reads it in pieces instead (:func:`read_raw_pieces`).
     """
-    return next(_raw_pieces(path, encoding=encoding, rows=None, columns=None))
+    (whole,) = _raw_pieces(path, encoding=encoding, rows=None, columns=None)  # one piece, checks run to the end
+    return whole
 
 
 def read_raw_pieces(path: str | Path, *, encoding: str = "utf-8", rows: int = PIECE_ROWS,
@@ -110,19 +111,85 @@ def _raw_pieces(path, *, encoding: str, rows: int | None, columns: list[str] | N
     else:
         reader = pd.read_csv(path, chunksize=rows, **options)
         pieces = _parsed(path, lambda: reader)
+    short_rows = _ShortRows(path, codec, len(header)) if columns is None else None
     try:
         seen = False
         for piece in pieces:
             if not seen:
                 _check_first_piece(path, piece)
                 seen = True
+            if short_rows is not None:
+                short_rows.add(piece)
             piece.attrs["header"] = header
             yield piece
         if not seen:
             raise ContractError(f"data file {path} has a header but no data rows")
+        if short_rows is not None:
+            short_rows.finish()
     finally:
         if reader is not None:
             reader.close()
+        if short_rows is not None:
+            short_rows.close()
+
+
+class _ShortRows:
+    """Rows with fewer fields than the header, which pandas reads as blank trailing cells.
+
+    A row cut short (a truncated export, a lost line end) would otherwise reach the checks as
+    missing values. The CSV is read a second time, record by record, only from the first piece
+    whose last column holds a blank (a short row always leaves it blank), and in step with the
+    pieces, so a file without such blanks is not read twice. Every short row is reported at
+    once, after the last piece.
+    """
+
+    def __init__(self, path: Path, codec: str, fields: int):
+        self.path, self.codec, self.fields = path, codec, fields
+        self.rows_before = 0        # data rows in the pieces already seen
+        self.handle = self.records = None
+        self.found: list[tuple[int, int]] = []  # (line, fields found)
+
+    def add(self, piece: pd.DataFrame) -> None:
+        if self.records is None:
+            if len(piece.columns) != self.fields or not piece.iloc[:, -1].isna().any():
+                self.rows_before += len(piece)
+                return
+            self._start()
+        for _ in range(len(piece)):
+            record = next(self.records, None)
+            if record is None:  # out of step with pandas (should not happen): stop looking
+                self.close()
+                self.records = iter(())
+                return
+            if len(record) < self.fields:
+                self.found.append((self.reader.line_num, len(record)))
+        self.rows_before += len(piece)
+
+    def _start(self) -> None:
+        self.limit = csv.field_size_limit(sys.maxsize)
+        self.handle = self.path.open(encoding=self.codec, newline="")
+        self.reader = csv.reader(self.handle)
+        next(self.reader, None)  # the header
+        # pandas skips blank lines; so do the records compared with its rows
+        self.records = (record for record in self.reader if record)
+        for _ in range(self.rows_before):
+            next(self.records, None)
+
+    def finish(self) -> None:
+        if not self.found:
+            return
+        shown = ", ".join(f"line {line} ({found})" for line, found in self.found[:EXAMPLES * 2])
+        more = f" and {len(self.found) - EXAMPLES * 2:,} more" if len(self.found) > EXAMPLES * 2 else ""
+        raise ContractError(
+            f"data file {self.path}: {len(self.found):,} row(s) have fewer fields than the header's "
+            f"{self.fields}: {shown}{more} (fields found in brackets); a row cut short would read its last "
+            f"cells as blank: repair or remove those rows, or add the missing commas if the cells are empty")
+
+    def close(self) -> None:
+        if self.handle is not None:
+            self.handle.close()
+            csv.field_size_limit(self.limit)
+            self.handle = None
 
 
 def _parsed(path: Path, open_pieces):
