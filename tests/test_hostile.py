@@ -156,7 +156,7 @@ BAD_DATA = [
     # file structure
     # a short row would read as blank trailing cells (pandas fills them); it is refused as a short row
     Bad("ragged_short_row", _text_with(_short_row), ("1 row(s) have fewer fields than the header's 14", "line 5 (12)")),
-    Bad("unclosed_quote", _text_with(lambda t: t.replace(b"\nLA-000005,", b'\n"LA-000005,', 1)), ("EOF inside string",)),
+    Bad("unclosed_quote", _text_with(lambda t: t.replace(b"\nLA-000005,", b'\n"LA-000005,', 1)), ("line 6: a double quote opens a value that is never closed",)),
     Bad("header_with_spaces", _text_with(_header_renamed(",region,", ", region ,")), ("region",)),
     Bad("huge_header_name", _text_with(_header_renamed(",region,", "," + "r" * 200_000 + ",")), ("cut; 200,000 characters",)),
     Bad("nul_byte_in_cell", _text_with(lambda t: t.replace(b",coastal,", b",coa\x00stal,", 1)), ("region",)),

@@ -107,10 +107,10 @@ def _raw_pieces(path, *, encoding: str, rows: int | None, columns: list[str] | N
     options = dict(dtype=str, keep_default_na=False, na_values=[""], encoding=codec, usecols=columns)
     if rows is None:
         reader = None
-        pieces = _parsed(path, lambda: iter([pd.read_csv(path, **options)]))
+        pieces = _parsed(path, lambda: iter([pd.read_csv(path, **options)]), codec)
     else:
         reader = pd.read_csv(path, chunksize=rows, **options)
-        pieces = _parsed(path, lambda: reader)
+        pieces = _parsed(path, lambda: reader, codec)
     short_rows = _ShortRows(path, codec, len(header)) if columns is None else None
     try:
         seen = False
@@ -192,7 +192,7 @@ class _ShortRows:
             self.handle = None
 
 
-def _parsed(path: Path, open_pieces):
+def _parsed(path: Path, open_pieces, codec: str):
     """The pieces of a CSV reader, a parser error turned into a message naming the line."""
     try:
         pieces = open_pieces()
@@ -203,7 +203,7 @@ def _parsed(path: Path, open_pieces):
                 return
             yield piece
     except pd.errors.ParserError as exc:
-        raise ContractError(_parser_message(path, exc)) from None
+        raise ContractError(_parser_message(path, exc, codec)) from None
 
 
 def _check_first_piece(path: Path, df: pd.DataFrame) -> None:
@@ -229,8 +229,13 @@ def _header(path: Path, codec: str) -> list[str]:
         csv.field_size_limit(limit)
 
 
-def _parser_message(path: Path, exc: Exception) -> str:
-    """A ragged row: the line, the field counts expected (the header's) and found."""
+def _parser_message(path: Path, exc: Exception, codec: str = "utf-8-sig") -> str:
+    """A ragged row: the line, the field counts expected (the header's) and found; or the line
+    of a double quote that is never closed."""
+    if "EOF inside string" in str(exc):
+        return (f"data file {path}, line {_unclosed_quote_line(path, codec)}: a double quote opens a value "
+                f"that is never closed, so the rest of the file would read as one cell; close the quote, or "
+                f"remove it if it belongs to the value (a quote inside a quoted value is written twice: \"\")")
     found = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", str(exc))
     if not found:
         return f"data file {path} cannot be read as CSV: {quoted(str(exc), limit=200)}"
@@ -239,6 +244,27 @@ def _parser_message(path: Path, exc: Exception) -> str:
         f"data file {path}, line {line}: expected {expected} fields (as many as the header has), "
         f"found {seen}; a value that contains a comma must be enclosed in double quotes"
     )
+
+
+def _unclosed_quote_line(path: Path, codec: str) -> int:
+    """The line on which the file's last record starts: the one whose quote swallows the rest
+    (pandas counts rows, not lines, once a value holds a line break)."""
+    limit = csv.field_size_limit(sys.maxsize)
+    start = 1
+    try:
+        with path.open(encoding=codec, newline="") as handle:
+            reader = csv.reader(handle)
+            while True:
+                before = reader.line_num
+                try:
+                    next(reader)
+                except StopIteration:
+                    return start
+                except csv.Error:
+                    return before + 1
+                start = before + 1
+    finally:
+        csv.field_size_limit(limit)
 
 
 def _check_decodes(path: Path, codec: str, encoding: str, chunk_bytes: int = 1 << 24) -> bool:
