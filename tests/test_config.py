@@ -173,6 +173,26 @@ def test_bad_bands(demo_config, root, entry, fragment):
     assert fragment in _problems(demo_config, project_dir=root)
 
 
+def test_segments_take_the_same_forms_as_sensitive_attributes(demo_config, root):
+    demo_config["fairness"]["segments"] = [{"name": "region", "blanks": "unknown"},
+                                           {"name": "credit_score", "bands": [600, 700]}]
+    cfg = check_config(demo_config, project_dir=root)
+    assert cfg["fairness"]["segments"] == ["region", "credit_score"]
+    assert cfg["fairness"]["blank_groups"] == {"region": "unknown"}
+    assert cfg["fairness"]["bands"] == {"credit_score": [600.0, 700.0]}
+
+
+@pytest.mark.parametrize("segments, fragment", [
+    ([{"name": "credit_score", "bands": [700, 600]}], "fairness.segments.0.bands ('credit_score'): expected strictly"),
+    (["region", "region"], "fairness.segments.1: 'region' is listed more than once"),
+    (["owner_age_band"], "fairness.segments: ['owner_age_band'] also listed under fairness.sensitive"),
+    ([{"name": "region", "colour": "red"}], "fairness.segments.0: Additional properties are not allowed"),
+])
+def test_bad_segments(demo_config, root, segments, fragment):
+    demo_config["fairness"]["segments"] = segments
+    assert fragment in _problems(demo_config, project_dir=root)
+
+
 def test_long_values_are_cut_in_config_messages(demo_config, root):
     demo_config["cross_validation"]["folds"] = "9" * 100_000
     message = _problems(demo_config, project_dir=root)

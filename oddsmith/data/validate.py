@@ -220,8 +220,7 @@ def _group_problems(df: pd.DataFrame, fairness: dict, ids: pd.Series) -> list[st
                 problems.append(
                     f"fairness.{key}: column '{name}' is blank in {int(missing.sum())} row(s), e.g. ids "
                     f"{_id_examples(ids, missing)}; every row needs a group: fill them in the data with an "
-                    + (f"explicit group, or make the blanks a group of their own: {{name: {name}, blanks: not stated}}"
-                       if key == "sensitive" else "explicit group (a segment has no blank-group option)")
+                    + f"explicit group, or make the blanks a group of their own: {{name: {name}, blanks: not stated}}"
                 )
                 continue
             edges = fairness.get("bands", {}).get(name)
