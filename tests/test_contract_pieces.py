@@ -34,6 +34,19 @@ def test_csv_pieces_refuse_a_header_without_rows_and_a_bad_piece_size(tmp_path):
         read_raw_pieces(path, rows=0)
 
 
+@pytest.mark.parametrize("rows", [None, 1, 2])
+def test_short_rows_are_told_apart_from_skipped_lines_and_values_with_line_breaks(tmp_path, rows):
+    # Blank lines and lines of spaces or tabs are skipped by the reader (not rows); a quoted value
+    # spans two lines; a blank last cell written with its comma is a full row. Only line 8 is short.
+    path = tmp_path / "d.csv"
+    path.write_text('id,text,x\n1,"two\nlines",3\n\n   \n2,b,\n\t\n3\n4,d,5\n')
+    with pytest.raises(ContractError) as err:
+        list(read_raw_pieces(path, rows=rows)) if rows else read_raw(path)
+    assert "1 row(s) have fewer fields than the header's 3: line 8 (1) (fields found in brackets)" in str(err.value)
+    path.write_text(path.read_text().replace("\n3\n", "\n3,c,\n"))
+    assert len(read_raw(path)) == 4 and list(read_raw_pieces(path, rows=rows or 1))
+
+
 def test_parquet_pieces_of_kept_rows_equal_the_whole_read(tmp_path):
     rng = np.random.default_rng(3)
     frame = pd.DataFrame({"x": rng.normal(size=95), "k": pd.Series(list("abcde") * 19, dtype="string"),

@@ -170,8 +170,9 @@ class _ShortRows:
         self.handle = self.path.open(encoding=self.codec, newline="")
         self.reader = csv.reader(self.handle)
         next(self.reader, None)  # the header
-        # pandas skips blank lines; so do the records compared with its rows
-        self.records = (record for record in self.reader if record)
+        # pandas skips blank lines and lines of only spaces or tabs; so do the records compared with its rows
+        self.records = (record for record in self.reader
+                        if record and not (len(record) == 1 and not record[0].strip(" \t")))
         for _ in range(self.rows_before):
             next(self.records, None)
 
