@@ -6,7 +6,9 @@ Writes three files into a project folder:
   categoricals (``region``, 5 levels; ``channel``, 3 levels) and the outcome ``default_12m``;
 - ``schemas/contracts/portfolio.yaml``: its data contract;
 - ``config/bench.yaml``: the benchmark configuration (five candidates: logit, probit,
-  cloglog, l1, l2; 5-fold cross-validation; stratified 75/25 split).
+  cloglog, l1, l2; 5-fold cross-validation; stratified 75/25 split; the evaluation
+  bootstrap and the challenger written out with the schema's defaults, which
+  ``bench/serial.py`` reads too).
 
 Nothing here is real. The numeric features are standard normal with a few correlated pairs;
 ten of the thirty have no effect (so the lasso has something to drop). The true coefficients
@@ -145,6 +147,10 @@ def config(n: int) -> dict:
         "selection": {"metric": "log_loss", "rule": "one_standard_error"},
         "costs": {"false_positive": 1000, "false_negative": 5000, "adopt": "empirical",
                   "bootstrap": 300, "seed": 11},
+        # Written out (the schema's defaults) so that bench/serial.py reads the same settings.
+        "evaluation": {"bootstrap": 1000, "seed": 20261203, "interval_level": 0.95,
+                       "bootstrap_max_draws": 100_000_000},
+        "challenger": {"enabled": True, "max_iter": 200, "learning_rate": 0.1, "max_leaf_nodes": 31, "seed": 1},
         "card": {"title": "Benchmark portfolio default model (invented)", "version": "0.0.1",
                  "owner": "oddsmith benchmark", "intended_use": "Measuring the pipeline's speed."},
     }

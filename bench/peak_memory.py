@@ -3,7 +3,8 @@
     python bench/peak_memory.py PROJECT STAGE [--out DIR]
 
 PROJECT is a folder written by ``bench/generate.py`` (``data/``, ``schemas/``, ``config/bench.yaml``).
-STAGE is ``validate``, ``split`` or ``features``; each reads what the stage before it wrote
+STAGE is ``validate``, ``split``, ``features`` or ``challenger`` (the trees of the
+challenger_fit job); each reads what the stage before it wrote
 under ``--out`` (default ``PROJECT/peak``), so run them in that order. Also ``size``: the
 in-memory size of the validated data (pandas, deep), the yardstick of the memory target.
 
@@ -32,7 +33,7 @@ from oddsmith.config import check_config, read_config_file
 project, out, stage = sys.argv[1], sys.argv[2], sys.argv[3]
 import os
 os.chdir(project)
-for folder in ("validated", "split", "features"):
+for folder in ("validated", "split", "features", "challenger"):
     os.makedirs(f"{out}/{folder}", exist_ok=True)
 cfg = check_config(read_config_file("config/bench.yaml"), project_dir=".")
 data = cfg["data"]
@@ -54,6 +55,12 @@ elif stage == "features":
                  id_column=data["id_column"], diagnostics=cfg["diagnostics"], out_recipe=f"{out}/features/recipe.json",
                  out_diagnostics=f"{out}/features/diagnostics.json", out_design=f"{out}/features/train_design.parquet",
                  cluster_column=cfg["inference"]["cluster_column"])
+elif stage == "challenger":
+    from oddsmith.fitting.challenger import run_challenger_fit
+    run_challenger_fit(design_path=f"{out}/features/train_design.parquet", assignment_path=f"{out}/split/assignment.parquet",
+                       recipe_path=f"{out}/features/recipe.json", id_column=data["id_column"], target=data["target"],
+                       settings=cfg["challenger"], threads=1, out_folds=f"{out}/challenger/folds.json",
+                       out_oof=f"{out}/challenger/oof.parquet")
 elif stage == "size":
     import pandas as pd
     frame = pd.read_parquet(f"{out}/validated/data.parquet")
@@ -79,7 +86,7 @@ def measure(project: Path, stage: str, out: Path) -> dict:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("project", type=Path)
-    parser.add_argument("stage", choices=["validate", "split", "features", "size"])
+    parser.add_argument("stage", choices=["validate", "split", "features", "challenger", "size"])
     parser.add_argument("--out", type=Path, default=None)
     args = parser.parse_args()
     out = args.out or args.project / "peak"

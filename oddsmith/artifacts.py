@@ -90,10 +90,12 @@ _TABLE = (
     ("comparison/table.json", "compare", "cross-validated comparison of the candidates and paired tests"),
     ("comparison/selected.json", "compare", "the selected candidate and why"),
     ("provenance/compare.json", "compare", "provenance stamp"),
-    # challenger (when challenger.enabled)
-    ("challenger/cv.json", "challenger", "the flexible challenger's fold metrics and its gap to the selected model"),
-    ("challenger/oof.parquet", "challenger", "the challenger's out-of-fold predictions"),
-    ("provenance/challenger.json", "challenger", "provenance stamp"),
+    # challenger (when challenger.enabled): the trees beside the fits, the gap after compare
+    ("challenger/folds.json", "challenger_fit", "the flexible challenger's fold metrics and settings"),
+    ("challenger/oof.parquet", "challenger_fit", "the challenger's out-of-fold predictions"),
+    ("provenance/challenger_fit.json", "challenger_fit", "provenance stamp"),
+    ("challenger/cv.json", "challenger_gap", "the flexible challenger's fold metrics and its gap to the selected model"),
+    ("provenance/challenger_gap.json", "challenger_gap", "provenance stamp"),
     # threshold
     ("threshold/choice.json", "threshold", "the adopted cut-off from the stated costs (out-of-fold only)"),
     ("threshold/cost_curve.parquet", "threshold", "expected cost per cut-off"),

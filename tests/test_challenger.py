@@ -77,6 +77,39 @@ def test_a_fold_prediction_uses_only_the_other_folds():
     assert not np.array_equal(oof["p"][~first], changed["p"][~first])
 
 
+@pytest.mark.parametrize("block", [2, 5, 32_768])
+def test_training_rows_are_lent_exactly_and_put_back(monkeypatch, block):
+    # Blocks of 2 and 5 rows make the forward and backward moves cross many block borders.
+    monkeypatch.setattr(challenger, "ROW_BLOCK", block)
+    x = np.random.default_rng(3).normal(size=(23, 4))
+    before = x.copy()
+    valid = np.zeros(23, dtype=bool)
+    valid[[0, 4, 5, 6, 13, 22]] = True
+    with challenger.training_rows_first(x, valid) as (train, held_out):
+        assert np.shares_memory(train, x) and train.flags["C_CONTIGUOUS"], "a view, not a copy"
+        assert np.array_equal(train, before[~valid]) and np.array_equal(held_out, before[valid])
+    assert np.array_equal(x, before)
+    with pytest.raises(RuntimeError), challenger.training_rows_first(x, valid):
+        raise RuntimeError("a failing fit")
+    assert np.array_equal(x, before), "rows go back also when the body raised"
+
+
+def test_trees_on_the_lent_rows_equal_trees_on_a_copy(monkeypatch):
+    from sklearn.ensemble import HistGradientBoostingClassifier
+
+    monkeypatch.setattr(challenger, "ROW_BLOCK", 97)
+    x, y = _interaction_data(n=700)
+    folds = _folds(y, k=4)
+    before = x.copy()
+    oof, _ = challenger.cross_validate_trees(x, y, folds, settings=SETTINGS)
+    assert np.array_equal(x, before)
+    fold = folds["fold"].to_numpy()
+    for k in range(4):
+        valid = fold == k
+        model = HistGradientBoostingClassifier(**challenger.estimator_settings(SETTINGS)).fit(x[~valid], y[~valid])
+        assert np.array_equal(oof["p"][valid], model.predict_proba(x[valid])[:, 1]), f"fold {k}: bit for bit"
+
+
 def test_estimator_settings_come_from_the_config_without_early_stopping():
     assert challenger.estimator_settings(SETTINGS) == {
         "max_iter": 60, "learning_rate": 0.1, "max_leaf_nodes": 15, "early_stopping": False, "random_state": 1}
@@ -127,6 +160,44 @@ def test_trees_beat_a_main_effects_logit_on_an_interaction_and_the_gap_is_large(
     assert challenger.large_gap(gap)
 
 
+def _gap_inputs(tmp_path, *, selected="m", folds_name="challenger"):
+    from oddsmith.io import write_json
+
+    def folds(values):  # AUC undefined on every fold (single-class folds): no AUC gap to state
+        return [f | {"auc": None} for f in _cv(values)["folds"]]
+
+    record = {"candidate": folds_name, "status": "ok", "row": {"candidate": folds_name},
+              "folds": folds([0.49, 0.50, 0.47])}
+    write_json(tmp_path / "folds.json", record)
+    write_json(tmp_path / "m_cv.json", {"candidate": "m", "status": "ok", "folds": folds([0.50, 0.52, 0.48])})
+    write_json(tmp_path / "selected.json", {"candidate": selected})
+    return {"folds_path": str(tmp_path / "folds.json"), "selected_path": str(tmp_path / "selected.json"),
+            "cv_paths": {"m": str(tmp_path / "m_cv.json")}, "out_cv": str(tmp_path / "cv.json")}, record
+
+
+def test_gap_job_adds_the_gap_to_the_fit_record(tmp_path):
+    paths, record = _gap_inputs(tmp_path)
+    cv = challenger.run_challenger_gap(**paths)
+    written = json.loads((tmp_path / "cv.json").read_text())
+    assert written == cv and {k: v for k, v in written.items() if k != "gap"} == record
+    # The hand-computed gap of test_gap_and_its_interval_by_hand, on the same fold values.
+    assert written["gap"]["selected"] == "m"
+    assert written["gap"]["log_loss"]["advantage"] == pytest.approx(0.0133333, abs=1e-7)
+    assert written["gap"]["large"] is False and written["gap"]["auc"]["advantage"] is None
+
+
+@pytest.mark.parametrize("selected, folds_name, expected", [
+    ("other", "challenger", "names candidate 'other', which has no cv.json"),
+    ("m", "logit", "is not the challenger's fold record"),
+])
+def test_gap_job_names_a_wrong_input_and_writes_nothing(tmp_path, selected, folds_name, expected):
+    paths, _ = _gap_inputs(tmp_path, selected=selected, folds_name=folds_name)
+    with pytest.raises(ArtifactError) as info:
+        challenger.run_challenger_gap(**paths)
+    assert expected in str(info.value)
+    assert not (tmp_path / "cv.json").exists()
+
+
 def test_gap_sentences_say_which_way_and_turn_the_interval():
     better = {"metric": "log_loss", "advantage": 0.012, "lower": 0.004, "upper": 0.020, "level": 0.95,
               "relative": 0.03}
@@ -153,7 +224,8 @@ def test_config_fills_challenger_defaults_and_names_bad_values(demo_config, root
 
 
 def test_no_pickle_in_the_challenger_code():
-    for path in ("oddsmith/fitting/challenger.py", "scripts/challenger.py", "rules/challenger.smk"):
+    for path in ("oddsmith/fitting/challenger.py", "scripts/challenger_fit.py", "scripts/challenger_gap.py",
+                 "rules/challenger.smk"):
         text = (ROOT / path).read_text(encoding="utf-8")
         assert not any(word in text for word in ("import pickle", "joblib", ".pkl", "dump(")), path
 
@@ -184,6 +256,8 @@ def test_challenger_used_the_candidates_folds(demo_run):
         (f["repeat"], f["fold"], f["n"], f["n_train"]) for f in cand_cv["folds"]]
     assert cv["adoptable"] is False and cv["library_version"]
     assert cv["gap"]["selected"] == selected
+    fit_record = json.loads(artifacts.in_folder(demo_run, "challenger/folds.json").read_text())
+    assert {k: v for k, v in cv.items() if k != "gap"} == fit_record, "the gap job adds the gap, nothing else"
 
 
 @pytest.mark.e2e
@@ -195,9 +269,14 @@ def test_no_pickle_in_the_run_folder(demo_run):
 
 
 @pytest.mark.e2e
-def test_stamp_claims_the_challenger_files(demo_run):
-    stamp = json.loads(artifacts.in_folder(demo_run, "provenance/challenger.json").read_text())
-    assert sorted(Path(p).name for p in stamp["outputs"]) == ["cv.json", "oof.parquet"]
+def test_stamps_claim_the_challenger_files(demo_run):
+    stamp = json.loads(artifacts.in_folder(demo_run, "provenance/challenger_fit.json").read_text())
+    assert sorted(Path(p).name for p in stamp["outputs"]) == ["folds.json", "oof.parquet"]
+    stamp = json.loads(artifacts.in_folder(demo_run, "provenance/challenger_gap.json").read_text())
+    assert [Path(p).name for p in stamp["outputs"]] == ["cv.json"]
+    assert not any("comparison" in p or "candidates" in p for p in
+                   json.loads(artifacts.in_folder(demo_run, "provenance/challenger_fit.json").read_text())["inputs"]), \
+        "the trees read nothing the candidates' fits or compare write"
     manifest = json.loads(artifacts.in_folder(demo_run, artifacts.MANIFEST).read_text())
     assert any(p.endswith("challenger/cv.json") for p in manifest["files"])
 

@@ -25,8 +25,8 @@ from oddsmith.runner import clear_code_cache, code_closure, import_statements, s
 RUN = "work/lease_demo"  # the staging folder the jobs write
 CANDIDATES = {"logit_main", "probit_main", "cloglog_main", "lasso", "ridge", "logit_compact", "baseline"}
 #: Every rule this matrix knows; a new rule fails the test until its row is added here.
-KNOWN = {"validate", "split", "features", "fit", "compare", "challenger", "threshold", "evaluate", "apply_cutoff",
-         "model_figures", "figures", "score", "manifest", "card", "publish"}
+KNOWN = {"validate", "split", "features", "fit", "compare", "challenger_fit", "challenger_gap", "threshold", "evaluate",
+         "apply_cutoff", "model_figures", "figures", "score", "manifest", "card", "publish"}
 #: Rules after apply_cutoff, present or not depending on the workflow and the config.
 TAIL = {"figures", "score", "manifest", "card", "publish"}
 
@@ -223,7 +223,8 @@ def test_one_candidates_grid_reruns_that_candidate_and_downstream(built, every_j
     assert old in text
     config.write_text(text.replace(old, "{name: lasso, kind: l1, grid: [0.003, 0.01, 0.03, 0.1, 0.3, 1.0, 3.0]}"))
     rerun = _tail(every_job, "fit[lasso]", "compare", "threshold", "evaluate", "apply_cutoff", "model_figures")
-    rerun |= {"challenger"} & every_job  # it reads every candidate's fold metrics and the selection
+    # the gap reads every candidate's fold metrics and the selection; the trees read neither
+    rerun |= {"challenger_gap"} & every_job
     assert planned(project, *targets(project), env=env) == rerun
 
 
@@ -334,7 +335,7 @@ def _changed_by(project: Path, path: str) -> set[str]:
 
 @pytest.mark.parametrize(("path", "rules"), [
     # the scripts that import oddsmith.assessment.metrics, directly or through another module
-    ("oddsmith/assessment/metrics.py", {"fit", "compare", "challenger", "threshold", "evaluate", "apply_cutoff", "refit"}),
+    ("oddsmith/assessment/metrics.py", {"fit", "compare", "challenger_fit", "challenger_gap", "threshold", "evaluate", "apply_cutoff", "refit"}),
     # the card's renderer runs in the card rule only; the URL fetcher also renders the drift page
     ("oddsmith/reporting/card.py", {"card"}),
     ("oddsmith/reporting/card_findings.py", {"card"}),
@@ -343,13 +344,13 @@ def _changed_by(project: Path, path: str) -> set[str]:
     # the artifact registry: the card reads through it, the manifest names its own file from it,
     # evaluate, apply_cutoff and the figures join the evaluation files through it
     ("oddsmith/artifacts.py", {"evaluate", "apply_cutoff", "model_figures", "figures", "card", "manifest", "publish"}),
-    ("oddsmith/io.py", {"validate", "split", "features", "fit", "compare", "challenger", "threshold", "evaluate",
-                        "apply_cutoff", "model_figures", "figures", "manifest", "card", "score", "publish", "refit"}),
+    ("oddsmith/io.py", {"validate", "split", "features", "fit", "compare", "challenger_fit", "challenger_gap",
+                        "threshold", "evaluate", "apply_cutoff", "model_figures", "figures", "manifest", "card", "score", "publish", "refit"}),
     ("reports/macros.html.j2", {"card"}),
     ("reports/model_card.css", {"card", "score"}),
     ("reports/drift.html.j2", {"score"}),
     # the candidate defaults and the cost vocabulary are read from the schema (oddsmith.settings)
-    ("schemas/config.schema.yaml", {"fit", "challenger", "threshold", "evaluate", "apply_cutoff", "score", "refit"}),
+    ("schemas/config.schema.yaml", {"fit", "challenger_fit", "challenger_gap", "threshold", "evaluate", "apply_cutoff", "score", "refit"}),
     ("scripts/split.py", {"split"}),
 ])
 def test_an_edit_changes_exactly_the_fingerprints_of_the_rules_that_run_it(project_copy, path, rules):
