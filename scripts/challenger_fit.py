@@ -1,6 +1,6 @@
 """Snakemake script of the challenger_fit rule: gradient-boosted trees on the shared folds."""
 
-from oddsmith.fitting.challenger import run_challenger_fit
+from oddsmith.stages.challenger import run_challenger_fit
 from oddsmith.runner import stage
 
 sm = snakemake  # noqa: F821 (provided by Snakemake)

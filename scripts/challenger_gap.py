@@ -1,6 +1,6 @@
 """Snakemake script of the challenger_gap rule: the challenger's gap to the selected candidate."""
 
-from oddsmith.fitting.challenger import run_challenger_gap
+from oddsmith.stages.challenger import run_challenger_gap
 from oddsmith.runner import stage
 
 sm = snakemake  # noqa: F821 (provided by Snakemake)

@@ -18,6 +18,7 @@ from oddsmith.errors import ArtifactError, ConfigError
 from oddsmith.fitting import challenger
 from oddsmith.fitting.cross_validation import cross_validate
 from oddsmith.reporting import card, card_findings, card_loader
+from oddsmith.stages import challenger as challenger_stage
 
 ROOT = Path(__file__).resolve().parent.parent
 RUN = Path("results") / "lease_demo"
@@ -177,7 +178,7 @@ def _gap_inputs(tmp_path, *, selected="m", folds_name="challenger"):
 
 def test_gap_job_adds_the_gap_to_the_fit_record(tmp_path):
     paths, record = _gap_inputs(tmp_path)
-    cv = challenger.run_challenger_gap(**paths)
+    cv = challenger_stage.run_challenger_gap(**paths)
     written = json.loads((tmp_path / "cv.json").read_text())
     assert written == cv and {k: v for k, v in written.items() if k != "gap"} == record
     # The hand-computed gap of test_gap_and_its_interval_by_hand, on the same fold values.
@@ -193,7 +194,7 @@ def test_gap_job_adds_the_gap_to_the_fit_record(tmp_path):
 def test_gap_job_names_a_wrong_input_and_writes_nothing(tmp_path, selected, folds_name, expected):
     paths, _ = _gap_inputs(tmp_path, selected=selected, folds_name=folds_name)
     with pytest.raises(ArtifactError) as info:
-        challenger.run_challenger_gap(**paths)
+        challenger_stage.run_challenger_gap(**paths)
     assert expected in str(info.value)
     assert not (tmp_path / "cv.json").exists()
 
@@ -224,7 +225,7 @@ def test_config_fills_challenger_defaults_and_names_bad_values(demo_config, root
 
 
 def test_no_pickle_in_the_challenger_code():
-    for path in ("oddsmith/fitting/challenger.py", "scripts/challenger_fit.py", "scripts/challenger_gap.py",
+    for path in ("oddsmith/fitting/challenger.py", "oddsmith/stages/challenger.py", "scripts/challenger_fit.py", "scripts/challenger_gap.py",
                  "rules/challenger.smk"):
         text = (ROOT / path).read_text(encoding="utf-8")
         assert not any(word in text for word in ("import pickle", "joblib", ".pkl", "dump(")), path

@@ -22,7 +22,6 @@ from oddsmith.assessment import metrics
 from oddsmith.data.split import fold_columns
 from oddsmith.errors import ArtifactError, OddsmithError
 from oddsmith.fitting.selection import comparison_row, paired_difference
-from oddsmith.io import read_json, release_arrow_memory, write_json, write_parquet
 
 log = logging.getLogger("oddsmith.challenger")
 
@@ -184,37 +183,13 @@ def _guarded_gap(cv_selected: dict, cv_challenger: dict, metric: str) -> dict:
         return {"metric": metric, "better": BETTER[metric], "advantage": None, "note": str(exc)}
 
 
-def _selected_cv(selected_path: str, cv_paths: dict) -> dict:
-    name = read_json(selected_path)["candidate"]
-    if name not in cv_paths:
-        raise ArtifactError(f"{selected_path} names candidate {name!r}, which has no cv.json among the inputs",
-                            [f"known: {', '.join(sorted(cv_paths))}"])
-    cv = read_json(cv_paths[name])
-    if cv.get("status") != "ok":
-        raise ArtifactError(f"the selected candidate {name!r} has no cross-validation results ({cv_paths[name]})")
-    return cv
-
-
-def run_challenger_fit(*, design_path: str, assignment_path: str, recipe_path: str, id_column: str, target: str,
-                       settings: dict, threads: int, out_folds: str, out_oof: str) -> dict:
-    """Fit the challenger on the shared folds; write its fold metrics and OOF predictions.
-
-    Needs nothing the candidates' fits write, so it runs beside them; the gap to the selected
-    candidate is :func:`run_challenger_gap`'s, after the comparison.
-    """
+def fold_record(values: np.ndarray, names: list, y: np.ndarray, folds: pd.DataFrame, *, settings: dict,
+                threads: int = 1) -> tuple[dict, dict]:
+    """The challenger's record (settings, fold metrics, pooled metrics, comparison row) and its
+    out-of-fold predictions (one column per repeat), from :func:`cross_validate_trees`."""
     import sklearn
 
-    from oddsmith.stages.fit import training_design
-
-    values, names, y, ids, folds, _ = training_design(
-        design_path=design_path, assignment_path=assignment_path, recipe_path=recipe_path,
-        candidate={"name": NAME, "kind": KIND}, id_column=id_column, target=target)
-    # The pages Arrow's pool kept from reading the ids and folds (about 85 MB at 1,000,000
-    # rows) would otherwise stay resident under the trees' own allocations.
-    release_arrow_memory()
-    log.info("challenger: %d rows, %d design columns, %d fold column(s)", len(y), len(names), folds.shape[1])
     oof, per_fold = cross_validate_trees(values, y, folds, settings=settings, threads=threads)
-    del values
     record = {"candidate": NAME, "kind": KIND, "label": LABEL, "status": "ok", "adoptable": False,
               "estimator": "sklearn.ensemble.HistGradientBoostingClassifier", "library": "scikit-learn",
               "library_version": sklearn.__version__, "settings": estimator_settings(settings),
@@ -222,22 +197,18 @@ def run_challenger_fit(*, design_path: str, assignment_path: str, recipe_path: s
               "pooled": metrics.summarise(y, oof["p"])}
     # The same summary row the comparison table holds for a candidate, so the card only formats.
     record["row"] = comparison_row(record)
-    write_parquet(out_oof, pd.DataFrame({"id": ids, "y": y, **oof}))
-    write_json(out_folds, record)
-    return record
+    return record, oof
 
 
-def run_challenger_gap(*, folds_path: str, selected_path: str, cv_paths: dict, out_cv: str) -> dict:
-    """The challenger's fold record with its gap to the selected candidate (``challenger/cv.json``)."""
-    selected = _selected_cv(selected_path, cv_paths)
-    cv = read_json(folds_path)
-    if cv.get("candidate") != NAME or not cv.get("folds"):
-        raise ArtifactError(f"{folds_path} is not the challenger's fold record",
+def with_gap(record: dict, selected: dict, *, where: str = "the challenger's record") -> dict:
+    """``record`` (:func:`fold_record`) with its gap to ``selected`` (that candidate's cv record):
+    log loss and AUC, each as :func:`gap_interval`, and whether the log-loss gap is large."""
+    if record.get("candidate") != NAME or not record.get("folds"):
+        raise ArtifactError(f"{where} is not the challenger's fold record",
                             [f"expected candidate {NAME!r} with fold metrics, found candidate "
-                             f"{cv.get('candidate')!r} with {len(cv.get('folds') or [])} fold(s)"])
-    gaps = {metric: _guarded_gap(selected, cv, metric) for metric in BETTER}
-    cv["gap"] = {"selected": selected["candidate"], **gaps, "relative_limit": RELATIVE_GAP_LIMIT,
-                 "large": gaps["log_loss"].get("advantage") is not None and large_gap(gaps["log_loss"])}
-    write_json(out_cv, cv)
-    log.info("challenger against %s: %s", selected["candidate"], gaps["log_loss"])
-    return cv
+                             f"{record.get('candidate')!r} with {len(record.get('folds') or [])} fold(s)"])
+    gaps = {metric: _guarded_gap(selected, record, metric) for metric in BETTER}
+    record = dict(record)
+    record["gap"] = {"selected": selected["candidate"], **gaps, "relative_limit": RELATIVE_GAP_LIMIT,
+                     "large": gaps["log_loss"].get("advantage") is not None and large_gap(gaps["log_loss"])}
+    return record
