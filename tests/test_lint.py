@@ -87,6 +87,26 @@ def test_no_package_module_imports_snakemake():
     assert found == []
 
 
+def test_no_core_module_imports_a_stage():
+    """The flow goes one way: stages read artifacts and call the core; a core module (data,
+    fitting, assessment, evidence, reporting, use and the top-level helpers) never reaches back
+    into a stage. The command line is the one other place that runs stage code."""
+    import ast
+
+    found = []
+    for path in sorted(PACKAGE.rglob("*.py")):
+        rel = path.relative_to(PACKAGE)
+        if rel.parts[0] == "stages" or rel == Path("cli.py"):
+            continue
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            names = [a.name for a in node.names] if isinstance(node, ast.Import) else \
+                [node.module or ""] if isinstance(node, ast.ImportFrom) else []
+            if isinstance(node, ast.ImportFrom) and node.module == "oddsmith":
+                names = [f"oddsmith.{a.name}" for a in node.names]
+            found += [f"{rel}: {n}" for n in names if n.startswith("oddsmith.stages")]
+    assert found == []
+
+
 def test_every_subpackage_is_packaged():
     """pyproject.toml names the packages to install one by one: a folder of the package that it
     leaves out would be missing from the wheel (tests/test_install.py builds one)."""
