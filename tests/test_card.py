@@ -412,7 +412,9 @@ def test_caveats_are_generated_from_the_findings(demo_run, tmp_path):
     html = card.render_html(card.build_context(run, release=None))
     for f in attention.values():
         assert str(escape(f["advice"])) in html
-    assert "<b>failed</b>: quasi-complete separation on &lt;x&gt;" in html
+    # the reason spans the metric columns; the status column says only "failed"
+    assert "the candidate could not be fitted: quasi-complete separation on &lt;x&gt;</td>" in html
+    assert '<td class="failed"><b>failed</b></td>' in html
 
 
 @pytest.mark.e2e
