@@ -116,6 +116,21 @@ def test_coefficient_chart_handles_every_model_shape(shape):
     _no_external_reference(svg)
 
 
+def test_coefficient_chart_of_many_terms_draws_the_largest_and_says_so(monkeypatch):
+    # 86 penalised terms, most set to zero (as a lasso on ISLR Caravan leaves them): the chart
+    # keeps the 40 farthest from 0 in their order, so it fits a page; the table keeps them all.
+    coefficients = {f"t{i:02d}": (0.0 if i % 2 else (i - 43) / 10) for i in range(86)}
+    model = {"candidate": "lasso", "kind": "l1", "coefficients": coefficients}
+    fig = _drawn(monkeypatch, lambda: plots.coefficients_svg(model))
+    ax = fig.axes[0]
+    assert ax.get_title(loc="left") == "Terms of the selected model (lasso, l1): the 40 largest of 86 (all in the table)"
+    labels = [t.get_text() for t in ax.get_yticklabels()]  # in the order given, drawn top down
+    expected = sorted(coefficients, key=lambda t: -abs(coefficients[t]))[:40]
+    assert labels == sorted(expected)
+    assert all(coefficients[t] != 0.0 for t in labels)
+    assert fig.get_figheight() < 8.0
+
+
 def test_subgroup_chart_with_hostile_labels_small_groups_and_no_attributes():
     rows = [{"group": g, "adverse_impact_ratio": r, "adverse_impact_flag": r < 0.8, "flag_rate": 0.3, "too_small": False}
             for g, r in zip(HOSTILE, (0.5, 0.79, 0.8, 0.95, 1.0, 0.9, 0.85, 0.7))]

@@ -36,6 +36,9 @@ PALETTE = {
 }
 FIGURE_NAMES = ("roc", "reliability", "cost_curve", "coefficients", "score_distribution", "subgroups")
 LABEL_LIMIT = 38
+#: Terms the coefficient chart draws at most: the largest effects, so the chart fits one page
+#: (the card's table lists every term).
+MAX_TERMS = 40
 #: Figure widths in inches: half and full width of the card's A4 text column (about 1:1 on the page).
 HALF, WIDE = 3.4, 6.9
 
@@ -281,6 +284,21 @@ def per_sd_values(rows: list[dict], sds: dict) -> list[tuple]:
     return out
 
 
+def largest_effects(values: list[tuple], *, reference: float, log: bool, keep: int) -> list[tuple]:
+    """The ``keep`` terms farthest from ``reference`` (on the log scale for odds ratios), in
+    their original order; ties keep the earlier term.
+
+    Examples
+    --------
+    >>> largest_effects([("a", 0.1, None, None), ("b", -2.0, None, None), ("c", 0.0, None, None),
+    ...                  ("d", 1.0, None, None)], reference=0.0, log=False, keep=2)
+    [('b', -2.0, None, None), ('d', 1.0, None, None)]
+    """
+    size = [abs(math.log(v[1]) - math.log(reference)) if log else abs(v[1] - reference) for v in values]
+    chosen = sorted(sorted(range(len(values)), key=lambda i: -size[i])[:keep])
+    return [values[i] for i in chosen]
+
+
 def coefficients_svg(model: dict, *, sds: dict | None = None) -> bytes:
     """Interval chart of the selected model's terms (intercept left out), per SD of each input.
 
@@ -307,10 +325,14 @@ def coefficients_svg(model: dict, *, sds: dict | None = None) -> bytes:
     else:
         values = [(t, c, None, None) for t, c in sorted((model.get("coefficients") or {}).items())]
         reference, xlabel, log = 0.0, "standardised coefficient: per SD of the design column (penalised, no interval)", False
+    title = f"Terms of the selected model ({model.get('candidate', '')}, {model.get('kind', '')})"
+    if len(values) > MAX_TERMS:
+        title += f": the {MAX_TERMS} largest of {len(values)} (all in the table)"
+        values = largest_effects(values, reference=reference, log=log, keep=MAX_TERMS)
     with _style():
         fig = _figure(WIDE, max(1.4, 0.7 + 0.165 * len(values)))
         ax = fig.add_subplot()
-        ax.set_title(f"Terms of the selected model ({model.get('candidate', '')}, {model.get('kind', '')})")
+        ax.set_title(title)
         if not values:
             ax.text(0.5, 0.5, "intercept only: no terms to show", ha="center", va="center", transform=ax.transAxes)
             ax.set_axis_off()
