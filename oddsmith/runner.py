@@ -219,11 +219,21 @@ def _files(named) -> list[str]:
     return out
 
 
-def stage(snakemake, function, **kwargs):
+#: Rules whose extra threads run the job's own workers, with results that do not depend on
+#: how many (BLAS stays at the config's threads: the rule passes ``blas_threads``):
+#: features' leakage screen shares its features among them, evaluate's bootstrap its
+#: replicates. Both run alone on the build's one path (before the fits, after compare), where
+#: a second core would otherwise idle. A rule asks for at least this many threads
+#: (rules/common.smk); Snakemake lowers the request to ``--cores`` when fewer are given.
+RULE_MIN_THREADS = {"features": 2, "evaluate": 2}
+
+
+def stage(snakemake, function, *, blas_threads: int | None = None, **kwargs):
     """Run ``function(**kwargs)`` as the body of a Snakemake job, then stamp it.
 
     stderr and the ``oddsmith`` loggers go to ``snakemake.log[0]``; BLAS/OpenMP pools are
-    limited to ``snakemake.threads``. The output named ``stamp`` (if the rule has one) is
+    limited to ``blas_threads`` (default ``snakemake.threads``): a rule whose extra threads
+    run its own workers keeps BLAS at the config's threads, so its bytes do not depend on them. The output named ``stamp`` (if the rule has one) is
     written last.
 
     One of the project's own errors (:class:`~oddsmith.errors.OddsmithError`: bad data,
@@ -240,7 +250,7 @@ def stage(snakemake, function, **kwargs):
     from threadpoolctl import threadpool_limits
 
     try:
-        with threadpool_limits(limits=int(snakemake.threads)):
+        with threadpool_limits(limits=int(blas_threads or snakemake.threads)):
             result = function(**kwargs)
     except OddsmithError as exc:
         logging.getLogger("oddsmith").error("%s failed", snakemake.rule, exc_info=True)

@@ -11,7 +11,7 @@ from oddsmith.errors import ConfigError
 from oddsmith.evidence.filehash import CACHE_PATH, sha256_remembered
 from oddsmith.evidence.manifest import build_info, environment, source_date_epoch
 from oddsmith.evidence.publish import current_result_note
-from oddsmith.runner import params_hash, script_fingerprint
+from oddsmith.runner import RULE_MIN_THREADS, params_hash, script_fingerprint
 
 CHOOSE_CONFIG = """a build reads exactly one configuration file, complete on its own (the schema's
 defaults fill in the keys it leaves out). Name it:
@@ -80,6 +80,7 @@ def apply_job_resources():
     (highest first): --set-threads / --set-resources (command line or profile) > the config's `resources`
     > --default-resources (which still supplies what the config does not name, e.g. a
     SLURM account). A job's threads also cap its BLAS/OpenMP threads (oddsmith.runner.stage).
+    Rules in oddsmith.runner.RULE_MIN_THREADS ask for at least that many threads.
     """
     settings = workflow.resource_settings
     for rule_ in workflow.rules:
@@ -88,7 +89,9 @@ def apply_job_resources():
             {k: RES[k] for k in ("mem_mb", "runtime") if k not in given.keys()}
         )
         if rule_.name not in settings.overwrite_threads:
-            rule_.resources["_cores"] = RES["threads"]
+            rule_.resources["_cores"] = max(
+                RES["threads"], RULE_MIN_THREADS.get(rule_.name, 1)
+            )
 
 
 def code(*, script):

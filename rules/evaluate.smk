@@ -41,6 +41,7 @@ rule evaluate:
         # refit_all acts after the evaluation (rules/refit.smk), not on it.
         evaluation={k: v for k, v in CONFIG["evaluation"].items() if k != "refit_all"},
         split_method=CONFIG["split"]["method"],
+        blas_threads=RES["threads"],
         code=code(script="scripts/evaluate.py"),
     script:
         "../scripts/evaluate.py"

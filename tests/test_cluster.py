@@ -14,6 +14,8 @@ from pathlib import Path
 import pytest
 import yaml
 
+from oddsmith.runner import RULE_MIN_THREADS
+
 from conftest import DEMO_CONFIG, ROOT, copy_project, run_snakemake
 
 pytestmark = pytest.mark.e2e
@@ -91,9 +93,27 @@ def test_set_threads_and_set_resources_override_one_rule(project):
                            "--set-resources", "fit:mem_mb=1234")
     jobs = _dry_run_jobs(result.stdout + result.stderr)
     fits = [(t, r) for rule, t, r in jobs if rule == "fit"]
-    others = [(t, r) for rule, t, r in jobs if rule not in ("fit", "all")]
     assert fits and all(t == 2 and r.get("mem_mb") == "1234" for t, r in fits), fits
-    assert others and all(t == 1 and r.get("mem_mb") != "1234" for t, r in others), others
+    others = [(rule, t, r) for rule, t, r in jobs if rule not in ("fit", "all")]
+    assert others and all(t == RULE_MIN_THREADS.get(rule, 1) and r.get("mem_mb") != "1234"
+                          for rule, t, r in others), others
+    assert {rule for rule, t, _ in others if t == 2} == set(RULE_MIN_THREADS), "features and evaluate ask for 2"
+
+
+def test_a_rule_with_its_own_workers_keeps_blas_at_the_config_threads(tmp_path):
+    from threadpoolctl import threadpool_info
+
+    from oddsmith.runner import stage
+
+    job = types.SimpleNamespace(log=[str(tmp_path / "job.log")], threads=2, output=_NoOutputs())
+    import sys
+
+    saved = sys.stderr
+    try:
+        seen = stage(job, lambda: [pool["num_threads"] for pool in threadpool_info()], blas_threads=1)
+    finally:
+        sys.stderr = saved
+    assert seen and all(n == 1 for n in seen), seen
 
 
 @pytest.mark.parametrize("threads", [1, 2])

@@ -365,6 +365,21 @@ def test_bootstrap_replicates_equal_a_plain_loop_with_the_same_rows():
             assert fast[name][b] == pytest.approx(slow[name], abs=1e-9), (name, b)
 
 
+def test_bootstrap_in_threads_gives_the_same_bits(monkeypatch):
+    # The evaluate rule shares the replicate blocks among its threads; blocks are fixed by
+    # the number of rows, and each replicate has its own generator.
+    monkeypatch.setattr(metrics, "_CHUNK_CELLS", 2_000)  # blocks of 4 replicates at 500 rows
+    y, p = _sample(5, n=500, decimals=2)
+    assert len(metrics.bootstrap_blocks(500, 30)) == 8
+    alone = metrics.bootstrap_replicate_values(y, p, replicates=30, seed=4)
+    for workers in (2, 3):
+        shared = metrics.bootstrap_replicate_values(y, p, replicates=30, seed=4, workers=workers)
+        for name in metrics.BOOTSTRAP_METRICS:
+            assert np.array_equal(shared[name], alone[name], equal_nan=True), (name, workers)
+    with pytest.raises(ValueError, match="workers must be at least 1"):
+        metrics.bootstrap_replicate_values(y, p, replicates=30, seed=4, workers=0)
+
+
 def test_percentile_interval_is_numpy_quantile_of_the_replicates():
     y, p = _sample(4, n=300, decimals=None)
     out = metrics.bootstrap_performance(y, p, replicates=200, seed=1)

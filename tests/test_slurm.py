@@ -23,6 +23,8 @@ from pathlib import Path
 import pytest
 import yaml
 
+from oddsmith.runner import RULE_MIN_THREADS
+
 from conftest import BIN, ROOT, copy_project, run_snakemake
 from test_cluster import _tree
 
@@ -117,14 +119,14 @@ def _records(project: Path) -> list[dict]:
 
 
 def _expected_request(project: Path, rule: str) -> dict[str, int]:
-    """What the rule asks for: the config's resources (defaults filled in), then the profile's
-    per-rule overrides."""
+    """What the rule asks for: the config's resources (defaults filled in; threads at least
+    RULE_MIN_THREADS), then the profile's per-rule overrides."""
     from oddsmith.config import check_config
 
     res = check_config(yaml.safe_load((project / CONFIG).read_text()), project_dir=project)["resources"]
     profile = yaml.safe_load((project / PROFILE / "config.yaml").read_text())
     override = (profile.get("set-resources") or {}).get(rule, {})
-    threads = (profile.get("set-threads") or {}).get(rule, res["threads"])
+    threads = (profile.get("set-threads") or {}).get(rule, max(res["threads"], RULE_MIN_THREADS.get(rule, 1)))
     return {"threads": threads, "mem_mb": override.get("mem_mb", res["mem_mb"]),
             "runtime": override.get("runtime", res["runtime"])}
 

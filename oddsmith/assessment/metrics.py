@@ -647,29 +647,31 @@ def bootstrap_draws(y, *, replicates: int, seed: int):
                               non_events[rng.integers(0, non_events.size, non_events.size)]])
 
 
-def bootstrap_counts(y, *, replicates: int, seed: int, column=None):
-    """Yield ``(first, counts)``: how often each row is drawn, for blocks of replicates.
+def bootstrap_blocks(n: int, replicates: int) -> list[tuple[int, int]]:
+    """The blocks ``(first, last)`` of replicates whose counts are built at once: about
+    :data:`_CHUNK_CELLS` cells (replicates × ``n`` rows) each, fixed by ``n`` alone."""
+    block = max(1, _CHUNK_CELLS // max(n, 1))
+    return [(first, min(replicates, first + block)) for first in range(0, replicates, block)]
 
-    ``counts`` is a float array (replicates in the block × rows) whose row ``b - first``
-    counts the draws of replicate ``b`` (:func:`bootstrap_rows`). ``column`` maps each row
-    to its column of ``counts`` (a permutation; default the identity), so callers can have
-    the counts in the order they need, e.g. sorted by prediction.
-    """
+
+def bootstrap_block_counts(y, first: int, last: int, *, seed: int, column=None) -> np.ndarray:
+    """Draw counts of replicates ``first … last − 1`` (a float array, replicates × rows):
+    row ``b − first`` counts how often replicate ``b`` drew each row (:func:`bootstrap_rows`).
+    ``column`` maps each row to its column of the counts (a permutation; default the
+    identity), so callers can have the counts in the order they need, e.g. sorted by
+    prediction. Each replicate has its own generator, so blocks can be drawn in any order."""
     y = np.asarray(y)
     n = y.shape[0]
     events, non_events = np.flatnonzero(y == 1), np.flatnonzero(y != 1)
     target = np.arange(n) if column is None else np.asarray(column)
     events, non_events = target[events], target[non_events]
-    block = max(1, _CHUNK_CELLS // max(n, 1))
-    for first in range(0, replicates, block):
-        last = min(replicates, first + block)
-        counts = np.empty((last - first, n))
-        for b in range(first, last):
-            rng = np.random.default_rng([int(seed), b])
-            drawn = np.concatenate([events[rng.integers(0, events.size, events.size)],
-                                    non_events[rng.integers(0, non_events.size, non_events.size)]])
-            counts[b - first] = np.bincount(drawn, minlength=n)
-        yield first, counts
+    counts = np.empty((last - first, n))
+    for b in range(first, last):
+        rng = np.random.default_rng([int(seed), b])
+        drawn = np.concatenate([events[rng.integers(0, events.size, events.size)],
+                                non_events[rng.integers(0, non_events.size, non_events.size)]])
+        counts[b - first] = np.bincount(drawn, minlength=n)
+    return counts
 
 
 def percentile_interval(values, *, level: float) -> dict:
@@ -793,16 +795,21 @@ def _calibration_replicates(w: np.ndarray, y_s: np.ndarray, lp_s: np.ndarray) ->
 BOOTSTRAP_METRICS = ("auc", "gini", "ks", "log_loss", "brier", "calibration_intercept", "calibration_slope")
 
 
-def bootstrap_replicate_values(y, p, *, replicates: int, seed: int) -> dict:
+def bootstrap_replicate_values(y, p, *, replicates: int, seed: int, workers: int = 1) -> dict:
     """Every replicate's value of each statistic in :data:`BOOTSTRAP_METRICS` (NaN where
     undefined), computed from draw counts without copying rows.
 
     Rows are sorted by ``p`` once; each replicate's counts are laid out in that order, so
-    AUC and KS need one cumulative sum per replicate rather than a sort.
+    AUC and KS need one cumulative sum per replicate rather than a sort. The replicates
+    come in fixed blocks (:func:`bootstrap_blocks`); ``workers`` threads compute blocks side
+    by side. A block's arithmetic is the same whichever thread runs it, and BLAS runs on one
+    thread inside the bootstrap, so the values are the same bits for any ``workers``.
     """
     y, p = outcomes_and_probabilities(y, p)
     _require_both_classes(y, "the stratified bootstrap")
     _check_bootstrap(replicates, seed)
+    if int(workers) < 1:
+        raise ValueError(f"workers must be at least 1, got {workers!r}")
     order = np.argsort(p, kind="stable")
     column = np.empty_like(order)
     column[order] = np.arange(order.size)
@@ -813,13 +820,31 @@ def bootstrap_replicate_values(y, p, *, replicates: int, seed: int) -> dict:
     squared = (p_s - y_s) ** 2
     lp_s = _logit(p_s)
     values = {name: np.empty(replicates) for name in BOOTSTRAP_METRICS}
-    for first, w in bootstrap_counts(y, replicates=replicates, seed=seed, column=column):
-        block = slice(first, first + w.shape[0])
+
+    def block_values(first: int, last: int) -> None:
+        w = bootstrap_block_counts(y, first, last, seed=seed, column=column)
+        block = slice(first, last)
         values["auc"][block], values["ks"][block] = _weighted_rank_measures(w, y_s, starts)
         values["log_loss"][block] = (w @ loss_terms) / y.shape[0]
         values["brier"][block] = (w @ squared) / y.shape[0]
         values["calibration_intercept"][block], values["calibration_slope"][block] = (
             _calibration_replicates(w, y_s, lp_s))
+
+    from threadpoolctl import threadpool_limits
+
+    blocks = bootstrap_blocks(y.shape[0], replicates)
+    with threadpool_limits(limits=1):
+        if int(workers) == 1:
+            for first, last in blocks:
+                block_values(first, last)
+        else:
+            from concurrent.futures import ThreadPoolExecutor
+
+            # numpy releases the GIL in the array work, so the threads share the cores;
+            # each block writes its own slice of ``values``.
+            with ThreadPoolExecutor(max_workers=int(workers)) as pool:
+                for done in [pool.submit(block_values, first, last) for first, last in blocks]:
+                    done.result()
     values["gini"] = 2.0 * values["auc"] - 1.0
     return values
 
@@ -873,7 +898,7 @@ def bootstrap_interval(values, *, estimate, level: float, method: str) -> dict:
 
 
 def bootstrap_performance(y, p, *, replicates: int, seed: int, level: float = 0.95, max_draws: int | None = None,
-                          estimates: dict | None = None) -> dict:
+                          estimates: dict | None = None, workers: int = 1) -> dict:
     """Bootstrap intervals of the headline test measures.
 
     Each replicate resamples the rows as :func:`bootstrap_rows` states and recomputes AUC,
@@ -894,7 +919,7 @@ def bootstrap_performance(y, p, *, replicates: int, seed: int, level: float = 0.
     _check_level(level)
     y, p = outcomes_and_probabilities(y, p)
     plan = bootstrap_plan(y.shape[0], replicates=replicates, max_draws=max_draws)
-    values = bootstrap_replicate_values(y, p, replicates=plan["replicates"], seed=seed)
+    values = bootstrap_replicate_values(y, p, replicates=plan["replicates"], seed=seed, workers=workers)
     if plan["method"] != PERCENTILE_METHOD and estimates is None:
         estimates = summarise(y, p)
     estimates = estimates or {}

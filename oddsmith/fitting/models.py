@@ -60,7 +60,7 @@ INTERCEPT_TERM = "intercept"
 # Recorded in a penalised model's ``penalty`` as the solver of its fits. The text keeps the
 # module's name from before the package had subfolders (it is oddsmith.fitting.solvers now), so
 # that model files stay byte-identical.
-SOLVER = "proximal Newton (oddsmith.solvers)"
+SOLVER = "proximal Newton (oddsmith.fitting.solvers)"
 
 # Common practice: the default grid of scikit-learn's LogisticRegressionCV (Cs=10),
 # ten inverse strengths C log-spaced from 1e-4 to 1e4.

@@ -75,13 +75,15 @@ def outcome_maturity(dates, parts, *, window_months, extraction_date) -> dict | 
     return result
 
 
-def _intervals(y, p, overall: dict, evaluation: dict) -> dict | None:
-    """Bootstrap intervals of the headline measures (None when evaluation.bootstrap is 0)."""
+def _intervals(y, p, overall: dict, evaluation: dict, workers: int) -> dict | None:
+    """Bootstrap intervals of the headline measures (None when evaluation.bootstrap is 0);
+    ``workers`` threads share the replicates (same values for any number)."""
     if not evaluation.get("bootstrap"):
         return None
     return metrics.bootstrap_performance(y, p, replicates=evaluation["bootstrap"], seed=evaluation["seed"],
                                          level=evaluation["interval_level"],
-                                         max_draws=evaluation["bootstrap_max_draws"], estimates=overall)
+                                         max_draws=evaluation["bootstrap_max_draws"], estimates=overall,
+                                         workers=workers)
 
 
 def _out_of_fold_predictions(frame: pd.DataFrame, oof_path: str, data: dict, selected: str):
@@ -111,14 +113,15 @@ def _out_of_fold_block(y, oof: pd.DataFrame, cross_validation: dict) -> dict:
 def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, selected_path: str, model_paths: dict,
                  data: dict, fairness: dict, feature_names: list, evaluation: dict, split_method: str,
                  out_scores: str, out_probability_metrics: str, oof_paths: dict | None = None,
-                 cross_validation: dict | None = None) -> dict:
+                 cross_validation: dict | None = None, workers: int = 1) -> dict:
     """Score the test part with the selected model; write the scores (with each row's period
     and subgroup labels) and the metrics that do not depend on the cut-off.
 
     With ``split_method`` ``cross_validation_only`` there is no test part: the evaluated rows
     are all rows and their predictions the selected candidate's out-of-fold ones (repeat 1,
     from ``oof_paths``); the result then carries an ``out_of_fold`` block, with the spread
-    of the headline measures over the repeats (``cross_validation`` the config section)."""
+    of the headline measures over the repeats (``cross_validation`` the config section).
+    ``workers`` threads share the bootstrap's replicates; the values do not depend on it."""
     cv_only = split_method == CV_ONLY
     # Only the evaluated rows and the columns used here are read (at 1M rows the whole
     # frame would be most of this job's memory).
@@ -141,7 +144,7 @@ def run_evaluate(*, data_path: str, assignment_path: str, recipe_path: str, sele
               # for what was measured (the test part, or out-of-fold predictions without one).
               artifacts.auc_interval_key(cv_only): {
                   k: v for k, v in metrics.auc_confidence_interval(y, p, level=level).items() if k != "auc"},
-              "bootstrap": _intervals(y, p, overall, evaluation), "outcome_maturity": None,
+              "bootstrap": _intervals(y, p, overall, evaluation, workers), "outcome_maturity": None,
               "calibration_intercept_ci": metrics.calibration_intercept_interval(y, p, level=level),
               "hosmer_lemeshow": metrics.hosmer_lemeshow(y, p),
               "reliability": metrics.reliability_bins(y, p, bins=evaluation["calibration_bins"]), "periods": None}

@@ -467,7 +467,7 @@ def score_summary(sm: ScoringModel, scored: pd.DataFrame, *, reference: dict, to
             # the module's name from before the package had subfolders (now oddsmith/use/score.py),
             # kept so that the scoring summary stays byte-identical
             "method": "contribution of feature f = sum over its design columns j of w_jf * beta_j * x_j, minus the "
-                      "same at the reference; see oddsmith/score.py",
+                      "same at the reference; see oddsmith/use/score.py",
             "times_named": {k: int(v) for k, v in sorted(reasons.value_counts().items())},
         },
         "policy_flags": {c: int(scored[c].sum()) for c in flag_columns},
