@@ -271,10 +271,22 @@ def run_serial(work: Path, rows: int, key: str, log, loads: dict) -> dict:
     return runs
 
 
+def _commit() -> str | None:
+    """The checkout's commit, with ``+changes`` when its tracked files differ from it."""
+    try:
+        head = subprocess.run(["git", "rev-parse", "--short=12", "HEAD"], cwd=ROOT, capture_output=True, text=True,
+                              check=True).stdout.strip()
+        dirty = subprocess.run(["git", "status", "--porcelain", "--untracked-files=no"], cwd=ROOT,
+                               capture_output=True, text=True, check=True).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        return None
+    return head + ("+changes" if dirty else "")
+
+
 def measure(rows: int, log, *, serial_max_rows: int, wait_max_s: int) -> dict:
     work = WORK / f"n{rows}"
     run = f"bench_{rows}"
-    record = {"rows": rows, "run": run, "started": time.strftime("%Y-%m-%d %H:%M")}
+    record = {"rows": rows, "run": run, "started": time.strftime("%Y-%m-%d %H:%M"), "commit": _commit()}
     log(f"[{rows}] preparing {work}")
     record |= prepare(work, rows)
     record["machine_load"] = wait_for_quiet_machine(log, wait_max_s=wait_max_s) if rows >= 1_000_000 else {
@@ -466,7 +478,13 @@ def target_lines(records: list[dict]) -> list[str]:
                 f"{b['full']['cpu_seconds'] / a['full']['cpu_seconds']:.2f}")
         if a.get("serial") and b.get("serial"):
             text += f"; serial script: {_best(b, 'serial') / _best(a, 'serial'):.2f}"
-        lines.append(text + ")")
+        text += ")"
+        if a.get("commit") != b.get("commit") or a.get("commit") is None:
+            # Sizes measured in separate runs may measure different code: say so beside the ratio.
+            text += (f"; **the two builds were measured apart** ({small:,} rows: {a.get('started')}, commit "
+                     f"{a.get('commit') or 'not recorded'}; {large:,} rows: {b.get('started')}, commit "
+                     f"{b.get('commit') or 'not recorded'}), so the ratio mixes code versions when those differ")
+        lines.append(text)
     return lines
 
 

@@ -221,11 +221,11 @@ def _files(named) -> list[str]:
 
 #: Rules whose extra threads run the job's own workers, with results that do not depend on
 #: how many (BLAS stays at the config's threads: the rule passes ``blas_threads``):
-#: features' leakage screen shares its features among them, evaluate's bootstrap its
-#: replicates. Both run alone on the build's one path (before the fits, after compare), where
-#: a second core would otherwise idle. A rule asks for at least this many threads
-#: (rules/common.smk); Snakemake lowers the request to ``--cores`` when fewer are given.
-RULE_MIN_THREADS = {"features": 2, "evaluate": 2}
+#: evaluate's bootstrap shares its replicates among them. It runs alone on the build's one
+#: path after compare, where a second core would otherwise idle. A rule asks for at least
+#: this many threads (rules/common.smk); Snakemake lowers the request to ``--cores`` when
+#: fewer are given.
+RULE_MIN_THREADS = {"evaluate": 2}
 
 
 def stage(snakemake, function, *, blas_threads: int | None = None, **kwargs):

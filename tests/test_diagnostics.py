@@ -146,17 +146,3 @@ def test_a_leakage_screen_made_earlier_gives_the_same_report():
     together = design_diagnostics(X, y, raw_train=raw)
     screened = leakage_screen(raw, y, None, 0.95)
     assert design_diagnostics(X, y, leakage=screened) == together
-
-
-def test_the_leakage_screen_in_threads_gives_the_same_report():
-    # The features rule gives the screen two threads; each feature is scored alone, in order.
-    from oddsmith.data.diagnostics import leakage_screen
-
-    rng = np.random.default_rng(9)
-    raw = pd.DataFrame({f"x{i}": rng.normal(size=400) for i in range(5)} | {"c": rng.choice(["p", "q", "r"], 400)})
-    y = (rng.random(400) < 0.25).astype(int)
-    raw.loc[[3, 7], "x2"] = np.nan
-    alone = leakage_screen(raw, y, None, 0.6)
-    assert [f["feature"] for f in alone["features"]] == list(raw.columns)
-    for workers in (2, 3):
-        assert leakage_screen(raw, y, None, 0.6, workers=workers) == alone

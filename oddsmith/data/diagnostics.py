@@ -192,12 +192,8 @@ def _vif_report(corr: np.ndarray, names: list, constant: list, threshold: float)
 # ---------------------------------------------------------------------------- leakage screen
 
 
-def leakage_screen(raw: pd.DataFrame | None, y, features: list | None, threshold: float = 0.95, *,
-                   workers: int = 1) -> dict:
-    """The leakage part of :func:`design_diagnostics`: single-feature training AUC per raw feature.
-
-    ``workers`` threads score features side by side (the ranking sorts release the GIL);
-    each feature's AUC is computed alone, so the result does not depend on it."""
+def leakage_screen(raw: pd.DataFrame | None, y, features: list | None, threshold: float = 0.95) -> dict:
+    """The leakage part of :func:`design_diagnostics`: single-feature training AUC per raw feature."""
     y = np.asarray(y)
     result = {
         "threshold": threshold,
@@ -213,19 +209,8 @@ def leakage_screen(raw: pd.DataFrame | None, y, features: list | None, threshold
         return result
     if len(raw) != len(y):
         raise ArgumentError(f"raw_train must have one row per design row ({len(y)}), got {len(raw)}")
-    kinds = _feature_kinds(raw, features)
-
-    def score(item):
-        return _single_feature_auc(raw[item[0]], y, item[1])
-
-    if int(workers) > 1 and len(kinds) > 1:
-        from concurrent.futures import ThreadPoolExecutor
-
-        with ThreadPoolExecutor(max_workers=int(workers)) as pool:
-            scored = list(pool.map(score, kinds))
-    else:
-        scored = [score(item) for item in kinds]
-    for (name, kind), (auc, n_used) in zip(kinds, scored):
+    for name, kind in _feature_kinds(raw, features):
+        auc, n_used = _single_feature_auc(raw[name], y, kind)
         result["features"].append({"feature": name, "type": kind, "auc": auc, "n_used": n_used})
         if auc is not None and auc > threshold:
             result["suspected"].append(name)
