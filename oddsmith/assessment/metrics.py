@@ -12,7 +12,7 @@ import warnings
 
 import numpy as np
 
-from oddsmith.errors import OddsmithError
+from oddsmith.errors import ArgumentError, OddsmithError
 
 # scipy, scikit-learn and statsmodels are imported inside the functions that use them: the
 # threshold and decision stages need only the input checks here, and importing the three
@@ -809,7 +809,7 @@ def bootstrap_replicate_values(y, p, *, replicates: int, seed: int, workers: int
     _require_both_classes(y, "the stratified bootstrap")
     _check_bootstrap(replicates, seed)
     if int(workers) < 1:
-        raise ValueError(f"workers must be at least 1, got {workers!r}")
+        raise ArgumentError(f"workers must be at least 1, got {workers!r}")
     order = np.argsort(p, kind="stable")
     column = np.empty_like(order)
     column[order] = np.arange(order.size)
