@@ -57,9 +57,7 @@ ML_KINDS = ("logit", "probit", "cloglog")
 LINKS = ("logit", "probit", "cloglog")
 MODEL_FORMAT = "oddsmith-model/1"
 INTERCEPT_TERM = "intercept"
-# Recorded in a penalised model's ``penalty`` as the solver of its fits. The text keeps the
-# module's name from before the package had subfolders (it is oddsmith.fitting.solvers now), so
-# that model files stay byte-identical.
+# Recorded in a penalised model's ``penalty`` as the solver of its fits.
 SOLVER = "proximal Newton (oddsmith.fitting.solvers)"
 
 # Common practice: the default grid of scikit-learn's LogisticRegressionCV (Cs=10),

@@ -464,8 +464,6 @@ def score_summary(sm: ScoringModel, scored: pd.DataFrame, *, reference: dict, to
             "interactions": "an interaction column's contribution is split half to each of its two features",
             "direction": "reasons are features with a positive contribution: they push the probability of the "
                          "adverse outcome up relative to the reference",
-            # the module's name from before the package had subfolders (now oddsmith/use/score.py),
-            # kept so that the scoring summary stays byte-identical
             "method": "contribution of feature f = sum over its design columns j of w_jf * beta_j * x_j, minus the "
                       "same at the reference; see oddsmith/use/score.py",
             "times_named": {k: int(v) for k, v in sorted(reasons.value_counts().items())},
