@@ -326,6 +326,52 @@ def test_summarise_is_json_ready_and_consistent():
         assert type(value) in (int, float, list), key
 
 
+@pytest.mark.parametrize("seed, decimals", [(20, 2), (21, None), (22, 1)])
+def test_summarise_matches_the_libraries_on_ties_and_without(seed, decimals):
+    # summarise sorts once and computes AUC, KS, log loss, Brier and Hosmer–Lemeshow with numpy;
+    # scikit-learn and scipy.stats are the references.
+    y, p = _sample(seed, n=3_000, decimals=decimals)
+    summary = metrics.summarise(y, p)
+    fpr, tpr, _ = skm.roc_curve(y, p, drop_intermediate=False)
+    assert summary["auc"] == pytest.approx(skm.roc_auc_score(y, p), abs=1e-13)
+    assert summary["ks"] == pytest.approx(float(np.max(tpr - fpr)), abs=1e-15)
+    assert summary["log_loss"] == pytest.approx(skm.log_loss(y, np.clip(p, 1e-15, 1 - 1e-15)), rel=1e-13)
+    assert summary["brier"] == pytest.approx(skm.brier_score_loss(y, p), rel=1e-13)
+    hl = metrics.hosmer_lemeshow(y, p)
+    assert summary["hl_p_value"] == stats.chi2.sf(hl["statistic"], hl["df"])  # the same bits
+
+
+def test_midranks_and_p_values_are_the_bits_of_scipy_stats():
+    rng = np.random.default_rng(23)
+    values = np.round(rng.normal(size=2_000), 1)  # many ties
+    assert np.array_equal(metrics.midranks(values), stats.rankdata(values))
+    assert np.array_equal(metrics.midranks([3, 3, 3]), stats.rankdata([3, 3, 3]))
+    y, p = _sample(24)
+    noisy = np.clip(p + rng.normal(scale=0.1, size=p.size), 0.0, 1.0)
+    result = metrics.delong_test(y, p, noisy)
+    assert result["p_value"] == 2.0 * stats.norm.sf(abs(result["z"]))
+    ttest = metrics.corrected_resampled_ttest([0.01, 0.03, -0.005, 0.02, 0.012], n_train=800, n_test=200)
+    assert ttest["p_value"] == 2.0 * stats.t.sf(abs(ttest["t"]), 4)
+    ci = metrics.auc_confidence_interval(y, p, level=0.9)
+    assert ci["lower"] == max(0.0, ci["auc"] - stats.norm.ppf(0.95) * ci["se"])
+
+
+def test_metrics_never_import_the_heavy_libraries():
+    # A fit job computes summarise for every fold; importing scikit-learn or scipy.stats for it
+    # would cost more than the computation (see the note at the top of metrics.py).
+    import subprocess
+    import sys
+
+    code = ("import sys, numpy as np\n"
+            "from oddsmith.assessment import metrics\n"
+            "rng = np.random.default_rng(0); p = rng.random(500); y = (rng.random(500) < p).astype(int)\n"
+            "metrics.summarise(y, p); metrics.delong_test(y, p, p ** 2); metrics.auc_confidence_interval(y, p)\n"
+            "metrics.corrected_resampled_ttest([0.1, 0.2, 0.4], n_train=10, n_test=5)\n"
+            "print(sorted(m for m in ('sklearn', 'scipy.stats', 'statsmodels') if m in sys.modules))\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
+
+
 def test_summarise_single_class_fold_gives_none_with_notes():
     summary = metrics.summarise(np.zeros(6, dtype=int), [0.1, 0.2, 0.2, 0.3, 0.4, 0.5])
     json.dumps(summary, allow_nan=False)

@@ -14,9 +14,11 @@ import numpy as np
 
 from oddsmith.errors import ArgumentError, OddsmithError
 
-# scipy, scikit-learn and statsmodels are imported inside the functions that use them: the
-# threshold and decision stages need only the input checks here, and importing the three
-# libraries would cost them more time than their whole computation (about 1 s per job).
+# Nothing here imports scikit-learn, statsmodels or scipy.stats: importing them costs a job
+# 1-2 s, more than the whole computation of the decision stages and a tenth of a fit job's
+# work at 1M rows. The measures are computed with numpy, and the distribution functions come
+# from scipy.special (the functions scipy.stats evaluates, so the values are the same bits;
+# tests/test_metrics.py compares both with the libraries).
 
 # Probabilities are clipped to this distance from 0 and 1 before taking logits, so that a
 # prediction of exactly 0 or 1 gives a large finite logit. The size is common practice.
@@ -84,19 +86,50 @@ def _logit(p: np.ndarray) -> np.ndarray:
 # discrimination and accuracy
 
 
+def roc_corners(y: np.ndarray, p: np.ndarray, order: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Cumulative true and false positives at each distinct score, from the highest score down.
+
+    These are the corners of the ROC curve without the origin (the last is ``(events,
+    non-events)``). ``y`` and ``p`` must already be checked (:func:`outcomes_and_probabilities`);
+    ``order`` is a stable ascending argsort of ``p`` when the caller has one (any sort that
+    keeps equal scores together gives the same corners).
+    """
+    if order is None:
+        order = np.argsort(p, kind="stable")
+    descending = order[::-1]
+    p_desc = p[descending]
+    ends = np.append(np.flatnonzero(p_desc[1:] != p_desc[:-1]), p_desc.shape[0] - 1)
+    true_positives = np.cumsum(y[descending])[ends]
+    return true_positives, ends + 1 - true_positives
+
+
+def _auc_from_corners(true_positives: np.ndarray, false_positives: np.ndarray) -> float:
+    # Twice the area under the step-and-trapezoid curve in counts is a whole number, so it is
+    # summed exactly in integers and divided once (Python's int division rounds correctly).
+    tp = np.concatenate(([0], true_positives)).astype(np.int64)
+    fp = np.concatenate(([0], false_positives)).astype(np.int64)
+    twice_area = int(np.sum(np.diff(fp) * (tp[1:] + tp[:-1])))
+    return twice_area / (2 * int(tp[-1]) * int(fp[-1]))
+
+
+def _ks_from_corners(true_positives: np.ndarray, false_positives: np.ndarray) -> float:
+    return float(max(0.0, np.max(true_positives / true_positives[-1] - false_positives / false_positives[-1])))
+
+
 def auc(y, p) -> float:
     """Area under the ROC curve (ties between a positive and a negative count one half).
+
+    Computed from one sort of ``p`` (the ROC curve's corners, trapezoids between them); the
+    tests check it against scikit-learn's ``roc_auc_score`` and a count over all pairs.
 
     Examples
     --------
     >>> auc([0, 0, 1, 1], [0.1, 0.4, 0.35, 0.8])
     0.75
     """
-    from sklearn import metrics as skm
-
     y, p = outcomes_and_probabilities(y, p)
     _require_both_classes(y, "AUC")
-    return float(skm.roc_auc_score(y, p))
+    return _auc_from_corners(*roc_corners(y, p))
 
 
 def gini(y, p) -> float:
@@ -111,28 +144,27 @@ def ks(y, p) -> float:
     positives above negatives it equals the two-sample KS distance between the score
     distributions of the two classes.
     """
-    from sklearn import metrics as skm
-
     y, p = outcomes_and_probabilities(y, p)
     _require_both_classes(y, "KS")
-    fpr, tpr, _ = skm.roc_curve(y, p, drop_intermediate=False)
-    return float(np.max(tpr - fpr))
+    return _ks_from_corners(*roc_corners(y, p))
+
+
+def _log_loss(y: np.ndarray, p: np.ndarray) -> float:
+    clipped = np.clip(p, _EPS, 1.0 - _EPS)
+    return float(np.mean(-np.where(y == 1, np.log(clipped), np.log(1.0 - clipped))))
 
 
 def log_loss(y, p) -> float:
-    """Mean negative log-likelihood of the outcomes under ``p`` (natural log)."""
-    from sklearn import metrics as skm
-
+    """Mean negative log-likelihood of the outcomes under ``p`` (natural log; ``p`` clipped to
+    ``[1e-15, 1 - 1e-15]``). The tests check it against scikit-learn's ``log_loss``."""
     y, p = outcomes_and_probabilities(y, p)
-    return float(skm.log_loss(y, np.clip(p, _EPS, 1.0 - _EPS), labels=[0, 1]))
+    return _log_loss(y, p)
 
 
 def brier(y, p) -> float:
     """Brier score, the mean of ``(p - y) ** 2``."""
-    from sklearn import metrics as skm
-
     y, p = outcomes_and_probabilities(y, p)
-    return float(skm.brier_score_loss(y, p, labels=[0, 1]))
+    return float(np.mean((y - p) ** 2))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -288,11 +320,14 @@ def hosmer_lemeshow(y, p, *, groups: int = 10) -> dict:
         (:func:`hosmer_lemeshow_sample_check`): when it is not ``adequate`` the p-value is
         kept but should not be read as a test.
     """
-    from scipy import stats
-
     y, p = outcomes_and_probabilities(y, p)
     _check_group_count(groups, "groups")
-    order = np.argsort(p, kind="stable")
+    return _hosmer_lemeshow(y, p, np.argsort(p, kind="stable"), groups)
+
+
+def _hosmer_lemeshow(y: np.ndarray, p: np.ndarray, order: np.ndarray, groups: int) -> dict:
+    from scipy.special import chdtrc  # the chi-squared survival function scipy.stats.chi2.sf evaluates
+
     p_raw, y_sorted = p[order], y[order]
     p_sorted = np.clip(p_raw, _EPS, 1.0 - _EPS)
     bounds = _tie_aware_boundaries(p_raw, groups)
@@ -301,7 +336,7 @@ def hosmer_lemeshow(y, p, *, groups: int = 10) -> dict:
     expected = np.add.reduceat(p_sorted, bounds[:-1])
     statistic = float(np.sum((observed - expected) ** 2 / (expected * (1.0 - expected / n_g))))
     df = int(n_g.shape[0] - 2)
-    p_value = float(stats.chi2.sf(statistic, df)) if df >= 1 else None
+    p_value = float(chdtrc(df, statistic)) if df >= 1 else None
     table = [
         {
             "n": int(n_g[i]),
@@ -395,6 +430,25 @@ def reliability_bins(y, p, *, bins: int = 10) -> list[dict]:
 # DeLong variance and comparison of correlated AUCs
 
 
+def midranks(values) -> np.ndarray:
+    """Ranks 1..n of ``values`` with ties given the mean of their ranks (what
+    ``scipy.stats.rankdata`` returns by default, to the bit; the tests compare them).
+
+    Examples
+    --------
+    >>> midranks([0.3, 0.1, 0.3, 0.2]).tolist()
+    [3.5, 1.0, 3.5, 2.0]
+    """
+    values = np.asarray(values)
+    order = np.argsort(values, kind="stable")
+    ordered = values[order]
+    starts = np.flatnonzero(np.concatenate(([True], ordered[1:] != ordered[:-1])))
+    ends = np.append(starts[1:], ordered.shape[0])
+    ranks = np.empty(ordered.shape[0])
+    ranks[order] = np.repeat(0.5 * (starts + 1 + ends), ends - starts)
+    return ranks
+
+
 def _delong(y: np.ndarray, scores: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """AUCs and their DeLong covariance matrix for score rows ``scores`` (k × n).
 
@@ -402,17 +456,15 @@ def _delong(y: np.ndarray, scores: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     positive is ``(rank among all − rank among positives) / l`` and of a negative
     ``1 − (rank among all − rank among negatives) / m``. Sorting dominates: O(k·n log n).
     """
-    from scipy import stats
-
     positives, negatives = scores[:, y == 1], scores[:, y == 0]
     m, l = positives.shape[1], negatives.shape[1]
     if m < 2 or l < 2:
         raise OddsmithError(
             f"DeLong variance needs at least 2 positives and 2 negatives, got {m} and {l}"
         )
-    rank_pos = stats.rankdata(positives, axis=1)
-    rank_neg = stats.rankdata(negatives, axis=1)
-    rank_all = stats.rankdata(np.hstack([positives, negatives]), axis=1)
+    rank_pos = np.vstack([midranks(row) for row in positives])
+    rank_neg = np.vstack([midranks(row) for row in negatives])
+    rank_all = np.vstack([midranks(row) for row in np.hstack([positives, negatives])])
     aucs = (rank_all[:, :m].sum(axis=1) - m * (m + 1) / 2.0) / (m * l)
     v10 = (rank_all[:, :m] - rank_pos) / l
     v01 = 1.0 - (rank_all[:, m:] - rank_neg) / m
@@ -437,14 +489,14 @@ def auc_confidence_interval(y, p, *, level: float = 0.95) -> dict:
     dict
         ``auc``, ``se``, ``level``, ``lower``, ``upper``.
     """
-    from scipy import stats
+    from scipy.special import ndtri  # scipy.stats.norm.ppf
 
     if not (isinstance(level, float) and 0.0 < level < 1.0):
         raise OddsmithError(f"level must be a float strictly between 0 and 1, got {level!r}")
     y, p = outcomes_and_probabilities(y, p)
     aucs, covariance = _delong(y, p[np.newaxis, :])
     se = math.sqrt(covariance[0, 0])
-    z = float(stats.norm.ppf(0.5 + level / 2.0))
+    z = float(ndtri(0.5 + level / 2.0))
     value = float(aucs[0])
     return {
         "auc": value,
@@ -465,7 +517,7 @@ def delong_test(y, p_a, p_b) -> dict:
         and ``note``. When the difference has zero variance (e.g. identical rankings) ``z``
         and ``p_value`` are None and ``note`` says why; otherwise ``note`` is None.
     """
-    from scipy import stats
+    from scipy.special import ndtr  # ndtr(-z) is scipy.stats.norm.sf(z)
 
     y, p_a = outcomes_and_probabilities(y, p_a)
     _, p_b = outcomes_and_probabilities(y, p_b)
@@ -479,7 +531,7 @@ def delong_test(y, p_a, p_b) -> dict:
         return result | {"se": 0.0, "z": None, "p_value": None, "note": note}
     se = math.sqrt(variance)
     z = difference / se
-    p_value = float(2.0 * stats.norm.sf(abs(z)))
+    p_value = float(2.0 * ndtr(-abs(z)))
     return result | {"se": se, "z": z, "p_value": p_value, "note": None}
 
 
@@ -500,7 +552,7 @@ def corrected_resampled_ttest(differences, *, n_train: int, n_test: int) -> dict
         ``mean``, ``t``, ``df``, ``p_value`` (two-sided), ``note``. When every difference is
         equal the variance is 0: ``t`` and ``p_value`` are None and ``note`` says why.
     """
-    from scipy import stats
+    from scipy.special import stdtr  # stdtr(df, -t) is scipy.stats.t.sf(t, df)
 
     d = np.asarray(differences, dtype=float)
     if d.ndim != 1 or d.shape[0] < 2:
@@ -517,7 +569,7 @@ def corrected_resampled_ttest(differences, *, n_train: int, n_test: int) -> dict
         note = f"all {k} differences equal {mean!r}; the t statistic is undefined"
         return {"mean": mean, "t": None, "df": k - 1, "p_value": None, "note": note}
     t = mean / math.sqrt((1.0 / k + n_test / n_train) * variance)
-    p_value = float(2.0 * stats.t.sf(abs(t), k - 1))
+    p_value = float(2.0 * stdtr(k - 1, -abs(t)))
     return {"mean": mean, "t": t, "df": k - 1, "p_value": p_value, "note": None}
 
 
@@ -548,10 +600,17 @@ def summarise(y, p) -> dict:
     """
     y, p = outcomes_and_probabilities(y, p)
     notes: list[str] = []
-    auc_value = _guarded(lambda: auc(y, p), notes, "auc")
-    ks_value = _guarded(lambda: ks(y, p), notes, "ks") if auc_value is not None else None
+    order = np.argsort(p, kind="stable")  # one sort serves AUC, KS and Hosmer–Lemeshow
+    auc_value = ks_value = None
+    try:
+        _require_both_classes(y, "AUC")
+    except OddsmithError as exc:
+        notes.append(f"auc: {exc}")
+    else:
+        corners = roc_corners(y, p, order)
+        auc_value, ks_value = _auc_from_corners(*corners), _ks_from_corners(*corners)
     calibration = _guarded(lambda: calibration_intercept_slope(y, p), notes, "calibration")
-    hl = hosmer_lemeshow(y, p)
+    hl = _hosmer_lemeshow(y, p, order, 10)
     if hl["p_value"] is None:
         notes.append(f"hosmer_lemeshow: only {hl['df'] + 2} groups of distinct risk; no p-value")
     return {
@@ -560,8 +619,8 @@ def summarise(y, p) -> dict:
         "auc": auc_value,
         "gini": None if auc_value is None else 2.0 * auc_value - 1.0,
         "ks": ks_value,
-        "log_loss": log_loss(y, p),
-        "brier": brier(y, p),
+        "log_loss": _log_loss(y, p),
+        "brier": float(np.mean((y - p) ** 2)),
         "calibration_intercept": None if calibration is None else calibration["intercept"],
         "calibration_slope": None if calibration is None else calibration["slope"],
         "hl_statistic": hl["statistic"],
@@ -944,8 +1003,7 @@ def calibration_intercept_interval(y, p, *, level: float = 0.95) -> dict:
     dict
         ``estimate``, ``se``, ``lower``, ``upper``, ``level``, ``method``.
     """
-    from scipy import stats
-    from scipy.special import expit
+    from scipy.special import expit, ndtri  # ndtri is scipy.stats.norm.ppf
 
     _check_level(level)
     y, p = outcomes_and_probabilities(y, p)
@@ -954,7 +1012,7 @@ def calibration_intercept_interval(y, p, *, level: float = 0.95) -> dict:
     a = _calibration_in_the_large(y, lp)
     q = expit(a + lp)
     se = 1.0 / math.sqrt(float(np.sum(q * (1.0 - q))))
-    half = float(stats.norm.ppf(0.5 + level / 2.0)) * se
+    half = float(ndtri(0.5 + level / 2.0)) * se
     return {"estimate": a, "se": se, "lower": a - half, "upper": a + half, "level": level,
             "method": WALD_INTERCEPT_METHOD}
 

@@ -12,8 +12,8 @@ import warnings
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
+from oddsmith.assessment.metrics import midranks
 from oddsmith.errors import ArgumentError, EventsPerVariableWarning
 
 # Peduzzi et al., J. Clinical Epidemiology 49 (1996).
@@ -246,7 +246,7 @@ def _level_event_rate(values: pd.Series, y: np.ndarray) -> np.ndarray:
 
 def rank_auc(y: np.ndarray, score: np.ndarray) -> float:
     """Area under the ROC curve by the Mann-Whitney rank sum (ties get average ranks)."""
-    ranks = stats.rankdata(score)
+    ranks = midranks(score)
     n_pos = int(y.sum())
     n_neg = len(y) - n_pos
     return float((ranks[y == 1].sum() - n_pos * (n_pos + 1) / 2) / (n_pos * n_neg))

@@ -150,12 +150,12 @@ def gap_interval(cv_selected: dict, cv_challenger: dict, metric: str, *, level: 
     >>> round(gap_interval(sel, ch, "log_loss")["advantage"], 6)
     0.013333
     """
-    from scipy import stats
+    from scipy.special import stdtrit  # stdtrit(df, q) is scipy.stats.t.ppf(q, df)
 
     sign = 1.0 if BETTER[metric] == "lower" else -1.0
     paired = paired_difference(cv_selected, cv_challenger, metric)
     advantage = sign * paired["mean"]
-    half = float(stats.t.ppf((1.0 + level) / 2.0, paired["df"])) * paired["standard_error"]
+    half = float(stdtrit(paired["df"], (1.0 + level) / 2.0)) * paired["standard_error"]
     base = np.array([f[metric] for f in cv_selected["folds"] if f.get(metric) is not None], dtype=float)
     return {"metric": metric, "better": BETTER[metric], "advantage": advantage, "lower": advantage - half,
             "upper": advantage + half, "level": level, "standard_error": paired["standard_error"],
