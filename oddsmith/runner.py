@@ -221,11 +221,12 @@ def _files(named) -> list[str]:
 
 #: Rules whose extra threads run the job's own workers, with results that do not depend on
 #: how many (BLAS stays at the config's threads: the rule passes ``blas_threads``):
-#: evaluate's bootstrap shares its replicates among them. It runs alone on the build's one
-#: path after compare, where a second core would otherwise idle. A rule asks for at least
+#: evaluate's bootstrap and apply_cutoff's subgroup bootstrap share their replicates among
+#: them. Both run on the build's one path after compare, where a second core would
+#: otherwise idle, and apply_cutoff is on the path that a change of costs reruns. A rule asks for at least
 #: this many threads (rules/common.smk); Snakemake lowers the request to ``--cores`` when
 #: fewer are given.
-RULE_MIN_THREADS = {"evaluate": 2}
+RULE_MIN_THREADS = {"evaluate": 2, "apply_cutoff": 2}
 
 
 def stage(snakemake, function, *, blas_threads: int | None = None, **kwargs):

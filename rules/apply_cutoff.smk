@@ -13,6 +13,7 @@ rule apply_cutoff:
     benchmark:
         "benchmarks/{run}/apply_cutoff.tsv"
     params:
+        blas_threads=RES["threads"],
         code=code(script="scripts/apply_cutoff.py"),
     script:
         "../scripts/apply_cutoff.py"

@@ -325,6 +325,28 @@ def test_one_pass_over_the_replicates_gives_each_attributes_own_replicates():
                 np.testing.assert_array_equal(both[name][group][key], values)
 
 
+def test_replicates_shared_among_threads_are_the_same_bits(monkeypatch):
+    # apply_cutoff hands its threads to comparison_replicates; blocks of replicates are fixed
+    # by the number of rows and every replicate has its own generator.
+    from oddsmith.assessment import metrics
+
+    monkeypatch.setattr(metrics, "_CHUNK_CELLS", 2_000)  # blocks of 4 replicates at 500 rows
+    rng = np.random.default_rng(10)
+    n = 500
+    region = rng.choice(np.array(["n", "s", "e"]), size=n)
+    p = rng.random(n)
+    y, flagged = (rng.random(n) < p).astype(int), p >= 0.5
+    plan = {"region": (region, ["n", "s", "e"], "s")}
+    alone = fairness.comparison_replicates(y, flagged, plan, replicates=30, seed=8)
+    for workers in (2, 3):
+        shared = fairness.comparison_replicates(y, flagged, plan, replicates=30, seed=8, workers=workers)
+        for group, comparisons in alone["region"].items():
+            for key, values in comparisons.items():
+                np.testing.assert_array_equal(shared["region"][group][key], values)
+    with pytest.raises(ValueError, match="workers must be an integer of at least 1"):
+        fairness.comparison_replicates(y, flagged, plan, replicates=30, seed=8, workers=0)
+
+
 def test_add_intervals_wilson_rates_and_undefined_replicates_counted():
     from statsmodels.stats.proportion import proportion_confint
 

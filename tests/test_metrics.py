@@ -422,7 +422,7 @@ def test_bootstrap_in_threads_gives_the_same_bits(monkeypatch):
         shared = metrics.bootstrap_replicate_values(y, p, replicates=30, seed=4, workers=workers)
         for name in metrics.BOOTSTRAP_METRICS:
             assert np.array_equal(shared[name], alone[name], equal_nan=True), (name, workers)
-    with pytest.raises(ValueError, match="workers must be at least 1"):
+    with pytest.raises(ValueError, match="workers must be an integer of at least 1"):
         metrics.bootstrap_replicate_values(y, p, replicates=30, seed=4, workers=0)
 
 

@@ -458,13 +458,15 @@ def group_comparison_replicates(y, flagged, labels, assessed: list[str], referen
                                  seed=seed)[""]
 
 
-def comparison_replicates(y, flagged, attributes: dict, *, replicates: int, seed: int) -> dict:
+def comparison_replicates(y, flagged, attributes: dict, *, replicates: int, seed: int, workers: int = 1) -> dict:
     """:func:`group_comparison_replicates` of several attributes from one pass over the replicates.
 
     ``attributes`` maps each attribute to ``(labels, assessed, reference)``. Drawing the
     replicates is most of the work (and, after a change of costs, most of the decision
-    stage's), so each replicate is drawn once and counted for every attribute. Counts are
-    whole numbers, so every total is exact whichever way it is summed.
+    stage's), so each replicate is drawn once and counted for every attribute, and
+    ``workers`` threads share the replicates (:func:`oddsmith.assessment.metrics.run_blocks`).
+    Counts are whole numbers, so every total is exact whichever way it is summed, and the
+    same for any ``workers``.
 
     Returns
     -------
@@ -480,12 +482,18 @@ def comparison_replicates(y, flagged, attributes: dict, *, replicates: int, seed
         group = np.array([position.get(g, len(assessed)) for g in found], dtype=np.int64)[inverse.ravel()]
         cells[name] = group * 4 + flagged.astype(np.int64) * 2 + (y == 1).astype(np.int64)
         totals[name] = np.empty((replicates, len(assessed) + 1, 4))
-    for b, rows in enumerate(metrics.bootstrap_draws(y, replicates=replicates, seed=seed)):
-        for name, cell in cells.items():
-            counted = np.bincount(cell[rows], minlength=totals[name].shape[1] * 4).reshape(-1, 4)
-            # (rows, flagged, events, flagged events) from the counts of (not flagged, flagged) × (non-event, event)
-            totals[name][b] = np.column_stack([counted.sum(axis=1), counted[:, 2] + counted[:, 3],
-                                               counted[:, 1] + counted[:, 3], counted[:, 3]])
+    events, non_events = np.flatnonzero(y == 1), np.flatnonzero(y != 1)
+
+    def count(first: int, last: int) -> None:
+        for b in range(first, last):
+            rows = metrics.draw_replicate(events, non_events, replicate=b, seed=seed)
+            for name, cell in cells.items():
+                counted = np.bincount(cell[rows], minlength=totals[name].shape[1] * 4).reshape(-1, 4)
+                # (rows, flagged, events, flagged events) from the counts of (not flagged, flagged) × (non-event, event)
+                totals[name][b] = np.column_stack([counted.sum(axis=1), counted[:, 2] + counted[:, 3],
+                                                   counted[:, 1] + counted[:, 3], counted[:, 3]])
+
+    metrics.run_blocks(count, metrics.bootstrap_blocks(y.shape[0], replicates), workers=workers)
     out = {}
     for name, (_, assessed, reference) in attributes.items():
         ref = _group_counts(totals[name][:, assessed.index(reference)])
@@ -505,7 +513,7 @@ def add_intervals(rows: list[dict], y, p, groups, *, cutoff, bootstrap: dict | N
 
 
 def add_intervals_of_attributes(attributes: dict, y, p, *, cutoff, bootstrap: dict | None,
-                                level: float = 0.95) -> dict:
+                                level: float = 0.95, workers: int = 1) -> dict:
     """:func:`add_intervals` of several attributes (name → ``(rows, groups)``), drawing the
     bootstrap replicates once for all of them (:func:`comparison_replicates`); returns name → rows."""
     y, p = metrics.outcomes_and_probabilities(y, p)
@@ -520,7 +528,7 @@ def add_intervals_of_attributes(attributes: dict, y, p, *, cutoff, bootstrap: di
     replicated = {}
     if bootstrap and compared:
         replicated = comparison_replicates(y, flagged, compared, replicates=bootstrap["replicates"],
-                                           seed=bootstrap["seed"])
+                                           seed=bootstrap["seed"], workers=workers)
     return {name: _rows_with_intervals(rows, y, flagged, plans[name][0], replicated.get(name),
                                        bootstrap=bootstrap, level=level)
             for name, (rows, _) in attributes.items()}

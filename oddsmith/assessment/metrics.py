@@ -689,21 +689,14 @@ def bootstrap_rows(y, *, replicate: int, seed: int) -> np.ndarray:
     computed on ``y[rows], p[rows]``.
     """
     y = np.asarray(y)
-    events, non_events = np.flatnonzero(y == 1), np.flatnonzero(y != 1)
+    return draw_replicate(np.flatnonzero(y == 1), np.flatnonzero(y != 1), replicate=replicate, seed=seed)
+
+
+def draw_replicate(events: np.ndarray, non_events: np.ndarray, *, replicate: int, seed: int) -> np.ndarray:
+    """:func:`bootstrap_rows` from the row positions of the events and of the non-events."""
     rng = np.random.default_rng([int(seed), int(replicate)])
     return np.concatenate([events[rng.integers(0, events.size, events.size)],
                            non_events[rng.integers(0, non_events.size, non_events.size)]])
-
-
-def bootstrap_draws(y, *, replicates: int, seed: int):
-    """Yield the row indices of replicates ``0 … replicates - 1`` in turn: those of
-    :func:`bootstrap_rows` (same generator calls), with the outcome split made once."""
-    y = np.asarray(y)
-    events, non_events = np.flatnonzero(y == 1), np.flatnonzero(y != 1)
-    for b in range(replicates):
-        rng = np.random.default_rng([int(seed), b])
-        yield np.concatenate([events[rng.integers(0, events.size, events.size)],
-                              non_events[rng.integers(0, non_events.size, non_events.size)]])
 
 
 def bootstrap_blocks(n: int, replicates: int) -> list[tuple[int, int]]:
@@ -711,6 +704,34 @@ def bootstrap_blocks(n: int, replicates: int) -> list[tuple[int, int]]:
     :data:`_CHUNK_CELLS` cells (replicates × ``n`` rows) each, fixed by ``n`` alone."""
     block = max(1, _CHUNK_CELLS // max(n, 1))
     return [(first, min(replicates, first + block)) for first in range(0, replicates, block)]
+
+
+def _check_workers(workers) -> None:
+    if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
+        raise ArgumentError(f"workers must be an integer of at least 1, got {workers!r}")
+
+
+def run_blocks(compute, blocks, *, workers: int = 1) -> None:
+    """Call ``compute(first, last)`` for every block of replicates, on ``workers`` threads.
+
+    Each replicate has its own generator and each block writes only its own replicates'
+    results, so the results are the same bits for any ``workers``; BLAS runs on one thread
+    meanwhile (threads and BLAS threads would contend for the same cores). numpy releases
+    the GIL in the array work, so the threads share the cores.
+    """
+    from threadpoolctl import threadpool_limits
+
+    _check_workers(workers)
+    with threadpool_limits(limits=1):
+        if int(workers) == 1:
+            for first, last in blocks:
+                compute(first, last)
+            return
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=int(workers)) as pool:
+            for done in [pool.submit(compute, first, last) for first, last in blocks]:
+                done.result()
 
 
 def bootstrap_block_counts(y, first: int, last: int, *, seed: int, column=None) -> np.ndarray:
@@ -726,10 +747,7 @@ def bootstrap_block_counts(y, first: int, last: int, *, seed: int, column=None) 
     events, non_events = target[events], target[non_events]
     counts = np.empty((last - first, n))
     for b in range(first, last):
-        rng = np.random.default_rng([int(seed), b])
-        drawn = np.concatenate([events[rng.integers(0, events.size, events.size)],
-                                non_events[rng.integers(0, non_events.size, non_events.size)]])
-        counts[b - first] = np.bincount(drawn, minlength=n)
+        counts[b - first] = np.bincount(draw_replicate(events, non_events, replicate=b, seed=seed), minlength=n)
     return counts
 
 
@@ -867,8 +885,7 @@ def bootstrap_replicate_values(y, p, *, replicates: int, seed: int, workers: int
     y, p = outcomes_and_probabilities(y, p)
     _require_both_classes(y, "the stratified bootstrap")
     _check_bootstrap(replicates, seed)
-    if int(workers) < 1:
-        raise ArgumentError(f"workers must be at least 1, got {workers!r}")
+    _check_workers(workers)
     order = np.argsort(p, kind="stable")
     column = np.empty_like(order)
     column[order] = np.arange(order.size)
@@ -889,21 +906,7 @@ def bootstrap_replicate_values(y, p, *, replicates: int, seed: int, workers: int
         values["calibration_intercept"][block], values["calibration_slope"][block] = (
             _calibration_replicates(w, y_s, lp_s))
 
-    from threadpoolctl import threadpool_limits
-
-    blocks = bootstrap_blocks(y.shape[0], replicates)
-    with threadpool_limits(limits=1):
-        if int(workers) == 1:
-            for first, last in blocks:
-                block_values(first, last)
-        else:
-            from concurrent.futures import ThreadPoolExecutor
-
-            # numpy releases the GIL in the array work, so the threads share the cores;
-            # each block writes its own slice of ``values``.
-            with ThreadPoolExecutor(max_workers=int(workers)) as pool:
-                for done in [pool.submit(block_values, first, last) for first, last in blocks]:
-                    done.result()
+    run_blocks(block_values, bootstrap_blocks(y.shape[0], replicates), workers=workers)
     values["gini"] = 2.0 * values["auc"] - 1.0
     return values
 

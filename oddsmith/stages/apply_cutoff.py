@@ -68,7 +68,7 @@ def _check_artifacts(scores: pd.DataFrame, evaluation: dict, choice: dict) -> No
                             problems)
 
 
-def _group_rows(attributes: dict, y, p, scores, *, cutoff, evaluation: dict) -> dict:
+def _group_rows(attributes: dict, y, p, scores, *, cutoff, evaluation: dict, workers: int) -> dict:
     """Decision figures of each attribute's groups with their intervals; the bootstrap (if
     any) repeats the evaluation's replicates: same seed, same count, same resampling rule,
     each replicate drawn once for every attribute."""
@@ -76,8 +76,9 @@ def _group_rows(attributes: dict, y, p, scores, *, cutoff, evaluation: dict) -> 
     rows = {name: (add_decisions(block["rows"], y, p, labels[name], cutoff=cutoff, attribute=name), labels[name])
             for name, block in attributes.items()}
     boot = evaluation.get("bootstrap")
-    with_intervals = add_intervals_of_attributes(rows, y, p, cutoff=cutoff, level=_level(evaluation), bootstrap=boot and {
-        "replicates": boot["replicates"], "seed": boot["seed"], "method": boot["method"]})
+    with_intervals = add_intervals_of_attributes(rows, y, p, cutoff=cutoff, level=_level(evaluation), workers=workers,
+                                                 bootstrap=boot and {"replicates": boot["replicates"], "seed": boot["seed"],
+                                                                     "method": boot["method"]})
     return {name: block | {"rows": with_intervals[name]} for name, block in attributes.items()}
 
 
@@ -98,9 +99,10 @@ def _interval_note(evaluation: dict) -> dict:
 
 
 def run_apply_cutoff(*, scores_path: str, probability_metrics_path: str, choice_path: str, out_cutoff_metrics: str,
-                     out_subgroups: str, out_predictions: str) -> dict:
+                     out_subgroups: str, out_predictions: str, workers: int = 1) -> dict:
     """Apply the adopted cut-off to the test scores; write the cut-off metrics, subgroups and
-    predictions (evaluate's cut-off-free metrics stay in its own file)."""
+    predictions (evaluate's cut-off-free metrics stay in its own file). ``workers`` threads
+    share the subgroup bootstrap's replicates (the same bits for any number)."""
     scores = read_parquet(scores_path)
     evaluation, choice = read_json(probability_metrics_path), read_json(choice_path)
     _check_artifacts(scores, evaluation, choice)
@@ -113,7 +115,7 @@ def run_apply_cutoff(*, scores_path: str, probability_metrics_path: str, choice_
               "cutoff_table": _cutoff_table(y, p, choice), "period_flag_rates": None}
     if evaluation["periods"] is not None:
         result["period_flag_rates"] = _period_flag_rates(evaluation["periods"], scores["period"].to_numpy(), p, cutoff)
-    groups = _group_rows(subgroups["attributes"], y, p, scores, cutoff=cutoff, evaluation=evaluation)
+    groups = _group_rows(subgroups["attributes"], y, p, scores, cutoff=cutoff, evaluation=evaluation, workers=workers)
     log.info("cut-off %s on %d test rows: %d flagged", cutoff, len(y), int(flagged(p, cutoff).sum()))
     predictions = pd.DataFrame({"id": scores["id"].to_numpy(), "y": y, "p": p,
                                 "flagged": flagged(p, cutoff).astype("int8")})
