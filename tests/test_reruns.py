@@ -336,6 +336,9 @@ def _changed_by(project: Path, path: str) -> set[str]:
 @pytest.mark.parametrize(("path", "rules"), [
     # the scripts that import oddsmith.assessment.metrics, directly or through another module
     ("oddsmith/assessment/metrics.py", {"fit", "compare", "challenger_fit", "challenger_gap", "threshold", "evaluate", "apply_cutoff", "refit"}),
+    # ranks with ties: the metrics (DeLong) and the features stage's leakage screen
+    ("oddsmith/assessment/ranks.py", {"features", "fit", "compare", "challenger_fit", "challenger_gap", "threshold", "evaluate",
+                                      "apply_cutoff", "refit"}),
     # the card's renderer runs in the card rule only; the URL fetcher also renders the drift page
     ("oddsmith/reporting/card.py", {"card"}),
     ("oddsmith/reporting/card_findings.py", {"card"}),

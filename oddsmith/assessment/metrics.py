@@ -12,6 +12,7 @@ import warnings
 
 import numpy as np
 
+from oddsmith.assessment.ranks import midranks
 from oddsmith.errors import ArgumentError, OddsmithError
 
 # Nothing here imports scikit-learn, statsmodels or scipy.stats: importing them costs a job
@@ -428,25 +429,6 @@ def reliability_bins(y, p, *, bins: int = 10) -> list[dict]:
 
 # ---------------------------------------------------------------------------------------------
 # DeLong variance and comparison of correlated AUCs
-
-
-def midranks(values) -> np.ndarray:
-    """Ranks 1..n of ``values`` with ties given the mean of their ranks (what
-    ``scipy.stats.rankdata`` returns by default, to the bit; the tests compare them).
-
-    Examples
-    --------
-    >>> midranks([0.3, 0.1, 0.3, 0.2]).tolist()
-    [3.5, 1.0, 3.5, 2.0]
-    """
-    values = np.asarray(values)
-    order = np.argsort(values, kind="stable")
-    ordered = values[order]
-    starts = np.flatnonzero(np.concatenate(([True], ordered[1:] != ordered[:-1])))
-    ends = np.append(starts[1:], ordered.shape[0])
-    ranks = np.empty(ordered.shape[0])
-    ranks[order] = np.repeat(0.5 * (starts + 1 + ends), ends - starts)
-    return ranks
 
 
 def _delong(y: np.ndarray, scores: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

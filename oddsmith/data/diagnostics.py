@@ -13,7 +13,7 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from oddsmith.assessment.metrics import midranks
+from oddsmith.assessment.ranks import midranks
 from oddsmith.errors import ArgumentError, EventsPerVariableWarning
 
 # Peduzzi et al., J. Clinical Epidemiology 49 (1996).
