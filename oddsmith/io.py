@@ -100,19 +100,32 @@ def write_parquet_chunks(path: str | Path, frames) -> None:
     """Write DataFrames with the same columns as one Parquet file, one row group each.
 
     Only one chunk is converted to Arrow at a time, so a large table can be written without
-    a second whole copy in memory. Atomic: a temporary file is renamed into place.
+    a second whole copy in memory. A row group is compressed and written on a second thread
+    while the next frame is produced (Arrow releases the GIL there), one at a time and in
+    order, so the bytes are those of a plain loop. Atomic: a temporary file is renamed into
+    place.
     """
+    from concurrent.futures import ThreadPoolExecutor
+
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
     os.close(fd)
     writer = None
     try:
-        for frame in frames:
-            table = pa.Table.from_pandas(frame, preserve_index=False)
-            if writer is None:
-                writer = pq.ParquetWriter(tmp, table.schema, compression="zstd", write_statistics=True)
-            writer.write_table(table)
+        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="parquet-writer") as pool:
+            writing = None
+            for frame in frames:
+                table = pa.Table.from_pandas(frame, preserve_index=False)
+                frame = None  # noqa: F841 (the frame may go while its table is written)
+                if writer is None:
+                    writer = pq.ParquetWriter(tmp, table.schema, compression="zstd", write_statistics=True)
+                if writing is not None:
+                    writing.result()  # the row group before, written (or its error raised)
+                writing = pool.submit(writer.write_table, table)
+                table = None
+            if writing is not None:
+                writing.result()
         if writer is None:
             raise ArgumentError(f"no data to write to {path}")
         writer.close()

@@ -222,11 +222,36 @@ def _files(named) -> list[str]:
 #: Rules whose extra threads run the job's own workers, with results that do not depend on
 #: how many (BLAS stays at the config's threads: the rule passes ``blas_threads``):
 #: evaluate's bootstrap and apply_cutoff's subgroup bootstrap share their replicates among
-#: them. Both run on the build's one path after compare, where a second core would
-#: otherwise idle, and apply_cutoff is on the path that a change of costs reruns. A rule asks for at least
-#: this many threads (rules/common.smk); Snakemake lowers the request to ``--cores`` when
-#: fewer are given.
-RULE_MIN_THREADS = {"evaluate": 2, "apply_cutoff": 2}
+#: them, features its leakage screen's features. All three run alone on the build's one
+#: path (features before the fits, the others after compare), where a second core would
+#: otherwise idle, and apply_cutoff is on the path that a change of costs reruns. A rule
+#: asks for at least this many threads (rules/common.smk); Snakemake lowers the request to
+#: ``--cores`` when fewer are given.
+RULE_MIN_THREADS = {"features": 2, "evaluate": 2, "apply_cutoff": 2}
+
+
+#: glibc ``mallopt`` settings of a job (parameter number → bytes): arrays up to 32 MB come from
+#: the heap and freed memory stays with the process up to 1 GB, so that the many short-lived
+#: temporaries of array work (a bootstrap block is 8 × 250,000 doubles at 1M rows) reuse
+#: memory the process already holds instead of each costing fresh pages from the kernel.
+#: Arrays above 32 MB (a design, a data column set) are still mapped and returned on release,
+#: so peak memory is unchanged; measured at 1M rows, the evaluation's bootstrap took 18.5 s
+#: against 21.7 s with glibc's defaults.
+ALLOCATOR_SETTINGS = {-3: 32 * 1024 * 1024,  # M_MMAP_THRESHOLD
+                      -1: 1024 * 1024 * 1024}  # M_TRIM_THRESHOLD
+
+
+def tune_allocator() -> bool:
+    """Apply :data:`ALLOCATOR_SETTINGS` when the process runs on glibc; False elsewhere
+    (another C library keeps its own behaviour: the results do not depend on it)."""
+    import ctypes
+
+    try:
+        mallopt = ctypes.CDLL(None).mallopt
+    except (OSError, AttributeError):
+        return False
+    mallopt.argtypes, mallopt.restype = [ctypes.c_int, ctypes.c_int], ctypes.c_int
+    return all(mallopt(param, value) == 1 for param, value in ALLOCATOR_SETTINGS.items())
 
 
 def stage(snakemake, function, *, blas_threads: int | None = None, **kwargs):
@@ -234,8 +259,9 @@ def stage(snakemake, function, *, blas_threads: int | None = None, **kwargs):
 
     stderr and the ``oddsmith`` loggers go to ``snakemake.log[0]``; BLAS/OpenMP pools are
     limited to ``blas_threads`` (default ``snakemake.threads``): a rule whose extra threads
-    run its own workers keeps BLAS at the config's threads, so its bytes do not depend on them. The output named ``stamp`` (if the rule has one) is
-    written last.
+    run its own workers keeps BLAS at the config's threads, so its bytes do not depend on them.
+    The C allocator is tuned for array work (:func:`tune_allocator`). The output named
+    ``stamp`` (if the rule has one) is written last.
 
     One of the project's own errors (:class:`~oddsmith.errors.OddsmithError`: bad data,
     config or artifact) is written to the log with its traceback and shown on the job's
@@ -250,6 +276,7 @@ def stage(snakemake, function, *, blas_threads: int | None = None, **kwargs):
     logging.basicConfig(stream=handle, level=logging.INFO, format=LOG_FORMAT, force=True)
     from threadpoolctl import threadpool_limits
 
+    tune_allocator()
     try:
         with threadpool_limits(limits=int(blas_threads or snakemake.threads)):
             result = function(**kwargs)

@@ -22,6 +22,7 @@ rule features:
         target=CONFIG["data"]["target"],
         id_column=CONFIG["data"]["id_column"],
         diagnostics=CONFIG["diagnostics"],
+        blas_threads=RES["threads"],
         code=code(script="scripts/features.py"),
     script:
         "../scripts/features.py"

@@ -146,3 +146,20 @@ def test_a_leakage_screen_made_earlier_gives_the_same_report():
     together = design_diagnostics(X, y, raw_train=raw)
     screened = leakage_screen(raw, y, None, 0.95)
     assert design_diagnostics(X, y, leakage=screened) == together
+
+
+def test_the_leakage_screen_shared_among_threads_is_the_same_report():
+    # The features rule scores its features on two threads; each feature is scored alone.
+    from oddsmith.data.diagnostics import leakage_screen
+
+    rng = np.random.default_rng(9)
+    raw = pd.DataFrame({f"x{i}": rng.normal(size=2_000) for i in range(7)}
+                       | {"grade": rng.choice(["a", "b", None], 2_000)})
+    raw.loc[::13, "x3"] = np.nan
+    y = (rng.random(2_000) < 1 / (1 + np.exp(-raw["x0"].to_numpy()))).astype(int)
+    alone = leakage_screen(raw, y, None, 0.6)
+    assert [f["feature"] for f in alone["features"]] == list(raw.columns) and alone["suspected"] == ["x0"]
+    for workers in (2, 3):
+        assert leakage_screen(raw, y, None, 0.6, workers=workers) == alone
+    with pytest.raises(ValueError, match="workers must be an integer of at least 1"):
+        leakage_screen(raw, y, None, 0.6, workers=0)

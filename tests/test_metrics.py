@@ -411,6 +411,40 @@ def test_bootstrap_replicates_equal_a_plain_loop_with_the_same_rows():
             assert fast[name][b] == pytest.approx(slow[name], abs=1e-9), (name, b)
 
 
+def test_replicate_calibration_fits_start_at_the_sample_fit_and_end_where_a_cold_start_ends(monkeypatch):
+    # The replicates' Newton steps begin at the whole sample's fit (fewer steps than from the
+    # event rate); where they end must not depend on where they began.
+    y, p = _sample(6, n=2_000, decimals=None)
+    order = np.argsort(p, kind="stable")
+    y_s, lp_s = y[order].astype(float), metrics._logit(p[order])
+    start = metrics._calibration_start(y_s, lp_s)
+    whole = metrics.calibration_intercept_slope(y, p)
+    assert start["offset"][0] == pytest.approx(whole["intercept"], abs=1e-9)
+    assert start["slope"][1] == pytest.approx(whole["slope"], abs=1e-8)
+    w = np.stack([np.bincount(metrics.bootstrap_rows(y, replicate=b, seed=3), minlength=y.size)[order]
+                  for b in range(12)]).astype(float)
+    steps = {"cold": 0, "warm": 0}
+    newton = metrics._newton_rows
+
+    def counted(which):
+        def run(state, evaluate, **options):
+            def evaluate_counted(params, rows):
+                steps[which] += 1
+                return evaluate(params, rows)
+            return newton(state, evaluate_counted, **options)
+        return run
+
+    monkeypatch.setattr(metrics, "_newton_rows", counted("cold"))
+    cold = metrics._calibration_replicates(w, y_s, lp_s)
+    monkeypatch.setattr(metrics, "_newton_rows", counted("warm"))
+    warm = metrics._calibration_replicates(w, y_s, lp_s, start)
+    np.testing.assert_allclose(warm, cold, rtol=0, atol=1e-10)
+    assert steps["warm"] < steps["cold"], steps
+    # one distinct prediction: no sample fit to start from, and every replicate undefined
+    flat = np.full(y.size, 0.3)
+    assert metrics._calibration_start(y_s, metrics._logit(flat)) is None
+
+
 def test_bootstrap_in_threads_gives_the_same_bits(monkeypatch):
     # The evaluate rule shares the replicate blocks among its threads; blocks are fixed by
     # the number of rows, and each replicate has its own generator.

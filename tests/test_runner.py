@@ -65,3 +65,21 @@ def test_a_bug_keeps_its_traceback_and_shows_no_block(tmp_path, terminal):
         stage(_job(tmp_path), broken)
     assert terminal.getvalue() == ""
     assert not (tmp_path / "stamp.json").exists()
+
+
+def test_jobs_tune_glibc_allocator_and_carry_on_without_it(monkeypatch):
+    import ctypes
+    import platform
+
+    from oddsmith import runner
+
+    def no_library(name):
+        raise OSError(f"{name}: not found")
+
+    with monkeypatch.context() as patched:
+        patched.setattr(ctypes, "CDLL", no_library)
+        assert runner.tune_allocator() is False
+    if platform.libc_ver()[0] != "glibc":
+        pytest.skip(f"the allocator settings are glibc's; this C library is {platform.libc_ver()[0]!r}")
+    assert runner.tune_allocator() is True
+    assert runner.ALLOCATOR_SETTINGS[-3] <= runner.ALLOCATOR_SETTINGS[-1]

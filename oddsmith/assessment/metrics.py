@@ -805,9 +805,35 @@ def _newton_rows(state, evaluate, *, max_iter: int, tolerance: float):
     return params, converged
 
 
-def _calibration_replicates(w: np.ndarray, y_s: np.ndarray, lp_s: np.ndarray) -> tuple:
+def _calibration_start(y_s: np.ndarray, lp_s: np.ndarray) -> dict | None:
+    """The whole sample's slope-model and offset-model parameters, by the same Newton steps
+    as the replicates (every draw count 1): where the replicates start, since a replicate's
+    fit lies near the sample's and so needs fewer steps. None when either fit fails there;
+    the replicates then start from the event rate, as a lone fit does."""
+    if y_s.size == 0 or lp_s[0] == lp_s[-1]:  # lp_s is sorted: one distinct prediction
+        return None
+    start = _calibration_params(np.ones((1, y_s.shape[0])), y_s, lp_s, None)
+    if not (start["slope_ok"][0] and start["offset_ok"][0]):
+        return None
+    return {"slope": start["slope"][0], "offset": start["offset"][0]}
+
+
+def _calibration_replicates(w: np.ndarray, y_s: np.ndarray, lp_s: np.ndarray, start: dict | None = None) -> tuple:
     """Calibration intercept (offset model) and slope of each replicate, weighted by draw
-    counts; NaN where the fit is undefined (one distinct prediction) or did not converge."""
+    counts; NaN where the fit is undefined (one distinct prediction) or did not converge.
+    ``start``: where every replicate's Newton steps begin (:func:`_calibration_start`)."""
+    fits = _calibration_params(w, y_s, lp_s, start)
+    drawn = w > 0
+    first, last = drawn.argmax(axis=1), w.shape[1] - 1 - drawn[:, ::-1].argmax(axis=1)
+    varies = lp_s[first] != lp_s[last]
+    slope = np.where(fits["slope_ok"] & varies, fits["slope"][:, 1], np.nan)
+    intercept = np.where(fits["offset_ok"] & varies, fits["offset"][:, 0], np.nan)
+    return intercept, slope
+
+
+def _calibration_params(w: np.ndarray, y_s: np.ndarray, lp_s: np.ndarray, start: dict | None) -> dict:
+    """Newton fits of the slope model ``a + b·lp`` and the offset model ``a + lp`` for every
+    row of draw counts ``w``: their parameters and masks of the fits that converged."""
     from scipy.special import expit
 
     wy = w @ y_s
@@ -837,17 +863,16 @@ def _calibration_replicates(w: np.ndarray, y_s: np.ndarray, lp_s: np.ndarray) ->
             step = ((wy[rows] - (wr * q).sum(axis=1)) / (wr * q * (1.0 - q)).sum(axis=1))[:, None]
         return loglik, step
 
-    rate = np.clip(wy / n, 1e-12, 1 - 1e-12)
-    start = np.stack([np.log(rate) - np.log1p(-rate), np.zeros_like(rate)], axis=1)
-    slope_params, slope_ok = _newton_rows(start, slope_model, max_iter=100, tolerance=1e-10)
-    offset_params, offset_ok = _newton_rows(np.zeros((w.shape[0], 1)), offset_model, max_iter=200,
-                                            tolerance=1e-12)
-    drawn = w > 0
-    first, last = drawn.argmax(axis=1), w.shape[1] - 1 - drawn[:, ::-1].argmax(axis=1)
-    varies = lp_s[first] != lp_s[last]
-    slope = np.where(slope_ok & varies, slope_params[:, 1], np.nan)
-    intercept = np.where(offset_ok & varies, offset_params[:, 0], np.nan)
-    return intercept, slope
+    if start is None:
+        rate = np.clip(wy / n, 1e-12, 1 - 1e-12)
+        slope_start = np.stack([np.log(rate) - np.log1p(-rate), np.zeros_like(rate)], axis=1)
+        offset_start = np.zeros((w.shape[0], 1))
+    else:
+        slope_start = np.tile(start["slope"], (w.shape[0], 1))
+        offset_start = np.tile(start["offset"], (w.shape[0], 1))
+    slope_params, slope_ok = _newton_rows(slope_start, slope_model, max_iter=100, tolerance=1e-10)
+    offset_params, offset_ok = _newton_rows(offset_start, offset_model, max_iter=200, tolerance=1e-12)
+    return {"slope": slope_params, "slope_ok": slope_ok, "offset": offset_params, "offset_ok": offset_ok}
 
 
 #: Statistics of :func:`bootstrap_performance`, in the order they are reported.
@@ -878,6 +903,7 @@ def bootstrap_replicate_values(y, p, *, replicates: int, seed: int, workers: int
     squared = (p_s - y_s) ** 2
     lp_s = _logit(p_s)
     values = {name: np.empty(replicates) for name in BOOTSTRAP_METRICS}
+    start = _calibration_start(y_s, lp_s)
 
     def block_values(first: int, last: int) -> None:
         w = bootstrap_block_counts(y, first, last, seed=seed, column=column)
@@ -886,7 +912,7 @@ def bootstrap_replicate_values(y, p, *, replicates: int, seed: int, workers: int
         values["log_loss"][block] = (w @ loss_terms) / y.shape[0]
         values["brier"][block] = (w @ squared) / y.shape[0]
         values["calibration_intercept"][block], values["calibration_slope"][block] = (
-            _calibration_replicates(w, y_s, lp_s))
+            _calibration_replicates(w, y_s, lp_s, start))
 
     run_blocks(block_values, bootstrap_blocks(y.shape[0], replicates), workers=workers)
     values["gini"] = 2.0 * values["auc"] - 1.0

@@ -192,8 +192,12 @@ def _vif_report(corr: np.ndarray, names: list, constant: list, threshold: float)
 # ---------------------------------------------------------------------------- leakage screen
 
 
-def leakage_screen(raw: pd.DataFrame | None, y, features: list | None, threshold: float = 0.95) -> dict:
-    """The leakage part of :func:`design_diagnostics`: single-feature training AUC per raw feature."""
+def leakage_screen(raw: pd.DataFrame | None, y, features: list | None, threshold: float = 0.95, *,
+                   workers: int = 1) -> dict:
+    """The leakage part of :func:`design_diagnostics`: single-feature training AUC per raw feature.
+
+    ``workers`` threads score the features side by side (each feature's AUC is computed
+    alone, so the result does not depend on it)."""
     y = np.asarray(y)
     result = {
         "threshold": threshold,
@@ -209,8 +213,17 @@ def leakage_screen(raw: pd.DataFrame | None, y, features: list | None, threshold
         return result
     if len(raw) != len(y):
         raise ArgumentError(f"raw_train must have one row per design row ({len(y)}), got {len(raw)}")
-    for name, kind in _feature_kinds(raw, features):
-        auc, n_used = _single_feature_auc(raw[name], y, kind)
+    kinds = _feature_kinds(raw, features)
+    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+        raise ArgumentError(f"workers must be an integer of at least 1, got {workers!r}")
+    if workers == 1 or len(kinds) < 2:
+        scored = [_single_feature_auc(raw[name], y, kind) for name, kind in kinds]
+    else:
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=workers) as pool:
+            scored = list(pool.map(lambda named: _single_feature_auc(raw[named[0]], y, named[1]), kinds))
+    for (name, kind), (auc, n_used) in zip(kinds, scored):
         result["features"].append({"feature": name, "type": kind, "auc": auc, "n_used": n_used})
         if auc is not None and auc > threshold:
             result["suspected"].append(name)

@@ -41,12 +41,13 @@ def _design(recipe: dict, pieces, n_rows: int) -> pd.DataFrame:
 
 def run_features(*, data_path: str, assignment_path: str, features: list, interactions: list, target: str,
                  id_column: str, diagnostics: dict, out_recipe: str, out_diagnostics: str, out_design: str,
-                 cluster_column: str | None = None) -> dict:
+                 cluster_column: str | None = None, workers: int = 1) -> dict:
     """Learn the recipe from training rows; diagnose and write the training design matrix.
 
     The design file holds the id and target columns, then every design column (not
     standardised), one row per training row in data order; with a ``cluster_column``
     (standard errors clustered by it) its labels follow as a last column ``CLUSTER_LABELS``.
+    ``workers`` threads share the leakage screen's features; the results do not depend on it.
     """
     names = [f["name"] for f in features]
     is_train = (read_parquet(assignment_path, columns=["part"])["part"] == "train").to_numpy()
@@ -56,7 +57,7 @@ def run_features(*, data_path: str, assignment_path: str, features: list, intera
     # The leakage screen needs the raw columns, the rest of the diagnostics the design: the
     # screen runs first, and the raw columns go before the design is built (from the file
     # again, a piece at a time), so that raw columns and design are never held together.
-    leakage = leakage_screen(train[names], y, features, diagnostics.get("leak_auc", 0.95))
+    leakage = leakage_screen(train[names], y, features, diagnostics.get("leak_auc", 0.95), workers=workers)
     del train
     release_arrow_memory()
     X = _design(recipe, read_parquet_pieces(data_path, names, rows=is_train, piece_rows=BUILD_ROWS), len(y))
