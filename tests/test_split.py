@@ -369,3 +369,23 @@ def test_feasibility_refuses_only_what_every_seed_refuses(seed):
                 with pytest.raises(SplitError):
                     _assign(df, _split(seed=split_seed), cv=cv)
     assert refused > 0
+
+
+def test_the_stratified_test_size_known_without_a_draw_is_the_draws():
+    # validate's feasibility check states the test part's size without drawing (no
+    # scikit-learn import) wherever the draw cannot fail; it must be the draw's own size.
+    from oddsmith.data.split import _stratified_parts, _stratified_test_rows
+
+    rng = np.random.default_rng(4)
+    for n in (4, 5, 7, 10, 33, 101, 1_000, 4_099):
+        for fraction in (0.1, 0.2, 0.25, 1 / 3, 0.5, 0.77):
+            events = int(rng.integers(0, n + 1))
+            y = np.zeros(n, dtype=int)
+            y[:events] = 1
+            known = _stratified_test_rows(n, events, fraction)
+            if known is None:
+                continue
+            drawn = _stratified_parts(y, {"test_fraction": fraction, "seed": 1})
+            assert known == int(drawn.sum()), (n, events, fraction)
+    assert _stratified_test_rows(100, 1, 0.25) is None  # one event: the draw refuses, in its words
+    assert _stratified_test_rows(5, 2, 0.1) is None

@@ -185,14 +185,15 @@ def feasibility(df: pd.DataFrame, *, id_column: str, target: str, split: dict, c
         problems += _fold_feasibility_problems(events, n - events, None, n_folds, where="the data")
         outcome.update(is_test=np.zeros(n, dtype=bool), train_rows=n)
     elif settings["method"] == "stratified":
-        try:
-            is_test = _stratified_parts(y, settings)
-        except SplitError as exc:
-            problems += exc.problems
-            return outcome
+        n_test = _stratified_test_rows(n, events, settings["test_fraction"])
+        if n_test is None:  # a draw that may fail: make it, for scikit-learn's own message
+            try:
+                n_test = int(_stratified_parts(y, settings).sum())
+            except SplitError as exc:
+                problems += exc.problems
+                return outcome
         # Each class gives the test part at least the floor of its share (scikit-learn's
         # stratified draw); only ties between classes depend on the seed.
-        n_test = int(is_test.sum())
         most_events = events - (events * n_test) // n
         most_non_events = (n - events) - ((n - events) * n_test) // n
         problems += _fold_feasibility_problems(most_events, most_non_events, None, n_folds, bound="at most ")
@@ -404,6 +405,17 @@ def _make_parts(df, y, ids, settings, dates) -> tuple[np.ndarray, dict]:
     if method == CV_ONLY:
         return np.zeros(len(y), dtype=bool), {}
     return _grouped_parts(y, _group_codes(df, settings), settings), {}
+
+
+def _stratified_test_rows(n: int, events: int, test_fraction: float) -> int | None:
+    """The test part's size of the stratified draw (scikit-learn's: ``ceil(test_fraction · n)``),
+    without drawing, when the draw cannot fail: both classes with at least 2 rows and both
+    parts with room for one row of each. None otherwise (the draw is then made, so that a
+    refusal carries scikit-learn's own reason)."""
+    n_test = math.ceil(test_fraction * n)
+    if min(events, n - events) < 2 or min(n_test, n - n_test) < 2:
+        return None
+    return n_test
 
 
 def _stratified_parts(y: np.ndarray, settings: dict) -> np.ndarray:
