@@ -12,12 +12,12 @@ import math
 from pathlib import Path
 
 import jsonschema
-import yaml
 
 from oddsmith.errors import ConfigError, quoted
 from oddsmith.io import read_yaml
 from oddsmith.resources import schema_file
-from oddsmith.settings import CV_ONLY, PENALISED_KINDS, candidate_defaults, constrained_problem, normalised_costs
+from oddsmith.settings import (CV_ONLY, PENALISED_KINDS, candidate_defaults, config_schema, constrained_problem,
+                               normalised_costs)
 
 SCHEMA_PATH = schema_file("config.schema.yaml")
 #: The schema read here (in the code fingerprint of every rule that runs this module).
@@ -42,7 +42,7 @@ _Validator = _with_defaults(jsonschema.Draft202012Validator)
 
 def load_schema() -> dict:
     """Return the configuration JSON Schema as a dict."""
-    return yaml.safe_load(SCHEMA_PATH.read_text(encoding="utf-8"))
+    return config_schema()
 
 
 def read_config_file(path: str | Path) -> dict:

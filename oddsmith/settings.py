@@ -10,6 +10,7 @@ check, run when the workflow loads, imports it without the cost of the models.
 
 from __future__ import annotations
 
+import copy
 import functools
 
 import yaml
@@ -45,6 +46,23 @@ def constrained_problem(adopt: str, max_flag_rate, min_sensitivity) -> str | Non
     return None
 
 
+#: libyaml's parser where PyYAML was built with it (the pure-Python one parses the schema in
+#: about 0.1 s, once for every Snakemake start and job that reads it); the same document.
+_SCHEMA_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+
+
+@functools.lru_cache(maxsize=1)
+def _parsed_schema() -> dict:
+    return yaml.load(schema_file("config.schema.yaml").read_text(encoding="utf-8"),  # noqa: S506
+                     Loader=_SCHEMA_LOADER)
+
+
+def config_schema() -> dict:
+    """The configuration JSON Schema (``schemas/config.schema.yaml``), parsed once in a
+    process; each call returns its own copy, free to change."""
+    return copy.deepcopy(_parsed_schema())
+
+
 @functools.lru_cache(maxsize=1)
 def feature_default(name: str):
     """Schema default of one option of a feature entry (``min_count``, ``missing``, ...).
@@ -52,7 +70,7 @@ def feature_default(name: str):
     >>> feature_default("min_count")
     20
     """
-    schema = yaml.safe_load(schema_file("config.schema.yaml").read_text(encoding="utf-8"))
+    schema = _parsed_schema()
     return schema["properties"]["features"]["items"]["properties"][name]["default"]
 
 
@@ -65,7 +83,7 @@ def candidate_defaults() -> dict:
     >>> sorted(candidate_defaults())
     ['inner_folds', 'l1_ratio', 'max_iter']
     """
-    schema = yaml.safe_load(schema_file("config.schema.yaml").read_text(encoding="utf-8"))
+    schema = _parsed_schema()
     properties = schema["properties"]["candidates"]["items"]["properties"]
     return {name: spec["default"] for name, spec in properties.items()
             if name in ("inner_folds", "l1_ratio", "max_iter")}

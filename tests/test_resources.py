@@ -51,3 +51,15 @@ def test_every_shipped_file_is_declared_as_package_data():
         for path in (ROOT / folder).iterdir():
             if path.is_file():
                 assert any(path.match(p) for p in patterns[package]), f"{path} is not shipped"
+
+
+def test_the_schema_parsed_once_by_libyaml_is_the_document_the_python_parser_reads():
+    import yaml
+
+    from oddsmith import settings
+
+    text = resources.schema_file("config.schema.yaml").read_text(encoding="utf-8")
+    assert settings.config_schema() == yaml.safe_load(text)
+    copy = settings.config_schema()
+    copy["properties"].clear()  # a caller's copy is its own
+    assert settings.config_schema()["properties"]
