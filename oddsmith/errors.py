@@ -7,6 +7,8 @@ what was expected and what was found. Errors that collect several problems keep 
 
 from __future__ import annotations
 
+import numbers
+
 
 class OddsmithError(Exception):
     """Base class of every error oddsmith raises on purpose."""
@@ -63,6 +65,18 @@ class ArgumentError(OddsmithError, ValueError):
     """An argument of a package function is not usable as given (its type, shape, values or a
     setting): the message names the argument, what was expected and what was found. Also a
     ValueError, for callers of the library functions that catch that."""
+
+
+def check_workers(workers) -> None:
+    """Refuse a number of worker threads that is not an integer of at least 1.
+
+    >>> check_workers(0)
+    Traceback (most recent call last):
+    ...
+    oddsmith.errors.ArgumentError: workers must be an integer of at least 1, got 0
+    """
+    if isinstance(workers, bool) or not isinstance(workers, numbers.Integral) or workers < 1:
+        raise ArgumentError(f"workers must be an integer of at least 1, got {workers!r}")
 
 
 class SeparationWarning(UserWarning):

@@ -13,7 +13,7 @@ import warnings
 import numpy as np
 
 from oddsmith.assessment.ranks import midranks
-from oddsmith.errors import ArgumentError, OddsmithError
+from oddsmith.errors import ArgumentError, OddsmithError, check_workers
 
 # Nothing here imports scikit-learn, statsmodels or scipy.stats: importing them costs a job
 # 1-2 s, more than the whole computation of the decision stages and a tenth of a fit job's
@@ -688,11 +688,6 @@ def bootstrap_blocks(n: int, replicates: int) -> list[tuple[int, int]]:
     return [(first, min(replicates, first + block)) for first in range(0, replicates, block)]
 
 
-def _check_workers(workers) -> None:
-    if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
-        raise ArgumentError(f"workers must be an integer of at least 1, got {workers!r}")
-
-
 def run_blocks(compute, blocks, *, workers: int = 1) -> None:
     """Call ``compute(first, last)`` for every block of replicates, on ``workers`` threads.
 
@@ -703,7 +698,7 @@ def run_blocks(compute, blocks, *, workers: int = 1) -> None:
     """
     from threadpoolctl import threadpool_limits
 
-    _check_workers(workers)
+    check_workers(workers)
     with threadpool_limits(limits=1):
         if int(workers) == 1:
             for first, last in blocks:
@@ -892,7 +887,7 @@ def bootstrap_replicate_values(y, p, *, replicates: int, seed: int, workers: int
     y, p = outcomes_and_probabilities(y, p)
     _require_both_classes(y, "the stratified bootstrap")
     _check_bootstrap(replicates, seed)
-    _check_workers(workers)
+    check_workers(workers)
     order = np.argsort(p, kind="stable")
     column = np.empty_like(order)
     column[order] = np.arange(order.size)

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from oddsmith.assessment.ranks import midranks
-from oddsmith.errors import ArgumentError, EventsPerVariableWarning
+from oddsmith.errors import ArgumentError, EventsPerVariableWarning, check_workers
 
 # Peduzzi et al., J. Clinical Epidemiology 49 (1996).
 MIN_EVENTS_PER_PARAMETER = 10
@@ -214,8 +214,7 @@ def leakage_screen(raw: pd.DataFrame | None, y, features: list | None, threshold
     if len(raw) != len(y):
         raise ArgumentError(f"raw_train must have one row per design row ({len(y)}), got {len(raw)}")
     kinds = _feature_kinds(raw, features)
-    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
-        raise ArgumentError(f"workers must be an integer of at least 1, got {workers!r}")
+    check_workers(workers)
     if workers == 1 or len(kinds) < 2:
         scored = [_single_feature_auc(raw[name], y, kind) for name, kind in kinds]
     else:
