@@ -85,15 +85,15 @@ def test_jobs_tune_glibc_allocator_and_carry_on_without_it(monkeypatch):
     assert runner.ALLOCATOR_SETTINGS[-3] <= runner.ALLOCATOR_SETTINGS[-1]
 
 
-def test_only_the_bootstrap_rules_tune_the_allocator(tmp_path, monkeypatch):
+def test_only_the_fit_and_bootstrap_rules_tune_the_allocator(tmp_path, monkeypatch):
     # Memory kept for reuse counts in a job's peak: features peaked above 2.5 x its data with it.
     from oddsmith import runner
 
     tuned = []
     monkeypatch.setattr(runner, "tune_allocator", lambda: tuned.append(True) or True)
-    for rule in ("validate", "features", "evaluate", "apply_cutoff", "card"):
+    for rule in ("validate", "features", "fit", "challenger_fit", "threshold", "evaluate", "apply_cutoff", "card"):
         job = _job(tmp_path)
         job.rule = rule
         tuned.clear()
         runner.stage(job, lambda: None)
-        assert bool(tuned) == (rule in ("evaluate", "apply_cutoff")), rule
+        assert bool(tuned) == (rule in ("fit", "challenger_fit", "evaluate", "apply_cutoff")), rule
