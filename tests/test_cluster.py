@@ -105,7 +105,7 @@ def test_a_rule_with_its_own_workers_keeps_blas_at_the_config_threads(tmp_path):
 
     from oddsmith.runner import stage
 
-    job = types.SimpleNamespace(log=[str(tmp_path / "job.log")], threads=2, output=_NoOutputs())
+    job = types.SimpleNamespace(log=[str(tmp_path / "job.log")], threads=2, rule="evaluate", output=_NoOutputs())
     import sys
 
     saved = sys.stderr
@@ -124,7 +124,7 @@ def test_blas_threads_follow_the_rule_threads(tmp_path, threads):
 
     with threadpool_limits(limits=None):
         available = min(pool["num_threads"] for pool in threadpool_info())
-    job = types.SimpleNamespace(log=[str(tmp_path / "job.log")], threads=threads, output=_NoOutputs())
+    job = types.SimpleNamespace(log=[str(tmp_path / "job.log")], threads=threads, rule="fit", output=_NoOutputs())
     import sys
 
     saved = sys.stderr
