@@ -241,10 +241,11 @@ ALLOCATOR_SETTINGS = {-3: 32 * 1024 * 1024,  # M_MMAP_THRESHOLD
 #: matrices and fold summaries; the trees' histograms) and the two bootstraps, all of them
 #: block after block of such temporaries. Measured at 1M rows: evaluate's bootstrap 18.5 s
 #: against 21.7 s with glibc's defaults, a logit fit job 12.5 s against 13.7 s, the trees
-#: 136.5 s against 152.6 s (two builds an hour apart), each at the same peak (within 2%). Not every job: memory kept for
-#: reuse still counts in a job's peak, and features, whose raw columns go before its design
-#: is built, peaked at 690 MB tuned against 621 MB untuned (2.5 × its data is 680 MB) while
-#: taking 8.2 s against 7.6 s; validate and threshold also peaked higher and ran no faster.
+#: 136.5 s against 152.6 s (two builds an hour apart), each at the same peak (within 2%).
+#: Not every job: memory kept for reuse still counts in a job's peak, and features, whose
+#: raw columns go before its design is built, peaked at 690 MB tuned against 621 MB untuned
+#: (2.5 × its data is 680 MB) while taking 8.2 s against 7.6 s; validate and threshold also
+#: peaked higher and ran no faster.
 TUNED_ALLOCATOR_RULES = frozenset({"fit", "challenger_fit", "evaluate", "apply_cutoff"})
 
 
