@@ -10,4 +10,5 @@ raw_inputs = {sm.input.data: "data", sm.input.contract: "contract"} | {p: "confi
     | {p: "scoring batch" for p in sm.input.batches}
 stage(sm, run_manifest, run=sm.wildcards.run, run_dir=os.path.dirname(sm.output.manifest), stamps=list(sm.input.stamps),
       raw_inputs=raw_inputs, config=sm.params.config,
-      build=sm.params.build, card_rule=sm.params.card_rule, out_manifest=sm.output.manifest)
+      build=sm.params.build, card_rule=sm.params.card_rule, env=sm.params.environment,
+      out_manifest=sm.output.manifest)

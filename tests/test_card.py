@@ -97,6 +97,46 @@ def test_fetcher_allows_only_data_urls_and_files_inside_the_run(tmp_path):
     assert len(fetcher.refused) == 10
 
 
+# A fresh interpreter for each: the quick import happens once per process.
+_LOAD = ("import ctypes.util, sys; original = ctypes.util.find_library; {prelude}"
+         "import oddsmith.reporting.fetcher; import weasyprint.text.ffi as ffi; "
+         "assert ctypes.util.find_library is original; assert ffi.pango is not None and ffi.fontconfig is not None; "
+         "print('loaded')")
+
+
+def test_weasyprint_loads_without_probing_for_compilers_and_restores_the_lookup():
+    """On Linux the libraries load by the names the dynamic loader resolves; no ``gcc`` or
+    ``ld`` is started (they cost 0.23 s of every render's start) and ``find_library`` is
+    left as it was."""
+    if not sys.platform.startswith("linux"):
+        pytest.skip("the quick import applies on Linux only")
+    probe = ("import subprocess; started = []; real = subprocess.Popen.__init__\n"
+             "def spy(self, args, *a, **k):\n    started.append(args); real(self, args, *a, **k)\n"
+             "subprocess.Popen.__init__ = spy\n")
+    code = probe + _LOAD.format(prelude="") + "; print(started)"
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.split() == ["loaded", "[]"]
+
+
+def test_weasyprint_is_imported_the_ordinary_way_where_only_the_lookup_finds_the_libraries():
+    """A system where the loader knows the libraries only through ``find_library``: the quick
+    import fails silently and the ordinary one succeeds, with no notice on the terminal."""
+    if not sys.platform.startswith("linux"):
+        pytest.skip("the quick import applies on Linux only")
+    only_lookup = ("import cffi.api\n"
+                   "def strict(backend, name, flags):\n"
+                   "    import ctypes.util\n"
+                   "    path = ctypes.util.find_library(name)\n"
+                   "    if path is None: raise OSError(name)\n"
+                   "    return backend.load_library(path, flags)\n"
+                   "cffi.api._load_backend_lib = strict\n")
+    result = subprocess.run([sys.executable, "-c", only_lookup + _LOAD.format(prelude="")],
+                            capture_output=True, text=True, cwd=ROOT)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout == "loaded\n"
+
+
 @pytest.mark.parametrize("url", ["http://example.invalid/x.png", "file:///etc/passwd"])
 def test_a_refused_fetch_stops_the_render(tmp_path, url):
     html = f'<html><body><p>x</p><img src="{url}"></body></html>'

@@ -60,3 +60,23 @@ def test_parquet_pieces_of_kept_rows_equal_the_whole_read(tmp_path):
     pd.testing.assert_frame_equal(pd.concat(pieces), read_parquet(path, columns=["n", "x"], rows=keep))
     pd.testing.assert_frame_equal(pd.concat(read_parquet_pieces(path, ["k"], piece_rows=7)),
                                   read_parquet(path, columns=["k"]))
+
+
+def test_only_text_booleans_and_categoricals_are_dictionary_encoded_and_every_value_survives(tmp_path):
+    import pyarrow.parquet as pq
+
+    rng = np.random.default_rng(7)
+    frame = pd.DataFrame({"id": [f"r{i}" for i in range(400)], "x": rng.normal(size=400),
+                          "n": rng.integers(0, 10**9, 400), "flag": rng.random(400) < 0.5,
+                          "region": pd.Categorical(rng.choice(["north", "south", None], 400)),
+                          "channel": pd.array(rng.choice(["web", "branch"], 400), dtype="string")})
+    path = tmp_path / "t.parquet"
+    write_parquet_chunks(path, [frame.iloc[:150], frame.iloc[150:]])
+    meta = pq.ParquetFile(path).metadata
+    encoded = {meta.schema.column(j).name: {enc for i in range(meta.num_row_groups)
+                                            for enc in meta.row_group(i).column(j).encodings}
+               for j in range(meta.num_columns)}
+    dictionary = {name for name, encodings in encoded.items() if "RLE_DICTIONARY" in encodings}
+    assert dictionary == {"id", "region", "channel"}
+    back = read_parquet(path)
+    pd.testing.assert_frame_equal(back, frame, check_dtype=False, check_categorical=False)

@@ -172,6 +172,21 @@ def test_environment_names_versions_but_not_the_host():
     assert list(env["libraries"]) == sorted(env["libraries"])
 
 
+def test_environment_reads_the_same_names_and_versions_as_a_full_metadata_parse():
+    """environment() reads only the header block of each distribution's metadata; the result
+    equals what importlib.metadata's full parse gives for every installed distribution."""
+    import importlib.metadata
+
+    from oddsmith.evidence.manifest import _canonical_name
+
+    full = {}
+    for dist in importlib.metadata.distributions():
+        if dist.metadata["Name"]:
+            full.setdefault(_canonical_name(dist.metadata["Name"]), dist.version)
+    assert environment()["libraries"] == dict(sorted(full.items()))
+    assert len(full) > 20
+
+
 def _git(repo: Path, *args):
     env = dict(os.environ, GIT_AUTHOR_NAME="t", GIT_AUTHOR_EMAIL="t@example.org", GIT_COMMITTER_NAME="t",
                GIT_COMMITTER_EMAIL="t@example.org", GIT_COMMITTER_DATE="1700000000 +0000",

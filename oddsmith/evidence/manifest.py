@@ -150,17 +150,37 @@ def build_info(project_dir: str | Path = ".") -> dict:
 
 
 def environment() -> dict:
-    """Python version, platform (system and machine only) and every installed distribution."""
+    """Python version, platform (system and machine only) and every installed distribution.
+
+    Every Snakemake start computes this (the manifest rule's params), so only the ``Name`` and
+    ``Version`` headers of each distribution's metadata are read: the full parse that
+    ``Distribution.metadata`` makes (descriptions included) took 0.2–0.3 s for 330 distributions.
+    """
     libraries = {}
     for dist in importlib.metadata.distributions():
-        name = dist.metadata["Name"]
+        name, version = _name_and_version(dist)
         if name:
-            libraries.setdefault(_canonical_name(name), dist.version)
+            libraries.setdefault(_canonical_name(name), version)
     return {
         "python": platform.python_version(),
         "platform": f"{platform.system()}-{platform.machine()}",
         "libraries": dict(sorted(libraries.items())),
     }
+
+
+def _name_and_version(dist) -> tuple[str | None, str | None]:
+    """The first ``Name`` and ``Version`` headers of a distribution's core metadata (the
+    header block ends at the first blank line; header names are case-insensitive)."""
+    text = dist.read_text("METADATA") or dist.read_text("PKG-INFO") or ""
+    found = {}
+    for line in text.splitlines():
+        if not line.strip():
+            break
+        key, sep, value = line.partition(":")
+        key = key.strip().lower()
+        if sep and key in ("name", "version") and key not in found:
+            found[key] = value.strip()
+    return found.get("name"), found.get("version")
 
 
 def _canonical_name(name: str) -> str:
@@ -266,14 +286,15 @@ def raw_input_entries(roles: dict, *, project_dir: str | Path = ".", hash_cache:
 
 def build_manifest(*, run: str, run_dir: str | Path, stamps, raw_inputs, config: dict, build: dict,
                    card_rule: dict | None = None, project_dir: str | Path = ".",
-                   hash_cache: str | Path | None = None) -> dict:
+                   hash_cache: str | Path | None = None, env: dict | None = None) -> dict:
     """Assemble the manifest of ``run_dir`` (``work/<run>``, as the stamps name it) from the job stamps.
 
     ``raw_inputs`` maps each raw input path (data, contract, config files, a scoring batch) to
     its role. With ``hash_cache`` (the workflow passes :data:`oddsmith.evidence.filehash.CACHE_PATH`), a
     file whose size, times and inode are those it had when last hashed (by the job that wrote
     it, or by an earlier manifest) is not read again: a file changed after its job finished
-    has a new state, is read, and is reported below.
+    has a new state, is read, and is reported below. ``env`` is the :func:`environment` the
+    workflow computed when it started (the manifest rule's params); computed here if absent.
 
     Every regular file in the folder (outside ``card/``) must be claimed by a stamp of this
     build; a file no stamp claims (a leftover of an earlier configuration) is an error, so a
@@ -309,7 +330,7 @@ def build_manifest(*, run: str, run_dir: str | Path, stamps, raw_inputs, config:
         "config_sha256": config_sha256(config),
         "files": files,
         "raw_inputs": raw_input_entries(raw_inputs, project_dir=project_dir, hash_cache=hash_cache),
-        "environment": environment(),
+        "environment": environment() if env is None else env,
         "git": build["git"],
         "source_date_epoch": build["source_date_epoch"],
         "card_rule": card_rule,

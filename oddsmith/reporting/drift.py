@@ -266,10 +266,10 @@ def pdf_bytes(html: str, *, folder) -> bytes:
     serves only ``data:`` URLs and files inside it, and a refused fetch fails the render
     (``RefusedFetch``). WeasyPrint's warnings go to stderr (the rule's log).
     """
-    import weasyprint
-    from weasyprint.urls import FatalURLFetchingError
+    from oddsmith.reporting.fetcher import RunFolderFetcher  # first: it imports WeasyPrint quickly
 
-    from oddsmith.reporting.fetcher import RunFolderFetcher
+    import weasyprint  # noqa: I001
+    from weasyprint.urls import FatalURLFetchingError
 
     fetcher = RunFolderFetcher(folder)
     _route_weasyprint_warnings()

@@ -13,10 +13,13 @@ log = logging.getLogger("oddsmith.manifest")
 
 
 def run_manifest(*, run: str, run_dir: str, stamps: list[str], raw_inputs: dict[str, str], config: dict,
-                 build: dict, card_rule: dict | None, out_manifest: str) -> dict:
-    """Build the manifest of ``run_dir`` from its stamps and write it (canonical JSON)."""
+                 build: dict, card_rule: dict | None, out_manifest: str, env: dict | None = None) -> dict:
+    """Build the manifest of ``run_dir`` from its stamps and write it (canonical JSON).
+
+    ``env`` is the environment the rule's params recorded (see :func:`~oddsmith.evidence.manifest.environment`).
+    """
     manifest = build_manifest(run=run, run_dir=run_dir, stamps=stamps, raw_inputs=raw_inputs, config=config,
-                              build=build, card_rule=card_rule, hash_cache=CACHE_PATH)
+                              build=build, card_rule=card_rule, hash_cache=CACHE_PATH, env=env)
     log.info("manifest of %s: %d files, %d raw inputs, git %s, SOURCE_DATE_EPOCH %s", run, len(manifest["files"]),
              len(manifest["raw_inputs"]), manifest["git"], manifest["source_date_epoch"])
     write_json(out_manifest, manifest)
