@@ -14,6 +14,7 @@ import pandas as pd
 import pytest
 from sklearn.metrics import roc_curve
 
+from oddsmith.errors import ArgumentError
 from oddsmith.io import write_json, write_parquet
 from oddsmith.reporting import plots
 from oddsmith.stages import figures
@@ -319,3 +320,32 @@ def test_coefficients_are_drawn_per_sd_of_the_design_column(monkeypatch):
     # logit: odds ratio per SD = exp(b · SD), interval ends likewise (hand-computed)
     assert plots.per_sd_values([_coef_row("x", 0.01, logit=True)], {"x": 100.0})[0][1:] == pytest.approx(
         (np.exp(1.0), np.exp((0.01 - 0.2) * 100), np.exp((0.01 + 0.2) * 100)))
+
+
+def test_a_long_line_is_drawn_from_each_columns_ends_and_extremes():
+    rng = np.random.default_rng(3)
+    x = np.sort(rng.random(100_000))
+    y = np.cumsum(rng.normal(size=x.size))
+    y[54_321] = 1e6  # a one-point spike must survive
+    xs, ys = plots.envelope(x, y, columns=500)
+    assert xs.size <= 4 * 500
+    kept = np.flatnonzero(np.isin(x, xs))
+    assert np.array_equal(x[kept], xs) and np.array_equal(y[kept], ys)  # a subsequence, in order
+    column = np.minimum((x - x[0]) / (x[-1] - x[0]) * 500, 499).astype(int)
+    for c in np.unique(column):
+        inside = column == c
+        assert y[inside].max() in ys[column[kept] == c] and y[inside].min() in ys[column[kept] == c]
+    assert plots.envelope(x[:2000], y[:2000], columns=500)[0].size == 2000  # short: whole
+    with pytest.raises(ArgumentError, match="sorted"):
+        plots.envelope(x[::-1], y, columns=500)
+
+
+def test_the_cost_curve_of_a_large_portfolio_is_drawn_thinned_with_its_minimum(monkeypatch):
+    cutoff = np.linspace(0, 1, 750_001)
+    cost = 0.5 + (cutoff - 0.3) ** 2
+    curve = pd.DataFrame({"cutoff": cutoff, "expected_cost_per_case": cost})
+    fig = _drawn(monkeypatch, lambda: plots.cost_curve_svg(curve, adopted=0.3, bayes=0.3, interval=None,
+                                                           flag_none=1000.0, flag_all=990.0))
+    line = next(line for line in fig.axes[0].get_lines() if line.get_label() == "expected cost")
+    assert line.get_xdata().size <= 4 * plots.ENVELOPE_COLUMNS
+    assert min(line.get_ydata()) == pytest.approx(500.0) and max(line.get_ydata()) == pytest.approx(cost.max() * 1000)
