@@ -338,14 +338,22 @@ def test_a_long_line_is_drawn_from_each_columns_ends_and_extremes():
     assert plots.envelope(x[:2000], y[:2000], columns=500)[0].size == 2000  # short: whole
     with pytest.raises(ArgumentError, match="sorted"):
         plots.envelope(x[::-1], y, columns=500)
+    # Non-finite x (a cost curve's last cut-off, inf) is kept and does not stretch the columns.
+    xs, ys = plots.envelope(np.r_[x, np.inf], np.r_[y, 0.0], columns=500)
+    assert xs[-1] == np.inf and 500 <= xs.size - 1 <= 2000
 
 
 def test_the_cost_curve_of_a_large_portfolio_is_drawn_thinned_with_its_minimum(monkeypatch):
-    cutoff = np.linspace(0, 1, 750_001)
-    cost = 0.5 + (cutoff - 0.3) ** 2
+    # As the threshold stage writes it: every distinct score, then inf (flag none) last.
+    cutoff = np.r_[np.linspace(0, 1, 750_000), np.inf]
+    cost = np.r_[0.5 + (cutoff[:-1] - 0.3) ** 2, 0.6]
     curve = pd.DataFrame({"cutoff": cutoff, "expected_cost_per_case": cost})
     fig = _drawn(monkeypatch, lambda: plots.cost_curve_svg(curve, adopted=0.3, bayes=0.3, interval=None,
                                                            flag_none=1000.0, flag_all=990.0))
     line = next(line for line in fig.axes[0].get_lines() if line.get_label() == "expected cost")
-    assert line.get_xdata().size <= 4 * plots.ENVELOPE_COLUMNS
-    assert min(line.get_ydata()) == pytest.approx(500.0) and max(line.get_ydata()) == pytest.approx(cost.max() * 1000)
+    x, y = np.asarray(line.get_xdata()), np.asarray(line.get_ydata())
+    assert plots.ENVELOPE_COLUMNS < x.size <= 4 * plots.ENVELOPE_COLUMNS + 1  # thinned, one point per column or more
+    assert x[-1] == np.inf and np.all(np.diff(x) > 0)
+    assert y[:-1].min() == pytest.approx(500.0) and y[:-1].max() == pytest.approx(cost[:-1].max() * 1000)
+    # Between kept points the curve moves by less than a column's worth of cut-off.
+    assert np.diff(x[:-1]).max() <= 1.0 / plots.ENVELOPE_COLUMNS + 1e-9

@@ -134,16 +134,21 @@ def envelope(x, y, *, columns: int = ENVELOPE_COLUMNS) -> tuple[np.ndarray, np.n
     x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
     if x.size <= 4 * columns:
         return x, y
-    if np.any(np.diff(x) < 0):
+    finite = np.flatnonzero(np.isfinite(x))  # a cost curve ends at cut-off inf (flag none)
+    xf, yf = x[finite], y[finite]
+    if np.any(np.diff(xf) < 0):
         raise ArgumentError("envelope() needs the line's points sorted by x")
-    span = x[-1] - x[0]
-    column = np.minimum(((x - x[0]) / span * columns).astype(np.int64), columns - 1) if span > 0 else np.zeros(x.size, np.int64)
-    starts = np.flatnonzero(np.r_[True, np.diff(column) != 0])
-    ends = np.r_[starts[1:], x.size]
-    keep = np.zeros(x.size, dtype=bool)
-    keep[starts] = keep[ends - 1] = True
-    keep[starts + np.array([np.argmin(y[a:b]) for a, b in zip(starts, ends)], dtype=np.int64)] = True
-    keep[starts + np.array([np.argmax(y[a:b]) for a, b in zip(starts, ends)], dtype=np.int64)] = True
+    keep = ~np.isfinite(x)  # kept as they are; matplotlib leaves them out of the line
+    if xf.size:
+        span = xf[-1] - xf[0]
+        column = (np.minimum(((xf - xf[0]) / span * columns).astype(np.int64), columns - 1) if span > 0
+                  else np.zeros(xf.size, np.int64))
+        starts = np.flatnonzero(np.r_[True, np.diff(column) != 0])
+        ends = np.r_[starts[1:], xf.size]
+        chosen = np.r_[starts, ends - 1,
+                       starts + np.array([np.argmin(yf[a:b]) for a, b in zip(starts, ends)], dtype=np.int64),
+                       starts + np.array([np.argmax(yf[a:b]) for a, b in zip(starts, ends)], dtype=np.int64)]
+        keep[finite[chosen]] = True
     return x[keep], y[keep]
 
 
