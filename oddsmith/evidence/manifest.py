@@ -154,7 +154,8 @@ def environment() -> dict:
 
     Every Snakemake start computes this (the manifest rule's params), so only the ``Name`` and
     ``Version`` headers of each distribution's metadata are read: the full parse that
-    ``Distribution.metadata`` makes (descriptions included) took 0.2–0.3 s for 330 distributions.
+    ``Distribution.metadata`` makes (descriptions included) took 0.068 s against 0.023 s for the
+    109 distributions of the project's environment (measured).
     """
     libraries = {}
     for dist in importlib.metadata.distributions():
