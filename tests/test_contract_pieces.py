@@ -7,6 +7,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from oddsmith.data import contract
 from oddsmith.data.contract import read_raw, read_raw_pieces
 from oddsmith.errors import ContractError
 from oddsmith.io import read_parquet, read_parquet_pieces, write_parquet_chunks
@@ -45,6 +46,85 @@ def test_short_rows_are_told_apart_from_skipped_lines_and_values_with_line_break
     assert "1 row(s) have fewer fields than the header's 3: line 8 (1) (fields found in brackets)" in str(err.value)
     path.write_text(path.read_text().replace("\n3\n", "\n3,c,\n"))
     assert len(read_raw(path)) == 4 and list(read_raw_pieces(path, rows=rows or 1))
+
+
+#: Files whose cells Arrow's reader and pandas' must read alike (or both refuse, or Arrow hands to pandas).
+TRICKY_FILES = {
+    "blanks and text that looks missing": "id,b,c\n1,,NA\n2,null,NaN\n3,N/A,None\n4,-,\n",
+    "quoted empty and quoted quotes": 'id,b,c\n1,"",2\n2,"say ""no""","1,5"\n',
+    "spaces kept": "id,b,c\n 1 , x ,2\n2,\t,3\n",
+    "value over two lines": 'id,b,c\n1,"two\nlines",3\n2,x,4\n',
+    "CRLF and CR line ends": "id,b,c\r\n1,x,2\r\n2,y,3\r\n",
+    "CR line ends": "id,b,c\r1,x,2\r2,y,3\r",
+    "no last line end, blank lines": "id,b,c\n\n1,x,2\n\n2,y,3",
+    "byte-order mark and non-ASCII": "\ufeffid,b,c\n1,Äö,日本\n2,€,x\n",
+    "a row of blanks and an empty column": "id,b,c\n1,,\n2,,\n3,,\n",
+    "a quote inside a value, a hash": 'id,b,c\n1,ab"c,#2\n2,"ab"c,3\n',
+    "header with spaces, quoted": '" id ","b","c"\n1,x,2\n',
+    "line of spaces (pandas skips it)": "id,b,c\n1,x,2\n   \n3,y,4\n",
+    "short row": "id,b,c\n1,x\n3,y,4\n",
+    "long row": "id,b,c\n1,x,2\n2,x,2,9\n",
+    "repeated name": "id,b,b\n1,x,2\n",
+    "blank name": "id,b,\n1,x,2\n",
+    "quote never closed": 'id,b,c\n1,"ab,x\n2,y,3\n',
+}
+
+
+def _pieces_or_error(path, rows):
+    try:
+        return list(read_raw_pieces(path, rows=rows))
+    except ContractError as exc:
+        return str(exc)
+
+
+@pytest.mark.parametrize("name", sorted(TRICKY_FILES))
+@pytest.mark.parametrize("rows", [1, 2, 100])
+def test_arrow_and_pandas_read_the_same_cells(tmp_path, monkeypatch, name, rows):
+    path = tmp_path / "d.csv"
+    path.write_bytes(TRICKY_FILES[name].encode())
+    fast = _pieces_or_error(path, rows)
+    monkeypatch.setattr(contract, "_arrow_can_read", lambda header: False)
+    slow = _pieces_or_error(path, rows)
+    if isinstance(slow, str) or isinstance(fast, str):
+        assert fast == slow
+        return
+    assert len(fast) == len(slow)
+    for a, b in zip(fast, slow):
+        pd.testing.assert_frame_equal(a, b)
+        assert a.attrs == b.attrs
+
+
+def test_arrow_pieces_are_taken_for_an_ordinary_file(tmp_path, monkeypatch):
+    # The fast reader must really be the one reading: pandas' is not asked for a clean file.
+    path = tmp_path / "d.csv"
+    path.write_text("id,x\n" + "".join(f"{i},{i / 3}\n" for i in range(50)))
+    monkeypatch.setattr(contract.pd, "read_csv", lambda *a, **k: pytest.fail("pandas read the file"))
+    pieces = list(read_raw_pieces(path, rows=7))
+    assert [len(p) for p in pieces] == [7] * 7 + [1] and pieces[-1].index.tolist() == [49]
+
+
+@pytest.mark.parametrize("bad_line", ["7", "7,a,1,2", "   "])
+def test_pandas_takes_over_where_arrow_stops_midway(tmp_path, monkeypatch, bad_line):
+    # Small blocks, so that Arrow has handed over pieces before it meets the bad line; pandas
+    # then goes on from the next row, and the whole reads as pandas alone would read it.
+    lines = [f"{i},v{i},{i * 2}" for i in range(300)]
+    lines[250] = bad_line
+    path = tmp_path / "d.csv"
+    path.write_text("id,b,c\n" + "\n".join(lines) + "\n")
+    monkeypatch.setattr(contract, "_ARROW_BLOCK_BYTES", 256)
+    arrow_part = contract._arrow_pieces(path, ["id", "b", "c"], 40)
+    with pytest.raises(StopIteration) as stop:
+        while True:
+            next(arrow_part)
+    assert stop.value.value == (200, False)  # Arrow gave five pieces, then stopped at the bad line
+    fast = _pieces_or_error(path, 40)
+    monkeypatch.setattr(contract, "_arrow_can_read", lambda header: False)
+    slow = _pieces_or_error(path, 40)
+    if isinstance(slow, str):
+        assert fast == slow and "line 252" in slow
+    else:
+        assert [len(p) for p in fast] == [len(p) for p in slow]
+        pd.testing.assert_frame_equal(pd.concat(fast), pd.concat(slow))
 
 
 def test_parquet_pieces_of_kept_rows_equal_the_whole_read(tmp_path):

