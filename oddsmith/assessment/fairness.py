@@ -477,9 +477,10 @@ def comparison_replicates(y, flagged, attributes: dict, *, replicates: int, seed
     cells, totals = {}, {}
     for name, (labels, assessed, _) in attributes.items():
         # each row's cell: its group (assessed ones; the rest share one last group), flagged, event
-        found, inverse = np.unique(np.asarray(labels), return_inverse=True)
+        # factorize hashes the labels (a sort, as np.unique does, takes 0.25 s for 250,000 text labels)
+        inverse, found = pd.factorize(np.asarray(labels), use_na_sentinel=False)
         position = {group: i for i, group in enumerate(assessed)}
-        group = np.array([position.get(g, len(assessed)) for g in found], dtype=np.int64)[inverse.ravel()]
+        group = np.array([position.get(g, len(assessed)) for g in found], dtype=np.int64)[inverse]
         cells[name] = group * 4 + flagged.astype(np.int64) * 2 + (y == 1).astype(np.int64)
         totals[name] = np.empty((replicates, len(assessed) + 1, 4))
     events, non_events = np.flatnonzero(y == 1), np.flatnonzero(y != 1)
