@@ -16,6 +16,10 @@ rule manifest:
         build=BUILD,
         environment=ENVIRONMENT,
         card_rule=lambda wildcards: rule_fingerprint("card"),
+        # The raw inputs by content: a changed data file reaches the manifest even when
+        # validate left no outputs to compare (Snakemake removes those of a failed job, and
+        # would otherwise find the published build up to date and run nothing).
+        raw=raw_content(),
         code=code(script="scripts/manifest.py"),
     script:
         "../scripts/manifest.py"

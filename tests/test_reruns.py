@@ -269,6 +269,20 @@ def test_the_metrics_module_reruns_from_fit_on_but_not_the_data_stages(built, ev
 
 
 @pytest.mark.e2e
+def test_changed_data_after_a_failed_validation_is_checked_again(built, every_job, tmp_path):
+    """validate refused the changed file, and Snakemake removed that job's outputs: the next
+    build with the same file must run validate again (and stop again), not find the
+    published build up to date and run nothing."""
+    project, env = _copy(built, tmp_path / "failed")
+    data = project / "data_demo" / "lease_applications.csv"
+    data.write_text(data.read_text() + "1,2\n")  # a row cut short: validate refuses the file
+    failed = run_snakemake(project, env=env, check=False)
+    assert failed.returncode != 0 and "rule validate stopped (ContractError)" in failed.stderr
+    assert not (project / RUN / "validated" / "data.parquet").exists()
+    assert planned(project, env=env) == every_job
+
+
+@pytest.mark.e2e
 def test_one_changed_data_value_reruns_everything(built, every_job, tmp_path):
     project, env = _copy(built, tmp_path / "data")
     data = project / "data_demo" / "lease_applications.csv"
