@@ -42,7 +42,9 @@ apply_job_resources()
 
 onsuccess:
     print(f"oddsmith: {after_build(RUN, since=STARTED)}", file=sys.stderr)
+    cancel_idle_timers()
 
 
 onerror:
     print(f"oddsmith: the build failed; {describe_current(RUN)}", file=sys.stderr)
+    cancel_idle_timers()

@@ -120,8 +120,10 @@ _TABLE = (
     ("figures/roc.svg", "figures", "ROC curve with the operating point"),
     ("figures/cost_curve.svg", "figures", "expected cost per cut-off"),
     ("figures/score_distribution.svg", "figures", "score distribution by outcome"),
-    ("figures/subgroups.svg", "figures", "subgroup flag rates"),
     ("provenance/figures.json", "figures", "provenance stamp"),
+    # subgroup_figure (the cut-off's consequences per group, after apply_cutoff)
+    ("figures/subgroups.svg", "subgroup_figure", "subgroup flag rates"),
+    ("provenance/subgroup_figure.json", "subgroup_figure", "provenance stamp"),
     # score (when scoring.data is set); `oddsmith score` writes the same names into its folder
     ("scoring/scores.parquet", "score", "the later batch's scores and reason codes"),
     ("scoring/scores.csv", "score", "the same scores as CSV"),

@@ -11,7 +11,12 @@ from oddsmith.errors import ConfigError
 from oddsmith.evidence.filehash import CACHE_PATH, sha256_remembered
 from oddsmith.evidence.manifest import build_info, environment, source_date_epoch
 from oddsmith.evidence.publish import current_result_note
-from oddsmith.runner import RULE_MIN_THREADS, params_hash, script_fingerprint
+from oddsmith.runner import (
+    RULE_MIN_THREADS,
+    cancel_idle_timers,
+    params_hash,
+    script_fingerprint,
+)
 
 CHOOSE_CONFIG = """a build reads exactly one configuration file, complete on its own (the schema's
 defaults fill in the keys it leaves out). Name it:

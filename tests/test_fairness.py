@@ -325,6 +325,34 @@ def test_one_pass_over_the_replicates_gives_each_attributes_own_replicates():
                 np.testing.assert_array_equal(both[name][group][key], values)
 
 
+def test_attributes_counted_in_several_passes_give_the_same_replicates(monkeypatch):
+    """Attributes whose groups multiply beyond MAX_JOINT_GROUPS are counted in further passes
+    over each replicate; the counts, and so every comparison, are the same as in one pass.
+    Blank labels (None) form a group of their own, as in one pass."""
+    rng = np.random.default_rng(12)
+    n = 600
+    region = rng.choice(np.array(["n", "s", "e", "w"]), size=n)
+    band = rng.choice(np.array(["young", "old", None], dtype=object), size=n)
+    kind = rng.choice(np.array(["x", "y"]), size=n)
+    p = rng.random(n)
+    y, flagged = (rng.random(n) < p).astype(int), p >= 0.5
+    plan = {"region": (region, ["n", "s", "e"], "s"), "band": (band, ["young", "old", None], "old"),
+            "kind": (kind, ["x", "y"], "x")}
+    one_pass = fairness.comparison_replicates(y, flagged, plan, replicates=12, seed=5)
+    assert len(fairness._joint_batches({k: fairness._group_of_rows(v[0], v[1]) for k, v in plan.items()})) == 1
+    monkeypatch.setattr(fairness, "MAX_JOINT_GROUPS", 5)  # 4 region numbers, then 4 band, then 3 kind
+    assert len(fairness._joint_batches({k: fairness._group_of_rows(v[0], v[1]) for k, v in plan.items()})) == 3
+    passes = fairness.comparison_replicates(y, flagged, plan, replicates=12, seed=5)
+    for name, groups in one_pass.items():
+        for group, comparisons in groups.items():
+            for key, values in comparisons.items():
+                np.testing.assert_array_equal(passes[name][group][key], values)
+    alone = fairness.group_comparison_replicates(y, flagged, band, ["young", "old", None], "old", replicates=12, seed=5)
+    for group, comparisons in alone.items():
+        for key, values in comparisons.items():
+            np.testing.assert_array_equal(one_pass["band"][group][key], values)
+
+
 def test_replicates_shared_among_threads_are_the_same_bits(monkeypatch):
     # apply_cutoff hands its threads to comparison_replicates; blocks of replicates are fixed
     # by the number of rows and every replicate has its own generator.

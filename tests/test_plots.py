@@ -3,6 +3,7 @@ and the ROC points against scikit-learn (the reference library)."""
 
 from __future__ import annotations
 
+import math
 import os
 import re
 import subprocess
@@ -14,7 +15,7 @@ import pandas as pd
 import pytest
 from sklearn.metrics import roc_curve
 
-from oddsmith.errors import ArgumentError
+from oddsmith.errors import ArgumentError, ArtifactError
 from oddsmith.io import write_json, write_parquet
 from oddsmith.reporting import plots
 from oddsmith.stages import figures
@@ -154,7 +155,8 @@ def test_short_label_marks_the_cut():
     assert plots.short_label("  spaced\nlabel ") == "spaced label"
 
 
-def test_the_two_figure_rules_draw_every_figure_once():
+def test_the_three_figure_rules_draw_every_figure_once():
+    assert figures.DECISION_FIGURES == figures.CUTOFF_FIGURES + figures.SUBGROUP_FIGURES
     assert sorted(figures.MODEL_FIGURES + figures.DECISION_FIGURES) == sorted(plots.FIGURE_NAMES)
     with pytest.raises(ValueError, match=r"missing \['coefficients'\], unknown \['roc'\]"):
         figures.run_model_figures(probability_metrics_path="unused", selected_path="unused", model_paths={},
@@ -163,19 +165,20 @@ def test_the_two_figure_rules_draw_every_figure_once():
 
 @pytest.mark.e2e
 def test_figures_rebuild_byte_identical_in_another_process(demo_build, tmp_path):
-    """The two figure stages, rerun in a fresh interpreter with another hash seed into another
+    """The three figure stages, rerun in a fresh interpreter with another hash seed into another
     folder, write the same bytes as the workflow's figure rules."""
     run = demo_build / "results" / "lease_demo"
     candidates = sorted(p.name for p in (run / "candidates").iterdir())
     script = f"""
-from oddsmith.stages.figures import DECISION_FIGURES, MODEL_FIGURES, run_figures, run_model_figures
+from oddsmith.stages.figures import (CUTOFF_FIGURES, MODEL_FIGURES, SUBGROUP_FIGURES, run_figures, run_model_figures,
+                                     run_subgroup_figure)
 run = {str(run)!r}
 out = {str(tmp_path)!r} + "/"
-run_figures(predictions_path=run + "/evaluation/predictions.parquet",
-            probability_metrics_path=run + "/evaluation/probability_metrics.json",
-            cutoff_metrics_path=run + "/evaluation/cutoff_metrics.json", subgroups_path=run + "/evaluation/subgroups.json", choice_path=run + "/threshold/choice.json",
-            curve_path=run + "/threshold/cost_curve.parquet", out={{n: out + n + ".svg" for n in DECISION_FIGURES}},
+run_figures(scores_path=run + "/evaluation/scores.parquet",
+            probability_metrics_path=run + "/evaluation/probability_metrics.json", choice_path=run + "/threshold/choice.json",
+            curve_path=run + "/threshold/cost_curve.parquet", out={{n: out + n + ".svg" for n in CUTOFF_FIGURES}},
             currency="unit")
+run_subgroup_figure(subgroups_path=run + "/evaluation/subgroups.json", out={{n: out + n + ".svg" for n in SUBGROUP_FIGURES}})
 run_model_figures(probability_metrics_path=run + "/evaluation/probability_metrics.json",
                   selected_path=run + "/comparison/selected.json",
                   model_paths={{c: run + "/candidates/" + c + "/model.json" for c in {candidates!r}}},
@@ -192,21 +195,44 @@ run_model_figures(probability_metrics_path=run + "/evaluation/probability_metric
 def test_cost_curve_figure_without_a_bootstrap_or_with_flag_none_in_the_interval(tmp_path, scores, bootstrap):
     """costs.bootstrap: 0 stores no interval; an interval may end at "flag none" (None)."""
     y, p = scores
-    write_parquet(tmp_path / "predictions.parquet", pd.DataFrame({"y": y, "p": p}))
+    write_parquet(tmp_path / "scores.parquet", pd.DataFrame({"y": y, "p": p}))
     write_parquet(tmp_path / "curve.parquet", pd.DataFrame({"cutoff": [0.2, 0.5, np.inf],
                                                             "expected_cost_per_case": [0.9, 0.7, 0.8]}))
-    write_json(tmp_path / "probability.json", {"overall": {"auc": 0.7}, "auc_test_ci": {"lower": 0.65, "upper": 0.75}})
-    write_json(tmp_path / "cutoff.json", {"cutoff": 0.5, "confusion": {"specificity": 0.8, "sensitivity": 0.6}})
-    write_json(tmp_path / "subgroups.json", {"attributes": {}})
+    write_json(tmp_path / "probability.json", {"overall": {"auc": 0.7}, "auc_test_ci": {"lower": 0.65, "upper": 0.75},
+                                               "candidate": "m", "n": len(y)})
     write_json(tmp_path / "choice.json", {"bootstrap": bootstrap, "adopted_cutoff": 0.5, "bayes": {"cutoff": 0.45},
-                                          "cost_per_1000": {"flag_none": 800.0, "flag_all": 900.0}})
-    out = {name: tmp_path / f"{name}.svg" for name in figures.DECISION_FIGURES}
-    figures.run_figures(predictions_path=tmp_path / "predictions.parquet",
-                        probability_metrics_path=tmp_path / "probability.json",
-                        cutoff_metrics_path=tmp_path / "cutoff.json", subgroups_path=tmp_path / "subgroups.json", choice_path=tmp_path / "choice.json",
-                        curve_path=tmp_path / "curve.parquet", out=out)
+                                          "cost_per_1000": {"flag_none": 800.0, "flag_all": 900.0}, "candidate": "m"})
+    out = {name: tmp_path / f"{name}.svg" for name in figures.CUTOFF_FIGURES}
+    figures.run_figures(scores_path=tmp_path / "scores.parquet", probability_metrics_path=tmp_path / "probability.json",
+                        choice_path=tmp_path / "choice.json", curve_path=tmp_path / "curve.parquet", out=out)
     svg = out["cost_curve"].read_bytes()
     assert (b"<pattern" in svg) == (bootstrap is not None)  # the hatched interval is drawn only when there is one
+
+
+@pytest.mark.parametrize("cutoff", [None, math.inf, 0.0, 0.35, 0.5, 0.999, 1.0])
+def test_the_operating_point_is_the_confusion_matrix_of_apply_cutoff(scores, cutoff):
+    """The figures stage counts the ROC's operating point itself (it runs beside apply_cutoff);
+    it must be the same bits as 1 − specificity and sensitivity of confusion_at."""
+    from oddsmith.assessment.threshold import confusion_at
+
+    y, p = scores
+    y = np.asarray(y).astype(int)
+    p = np.asarray(p)
+    confusion = confusion_at(y, p, cutoff)
+    assert figures.operating_point(y, p, cutoff) == (1 - confusion["specificity"], confusion["sensitivity"])
+
+
+def test_cutoff_figures_refuse_a_choice_made_for_another_candidate(tmp_path, scores):
+    y, p = scores
+    write_parquet(tmp_path / "scores.parquet", pd.DataFrame({"y": y, "p": p}))
+    write_json(tmp_path / "probability.json", {"candidate": "logit", "n": len(y)})
+    write_json(tmp_path / "choice.json", {"candidate": "probit"})
+    with pytest.raises(ArtifactError, match="do not belong together") as caught:
+        figures.run_figures(scores_path=tmp_path / "scores.parquet", probability_metrics_path=tmp_path / "probability.json",
+                            choice_path=tmp_path / "choice.json", curve_path=tmp_path / "unused.parquet",
+                            out={name: tmp_path / f"{name}.svg" for name in figures.CUTOFF_FIGURES})
+    assert "'probit'" in str(caught.value) and "'logit'" in str(caught.value)
+    assert not list(tmp_path.glob("*.svg"))
 
 
 def test_calibration_intervals_and_error_bars_are_never_negative_for_any_bin():

@@ -26,9 +26,9 @@ RUN = "work/lease_demo"  # the staging folder the jobs write
 CANDIDATES = {"logit_main", "probit_main", "cloglog_main", "lasso", "ridge", "logit_compact", "baseline"}
 #: Every rule this matrix knows; a new rule fails the test until its row is added here.
 KNOWN = {"validate", "split", "features", "fit", "compare", "challenger_fit", "challenger_gap", "threshold", "evaluate",
-         "apply_cutoff", "model_figures", "figures", "score", "manifest", "card", "publish"}
+         "apply_cutoff", "model_figures", "figures", "subgroup_figure", "score", "manifest", "card", "publish"}
 #: Rules after apply_cutoff, present or not depending on the workflow and the config.
-TAIL = {"figures", "score", "manifest", "card", "publish"}
+TAIL = {"figures", "subgroup_figure", "score", "manifest", "card", "publish"}
 
 
 _TARGETS: dict[str, tuple[str, ...]] = {}
@@ -120,7 +120,7 @@ def test_costs_rerun_threshold_and_what_follows(built, every_job, tmp_path):
 #: The jobs a change of costs alone reruns (where the workflow has them): the cut-off, the
 #: decision figures and what records them. Not evaluate (the test part is scored once), not
 #: model_figures (no cut-off on them).
-COST_JOBS = {"threshold", "apply_cutoff", "figures", "score", "manifest", "card", "publish"}
+COST_JOBS = {"threshold", "apply_cutoff", "figures", "subgroup_figure", "score", "manifest", "card", "publish"}
 
 
 @pytest.mark.e2e
@@ -204,13 +204,14 @@ def test_a_config_that_says_the_same_thing_reruns_only_its_record(built, every_j
 @pytest.mark.e2e
 def test_new_test_scores_rerun_what_follows_them_and_never_the_choices(built, every_job, tmp_path):
     """Selection and the cut-off are fixed without the test part: a changed test score reruns
-    apply_cutoff and what follows it, but neither compare nor threshold."""
+    apply_cutoff, the figures drawn from the scores and what follows them, but neither compare
+    nor threshold."""
     project, env = _copy(built, tmp_path / "scores")
     path = project / RUN / "evaluation" / "scores.parquet"
     scores = pd.read_parquet(path)
     scores.loc[0, "p"] = scores.loc[0, "p"] / 2  # new content (a touched file with the same bytes reruns nothing)
     scores.to_parquet(path)
-    after = {"figures", "manifest", "card", "publish"} & every_job
+    after = {"figures", "subgroup_figure", "manifest", "card", "publish"} & every_job
     assert planned(project, *targets(project), env=env) == {"apply_cutoff"} | after
 
 
@@ -360,9 +361,11 @@ def _changed_by(project: Path, path: str) -> set[str]:
     ("oddsmith/evidence/manifest.py", {"manifest", "publish"}),
     # the artifact registry: the card reads through it, the manifest names its own file from it,
     # evaluate, apply_cutoff and the figures join the evaluation files through it
-    ("oddsmith/artifacts.py", {"evaluate", "apply_cutoff", "model_figures", "figures", "card", "manifest", "publish"}),
+    ("oddsmith/artifacts.py", {"evaluate", "apply_cutoff", "model_figures", "figures", "subgroup_figure", "card", "manifest",
+                               "publish"}),
     ("oddsmith/io.py", {"validate", "split", "features", "fit", "compare", "challenger_fit", "challenger_gap",
-                        "threshold", "evaluate", "apply_cutoff", "model_figures", "figures", "manifest", "card", "score", "publish", "refit"}),
+                        "threshold", "evaluate", "apply_cutoff", "model_figures", "figures", "subgroup_figure", "manifest", "card", "score",
+                        "publish", "refit"}),
     ("reports/macros.html.j2", {"card"}),
     ("reports/model_card.css", {"card", "score"}),
     ("reports/drift.html.j2", {"score"}),

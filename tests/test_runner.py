@@ -11,6 +11,7 @@ from types import SimpleNamespace
 import pytest
 
 from oddsmith.errors import ContractError
+from oddsmith import runner
 from oddsmith.runner import stage
 
 
@@ -97,3 +98,17 @@ def test_only_the_fit_and_bootstrap_rules_tune_the_allocator(tmp_path, monkeypat
         tuned.clear()
         runner.stage(job, lambda: None)
         assert bool(tuned) == (rule in ("fit", "challenger_fit", "evaluate", "apply_cutoff")), rule
+
+
+def test_idle_timers_are_cancelled_so_the_process_need_not_wait_for_them():
+    """Snakemake's rate limiter leaves non-daemon Timers behind; the build's end cancels them
+    (the interpreter would otherwise wait up to their interval before it exits)."""
+    import threading
+
+    fired = []
+    timer = threading.Timer(600, lambda: fired.append(True))
+    timer.start()
+    assert runner.cancel_idle_timers() >= 1
+    timer.join(timeout=5)
+    assert not timer.is_alive() and fired == []
+    assert runner.cancel_idle_timers() == 0

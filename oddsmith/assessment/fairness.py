@@ -474,25 +474,27 @@ def comparison_replicates(y, flagged, attributes: dict, *, replicates: int, seed
         attribute → group → comparison → array of ``replicates`` values.
     """
     y, flagged = np.asarray(y), np.asarray(flagged, dtype=bool)
-    cells, totals = {}, {}
-    for name, (labels, assessed, _) in attributes.items():
-        # each row's cell: its group (assessed ones; the rest share one last group), flagged, event
-        # factorize hashes the labels (a sort, as np.unique does, takes 0.25 s for 250,000 text labels)
-        inverse, found = pd.factorize(np.asarray(labels), use_na_sentinel=False)
-        position = {group: i for i, group in enumerate(assessed)}
-        group = np.array([position.get(g, len(assessed)) for g in found], dtype=np.int64)[inverse]
-        cells[name] = group * 4 + flagged.astype(np.int64) * 2 + (y == 1).astype(np.int64)
-        totals[name] = np.empty((replicates, len(assessed) + 1, 4))
-    events, non_events = np.flatnonzero(y == 1), np.flatnonzero(y != 1)
+    is_event = y == 1
+    events, non_events = np.flatnonzero(is_event), np.flatnonzero(~is_event)
+    totals = {name: np.empty((replicates, len(assessed) + 1, 4)) for name, (_, assessed, _) in attributes.items()}
+    batches = [_joint_cells(batch, is_event, flagged, events, non_events)
+               for batch in _joint_batches({name: _group_of_rows(labels, assessed)
+                                            for name, (labels, assessed, _) in attributes.items()})]
 
     def count(first: int, last: int) -> None:
         for b in range(first, last):
-            rows = metrics.draw_replicate(events, non_events, replicate=b, seed=seed)
-            for name, cell in cells.items():
-                counted = np.bincount(cell[rows], minlength=totals[name].shape[1] * 4).reshape(-1, 4)
-                # (rows, flagged, events, flagged events) from the counts of (not flagged, flagged) × (non-event, event)
-                totals[name][b] = np.column_stack([counted.sum(axis=1), counted[:, 2] + counted[:, 3],
-                                                   counted[:, 1] + counted[:, 3], counted[:, 3]])
+            drawn_events, drawn_non_events = metrics.draw_within_outcomes(events.size, non_events.size,
+                                                                          replicate=b, seed=seed)
+            for cells_of_events, cells_of_non_events, n_cells, member in batches:
+                # counts of (not flagged, flagged) × (non-event, event) in each joint group
+                counted = (np.bincount(cells_of_events[drawn_events], minlength=n_cells)
+                           + np.bincount(cells_of_non_events[drawn_non_events], minlength=n_cells)).reshape(-1, 4)
+                for name, groups in member.items():
+                    by_group = np.zeros((totals[name].shape[1], 4), dtype=np.int64)
+                    np.add.at(by_group, groups, counted)
+                    # (rows, flagged, events, flagged events)
+                    totals[name][b] = np.column_stack([by_group.sum(axis=1), by_group[:, 2] + by_group[:, 3],
+                                                       by_group[:, 1] + by_group[:, 3], by_group[:, 3]])
 
     metrics.run_blocks(count, metrics.bootstrap_blocks(y.shape[0], replicates), workers=workers)
     out = {}
@@ -500,6 +502,47 @@ def comparison_replicates(y, flagged, attributes: dict, *, replicates: int, seed
         ref = _group_counts(totals[name][:, assessed.index(reference)])
         out[name] = {group: _comparisons(_group_counts(totals[name][:, i]), ref) for i, group in enumerate(assessed)}
     return out
+
+
+#: Most joint groups (combinations of the attributes' groups) counted in one pass of a
+#: replicate; attributes beyond it are counted in a further pass (the same counts).
+MAX_JOINT_GROUPS = 4096
+
+
+def _group_of_rows(labels, assessed: list) -> tuple[np.ndarray, int]:
+    """Each row's group as a number (assessed groups in order; the rest share one last
+    number) and how many numbers there are."""
+    # factorize hashes the labels (a sort, as np.unique does, takes 0.25 s for 250,000 text labels)
+    inverse, found = pd.factorize(np.asarray(labels), use_na_sentinel=False)
+    position = {group: i for i, group in enumerate(assessed)}
+    return np.array([position.get(g, len(assessed)) for g in found], dtype=np.int64)[inverse], len(assessed) + 1
+
+
+def _joint_batches(groups: dict) -> list[dict]:
+    """The attributes in batches whose groups multiply to at most :data:`MAX_JOINT_GROUPS`
+    (an attribute with more groups alone), in the order given."""
+    batches, size = [], None
+    for name, (group, n_groups) in groups.items():
+        if size is None or size * n_groups > MAX_JOINT_GROUPS:
+            batches.append({})
+            size = 1
+        batches[-1][name] = (group, n_groups)
+        size *= n_groups
+    return batches
+
+
+def _joint_cells(batch: dict, is_event, flagged, events, non_events):
+    """The cells of one batch: each row's joint group (a combination of its groups that
+    occurs) × flagged × event, split into the events' and the non-events' cells; the number
+    of cells; and, per attribute, the group of each joint group."""
+    joint = np.zeros(is_event.shape[0], dtype=np.int64)
+    for group, n_groups in batch.values():
+        joint = joint * n_groups + group
+    joint, _ = pd.factorize(joint)  # numbered in order of first appearance
+    first_row = np.unique(joint, return_index=True)[1]
+    member = {name: group[first_row] for name, (group, _) in batch.items()}
+    cells = joint * 4 + flagged.astype(np.int64) * 2 + is_event.astype(np.int64)
+    return cells[events], cells[non_events], first_row.size * 4, member
 
 
 def add_intervals(rows: list[dict], y, p, groups, *, cutoff, bootstrap: dict | None, level: float = 0.95) -> list[dict]:

@@ -676,9 +676,16 @@ def bootstrap_rows(y, *, replicate: int, seed: int) -> np.ndarray:
 
 def draw_replicate(events: np.ndarray, non_events: np.ndarray, *, replicate: int, seed: int) -> np.ndarray:
     """:func:`bootstrap_rows` from the row positions of the events and of the non-events."""
+    drawn_events, drawn_non_events = draw_within_outcomes(events.size, non_events.size, replicate=replicate, seed=seed)
+    return np.concatenate([events[drawn_events], non_events[drawn_non_events]])
+
+
+def draw_within_outcomes(n_events: int, n_non_events: int, *, replicate: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """Replicate ``replicate``'s draws as positions among the events and among the non-events:
+    :func:`draw_replicate` is ``events[first]`` followed by ``non_events[second]``, from the
+    same generator calls, so a caller that keeps per-outcome arrays gets the same replicate."""
     rng = np.random.default_rng([int(seed), int(replicate)])
-    return np.concatenate([events[rng.integers(0, events.size, events.size)],
-                           non_events[rng.integers(0, non_events.size, non_events.size)]])
+    return rng.integers(0, n_events, n_events), rng.integers(0, n_non_events, n_non_events)
 
 
 def bootstrap_blocks(n: int, replicates: int) -> list[tuple[int, int]]:
