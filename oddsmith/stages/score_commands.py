@@ -10,12 +10,17 @@ module does not rerun the score job.
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from oddsmith import artifacts
 from oddsmith.errors import ArtifactError, ConfigError, ManifestError
 from oddsmith.io import canonical_json, read_json
-from oddsmith.stages.score import card_stylesheets, score_batch, write_outputs
-from oddsmith.use.score import (EXTRA_COLUMN_POLICIES, REFERENCES, ScoringModel, load_artifacts, reason_reference)
+from oddsmith.use.options import EXTRA_COLUMN_POLICIES, REFERENCES
+
+# The scoring modules (pandas, the models) are imported by the commands that score, not by
+# the parser: every `oddsmith` command builds the parser, `oddsmith build` included (0.75 s).
+if TYPE_CHECKING:
+    from oddsmith.use.score import ScoringModel
 
 #: What ``oddsmith score`` writes into its output folder: the score rule's files, same names.
 OUTPUTS = artifacts.outputs_of("score")
@@ -57,6 +62,8 @@ def load_results_folder(model_dir, *, check=True) -> tuple[ScoringModel, dict]:
         raise ManifestError(f"{folder}/manifest.json records no configuration ('config' with 'data')")
     data = config["data"]
     deliverable = _deliverable(folder, config)
+    from oddsmith.use.score import load_artifacts
+
     sm = load_artifacts(
         recipe_path=artifacts.in_folder(folder, "features/recipe.json"), selected_path=selected_path,
         model_paths={selected: model_path}, choice_path=artifacts.in_folder(folder, "threshold/choice.json"),
@@ -131,6 +138,8 @@ def score_folder(model_dir, batch_path, out_dir, *, overrides: dict | None = Non
     sm, config = load_results_folder(model_dir, check=check)
     scoring = dict(config.get("scoring") or {}) | {k: v for k, v in (overrides or {}).items() if v is not None}
     out_dir.mkdir(parents=True, exist_ok=True)
+    from oddsmith.stages.score import card_stylesheets, score_batch, write_outputs
+
     result = score_batch(sm, batch_path=batch_path, scoring=scoring,
                          encoding=config["data"].get("encoding", "utf-8"),
                          stylesheets=card_stylesheets(), folder=out_dir, monitoring=config.get("monitoring"))
@@ -236,6 +245,7 @@ def _cmd_score(args) -> int:
 
 def _cmd_rescore(args) -> int:
     from oddsmith.use.rescore import format_rescore, parse_settings, read_record, rescore_row, row_from_file, row_from_record
+    from oddsmith.use.score import reason_reference
 
     if args.row is not None and not args.data:
         raise ConfigError("--row needs --data FILE (the CSV holding that row)")

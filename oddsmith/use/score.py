@@ -65,9 +65,8 @@ from oddsmith.errors import ArgumentError, ArtifactError, ContractError
 from oddsmith.fitting.models import MODEL_FORMAT, inverse_link, linear_predictor
 from oddsmith.fitting.predict import model_design
 from oddsmith.io import read_json, read_parquet, read_yaml, sha256_file
+from oddsmith.use.options import EXTRA_COLUMN_POLICIES, REFERENCES
 
-REFERENCES = ("training_mean", "most_favourable")
-EXTRA_COLUMN_POLICIES = ("reject", "ignore")
 DEFAULT_TOP_K = 3
 # Cells a spreadsheet would read as the start of a formula (or of a hidden control).
 FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")
